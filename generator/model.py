@@ -434,8 +434,11 @@ def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray) -> n
     return out
 
 
-def _search(design: Design, i: np.ndarray, q: np.ndarray):
+def _search(design: Design, i: np.ndarray, q: np.ndarray, chunk: int = 4096):
     """Exact 2-D max-log over every point: (|D|, D < 0, hard bits); D in input codes squared."""
+    if i.size > chunk:
+        parts = [_search(design, i[s:s + chunk], q[s:s + chunk], chunk) for s in range(0, i.size, chunk)]
+        return tuple(np.concatenate([p[n] for p in parts]) for n in range(3))
     k = design.bits
     di = i[:, None] - design.search_i[None, :]
     dq = q[:, None] - design.search_q[None, :]
