@@ -300,6 +300,7 @@ def _derive_widths(design: Design) -> None:
         far = max(int(np.max(np.abs(design.search_i))), int(np.max(np.abs(design.search_q)))) + corner
         dist_max = 2 * far * far
         w["distance"] = bits_for_range(0, dist_max)
+        w["difference"] = bits_for_range(-dist_max, dist_max)
         mag_max = dist_max
     w["magnitude"] = bits_for_range(0, mag_max)
     product_max = mag_max * smax
