@@ -117,7 +117,10 @@ class DesignSpec:
             raise SpecError("constellation.table", f"{len(c.table)} rows", "no table unless labeling = 'table'")
         _int("mapper.width", m.width, 2, MAX_WIDTH)
         _choice("mapper.scaling", m.scaling, SCALINGS)
-        _int("mapper.fraction", m.fraction, 0, m.width - 1, " (fraction bits inside mapper.width)")
+        if m.scaling == "unit-power":
+            _int("mapper.fraction", m.fraction, 0, m.width - 1, " (fraction bits inside mapper.width)")
+        else:  # full-scale ignores the fraction; only its type is checked
+            _int("mapper.fraction", m.fraction, 0, MAX_WIDTH, " (unused with full-scale scaling)")
         if not isinstance(m.backoff_db, (int, float)) or isinstance(m.backoff_db, bool) or not 0 <= m.backoff_db <= 40 or math.isnan(m.backoff_db):
             raise SpecError("mapper.backoff_db", m.backoff_db, "a number of dB from 0 to 40")
         _choice("mapper.rounding", m.rounding, ROUNDING_MODES)
