@@ -174,8 +174,8 @@ def _mapper_tables(spec: DesignSpec, const: Constellation):
                         f"use mapper.fraction <= {limit} or a wider mapper.width")
     if len(set(zip(ci.tolist(), cq.tolist()))) != const.order or (
             const.axes is not None and any(len(set(codes(a.amplitudes).tolist())) != a.levels for a in const.axes)):
-        raise SpecError(key, value, f"more {'fraction bits' if key == 'mapper.fraction' else 'width'}: "
-                        "mapper levels collide at this resolution")
+        raise SpecError(key, value, f"at least {_mapper_minimum(spec, const, peak)} "
+                        f"{'fraction bits' if key == 'mapper.fraction' else 'bits'}: mapper levels collide at this resolution")
     # the values really sent through the quantizer (saturation included, see fixed.quantize)
     assert np.array_equal(ci, quantize(const.points.real * per_amp, QFormat(m.width, 0), m.rounding))
     levels = tuple(codes(a.amplitudes) for a in const.axes) if const.axes is not None else ()
@@ -183,6 +183,21 @@ def _mapper_tables(spec: DesignSpec, const: Constellation):
     for arr in (ci, cq, *levels):
         arr.setflags(write=False)
     return fmt, lsb, ci, cq, levels
+
+
+def _mapper_minimum(spec: DesignSpec, const: Constellation, peak: float) -> int:
+    """Smallest mapper.fraction (unit-power) or mapper.width (full-scale) keeping every level distinct."""
+    m = spec.mapper
+    start = (m.fraction if m.scaling == "unit-power" else m.width) + 1
+    for n in range(start, 63):
+        per_amp = (const.kappa * 2.0 ** n if m.scaling == "unit-power"
+                   else ((1 << (n - 1)) - 1) * 10.0 ** (-m.backoff_db / 20.0) / peak)
+        ci = round_float(const.points.real * per_amp, m.rounding)
+        cq = round_float(const.points.imag * per_amp, m.rounding)
+        if len(set(zip(ci.tolist(), cq.tolist()))) == const.order and (const.axes is None or all(
+                len(set(round_float(a.amplitudes * per_amp, m.rounding).tolist())) == a.levels for a in const.axes)):
+            return n
+    return 63
 
 
 def _axis_demap(ax: Axis) -> AxisDemap:
