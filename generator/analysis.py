@@ -1,0 +1,696 @@
+"""What the chosen widths cost: seeded Monte-Carlo over AWGN of the bit-exact fixed-point chain.
+
+At each Es/N0 point the engine draws labels and unit Gaussian noise (the same draws at every
+point: common random numbers, so curves are smooth in SNR and differences between chains are
+precise), and runs three receivers on the same noise:
+
+* fixed: the bit-exact mapper codes -> AWGN -> demapper input quantizer -> `model.demap`
+  (and `model.hard_decisions` for the BER);
+* float max-log and float exact log-MAP LLRs of the ideal (unquantized) constellation.
+
+Figures of merit: bit error rate of hard decisions next to the closed-form BER of Gray square
+M-QAM (K. Cho and D. Yoon, "On the general BER expression of one- and two-dimensional amplitude
+modulations", IEEE Trans. Commun. 50(7), 2002, eq. (14)); the BICM generalized mutual information
+(GMI, bits per symbol: k - sum_j E[log2(1 + exp(-s_j * llr_j))], s_j = +1 for bit 0; Caire,
+Taricco and Biglieri, IEEE Trans. Inf. Theory 44(3), 1998) where LLRs of arbitrary scale
+(fixed-point codes, max-log) are multiplied by the scalar factor that maximizes the GMI (what a
+decoder's input scaling would apply); the implementation loss in dB of Es/N0 at an operating
+point; the mapper's quantization EVM. Confidence comes from batch means over `BATCHES`
+independent batches of symbols.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import re
+import sys
+import tempfile
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Callable, Sequence
+
+import numpy as np
+
+from .constellation import label_bits
+from .errors import SpecError
+from .fixed import quantize
+from .model import Design, demap, derive, hard_decisions, llr_exact, llr_maxlog
+from .spec import DesignSpec
+
+#: independent batches for the batch-means confidence intervals
+BATCHES = 16
+#: largest chunk of symbols processed at once (bounded memory: a few tens of MB)
+CHUNK = 1 << 16
+#: float LLR histograms: bins per natural-log unit and the clipping magnitude (nats)
+FLOAT_BINS_PER_NAT = 64
+FLOAT_LLR_CLIP = 512.0
+#: range of the GMI-maximizing scalar factor, relative to the natural scale
+FACTOR_RANGE = (2.0 ** -6, 2.0 ** 6)
+#: default operating point: float exact GMI at this fraction of log2(M)
+DEFAULT_GMI_FRACTION = 0.9
+DEFAULT_SYMBOLS = 1_000_000
+DEFAULT_SEED = 1
+DEFAULT_BUDGET_DB = 0.1
+#: two-sided 97.5 % quantile of Student's t with BATCHES - 1 = 15 degrees of freedom
+T_975 = 2.131
+#: the smallest symbol count (every batch needs a few hundred symbols)
+MIN_SYMBOLS = 1024
+#: expected bit errors needed to estimate a BER (relative standard error about 10 %), common practice
+ERRORS_NEEDED = 100
+SNR_LIMITS_DB = (-30.0, 80.0)
+MAX_POINTS = 200
+
+
+# --------------------------------------------------------------------------- SNR syntax
+
+
+def parse_snr(text: str, *, key: str = "snr") -> list[float]:
+    """Es/N0 (or Eb/N0) points in dB: a list "10,12,14" or an inclusive range "start:step:stop"."""
+    allowed = "a list like 10,12,14 or a range start:step:stop like 8:2:20 (dB)"
+    if not isinstance(text, str) or not text.strip():
+        raise SpecError(key, text, allowed)
+    s = text.replace(" ", "")
+    num = r"[-+]?(?:\d+\.?\d*|\.\d+)"
+    if re.fullmatch(rf"{num}:{num}:{num}", s):
+        start, step, stop = (float(v) for v in s.split(":"))
+        if step <= 0:
+            raise SpecError(key, text, "a range with a positive step (start:step:stop)")
+        count = math.floor((stop - start) / step + 1e-9) + 1
+        if count < 1:
+            raise SpecError(key, text, "a non-empty range: stop >= start")
+        if count > MAX_POINTS:
+            raise SpecError(key, text, f"at most {MAX_POINTS} points")
+        points = [round(start + i * step, 9) for i in range(count)]
+    elif re.fullmatch(rf"{num}(?:,{num})*", s):
+        points = [float(v) for v in s.split(",")]
+        if len(points) > MAX_POINTS:
+            raise SpecError(key, text, f"at most {MAX_POINTS} points")
+        if len(set(points)) != len(points):
+            raise SpecError(key, text, "distinct points")
+    else:
+        raise SpecError(key, text, allowed)
+    lo, hi = SNR_LIMITS_DB
+    for p in points:
+        if not lo <= p <= hi:
+            raise SpecError(key, text, f"points from {lo:g} to {hi:g} dB")
+    return sorted(points)
+
+
+def esn0_from_ebn0(ebn0_db: float, bits: int) -> float:
+    """Es/N0 in dB of an Eb/N0 in dB at `bits` bits per symbol."""
+    return ebn0_db + 10.0 * math.log10(bits)
+
+
+def check_symbols(symbols: int, bits: int, ber_floor: float | None = None) -> None:
+    """Refuse symbol counts too small for the batch-means confidence or for the requested BER floor."""
+    if not isinstance(symbols, int) or isinstance(symbols, bool) or symbols < MIN_SYMBOLS:
+        raise SpecError("symbols", symbols, f"an integer of at least {MIN_SYMBOLS} ({BATCHES} batches of 64)")
+    if symbols > 10 ** 10:
+        raise SpecError("symbols", symbols, "at most 1e10")
+    if ber_floor is not None:
+        if not 0 < ber_floor < 0.5:
+            raise SpecError("ber_floor", ber_floor, "a BER between 0 and 0.5")
+        need = math.ceil(ERRORS_NEEDED / (bits * ber_floor))
+        if symbols < need:
+            raise SpecError("symbols", symbols, f"at least {need} to estimate a BER of {ber_floor:g} "
+                            f"({ERRORS_NEEDED} expected bit errors at {bits} bits per symbol)")
+
+
+# --------------------------------------------------------------------------- theory
+
+
+def ber_gray_qam(order: int, esn0_db: float | np.ndarray) -> np.ndarray:
+    """Exact BER of Gray-labeled square M-QAM (and BPSK) with nearest-point decisions in AWGN.
+
+    Cho and Yoon, IEEE Trans. Commun. 50(7), 2002, eqs. (14)-(16) with I = J = sqrt(M):
+    P_b = (1 / log2 L) sum_k P(k), P(k) = (1/L) sum_{i=0}^{(1-2^-k)L-1} (-1)^floor(i 2^(k-1)/L)
+    (2^(k-1) - floor(i 2^(k-1)/L + 1/2)) erfc((2i+1) sqrt(3 Es/N0 / (2 (M-1)))).
+    BPSK: Q(sqrt(2 Es/N0)) = erfc(sqrt(Es/N0)) / 2.
+    """
+    es = 10.0 ** (np.atleast_1d(np.asarray(esn0_db, dtype=np.float64)) / 10.0)
+    erfc = np.vectorize(math.erfc)
+    if order == 2:
+        return 0.5 * erfc(np.sqrt(es))
+    L = int(round(math.sqrt(order)))
+    m = L.bit_length() - 1
+    arg = np.sqrt(3.0 * es / (2.0 * (order - 1)))
+    total = np.zeros_like(es)
+    for k in range(1, m + 1):
+        pk = np.zeros_like(es)
+        for i in range(int((1 - 2.0 ** -k) * L)):
+            w = (i * 2 ** (k - 1)) // L
+            weight = (-1) ** w * (2 ** (k - 1) - math.floor(i * 2 ** (k - 1) / L + 0.5))
+            pk += weight * erfc((2 * i + 1) * arg)
+        total += pk / L
+    return total / m
+
+
+def theory_applies(design: Design) -> bool:
+    """True when the Cho-Yoon Gray formula describes the labeling (Gray-type square QAM, or BPSK)."""
+    const = design.constellation
+    return const.order == 2 or const.gray_type
+
+
+def shannon_capacity(esn0_db: float | np.ndarray) -> np.ndarray:
+    """AWGN capacity log2(1 + Es/N0) of a complex channel, bits per symbol (Shannon 1948)."""
+    return np.log2(1.0 + 10.0 ** (np.asarray(esn0_db, dtype=np.float64) / 10.0))
+
+
+# --------------------------------------------------------------------------- EVM
+
+
+def mapper_evm(design: Design) -> dict[str, float]:
+    """RMS EVM of the quantized mapper against the ideal points, all labels equally likely.
+
+    EVM = sqrt(mean |x_q - x|^2 / mean |x|^2); `evm_uniform_model_db` is the uniform-quantization
+    estimate 2 * LSB^2 / 12 (two components) over unit power.
+    """
+    const = design.constellation
+    ideal = const.normalized
+    xq = (design.point_i + 1j * design.point_q) * design.mapper_lsb
+    err = float(np.mean(np.abs(xq - ideal) ** 2))
+    sig = float(np.mean(np.abs(ideal) ** 2))
+    ratio = err / sig
+    evm_db = 10.0 * math.log10(ratio) if ratio > 0 else -math.inf
+    model_ratio = 2.0 * design.mapper_lsb ** 2 / 12.0
+    if const.axes is not None and not const.axes[1].bits:
+        model_ratio /= 2.0          # BPSK on I only: the Q component is exactly zero
+    return {"evm_db": evm_db, "evm_percent": 100.0 * math.sqrt(ratio),
+            "evm_uniform_model_db": 10.0 * math.log10(model_ratio),
+            "mapper_power_db": 10.0 * math.log10(float(np.mean(np.abs(xq) ** 2)))}
+
+
+def input_noise(design: Design) -> dict[str, float]:
+    """Demapper input quantization: uniform-noise power 2 * LSB^2 / 12 (dB re unit symbol power) and headroom."""
+    lsb = design.input_lsb
+    const = design.constellation
+    peak = float(max(np.max(np.abs(const.normalized.real)), np.max(np.abs(const.normalized.imag))))
+    full = design.input_format.max_code * lsb
+    return {"input_noise_db": 10.0 * math.log10(2.0 * lsb * lsb / 12.0),
+            "input_lsb": lsb, "input_full_scale": full,
+            "input_headroom_db": 20.0 * math.log10(full / peak)}
+
+
+# --------------------------------------------------------------------------- GMI from histograms
+
+
+def _gmi_of(values: np.ndarray, counts: np.ndarray, scale: float, bits_per_symbol: int,
+            symbols: int) -> float:
+    """GMI (bits/symbol) from a histogram of s * llr values (any unit) at `scale` nats per unit."""
+    if symbols == 0:
+        return float("nan")
+    loss = np.logaddexp(0.0, -scale * values) @ counts
+    return bits_per_symbol - float(loss) / (math.log(2.0) * symbols)
+
+
+def best_scale(values: np.ndarray, counts: np.ndarray, natural: float, bits_per_symbol: int,
+               symbols: int, lo: float = FACTOR_RANGE[0], hi: float = FACTOR_RANGE[1]) -> tuple[float, float]:
+    """The factor (relative to `natural` nats per unit) maximizing the GMI, and that GMI.
+
+    GMI is concave in the factor (log(1 + exp(-a x)) is convex in a), so a golden-section
+    search on the log of the factor finds the maximum; tolerance 1e-5 in log units.
+    """
+    keep = counts > 0
+    v, c = values[keep].astype(np.float64), counts[keep].astype(np.float64)
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    a, b = math.log(lo), math.log(hi)
+
+    def f(t: float) -> float:
+        return -_gmi_of(v, c, natural * math.exp(t), bits_per_symbol, symbols)
+
+    x1, x2 = b - g * (b - a), a + g * (b - a)
+    f1, f2 = f(x1), f(x2)
+    while b - a > 1e-5:
+        if f1 <= f2:
+            b, x2, f2 = x2, x1, f1
+            x1 = b - g * (b - a)
+            f1 = f(x1)
+        else:
+            a, x1, f1 = x1, x2, f2
+            x2 = a + g * (b - a)
+            f2 = f(x2)
+    t = (a + b) / 2.0
+    return math.exp(t), -f(t)
+
+
+def gmi_direct(llr_nats: np.ndarray, bits: np.ndarray) -> float:
+    """GMI (bits/symbol) straight from natural-log LLRs (N, k) and transmitted bits (N, k); for tests."""
+    s = 1.0 - 2.0 * np.asarray(bits, dtype=np.float64)
+    k = llr_nats.shape[1]
+    return k - float(np.mean(np.logaddexp(0.0, -s * llr_nats).sum(axis=1))) / math.log(2.0)
+
+
+# --------------------------------------------------------------------------- the chain
+
+
+@dataclass
+class _Hist:
+    """Per-batch histograms of s * llr: dense over a fixed range, or sparse (wide LLR codes)."""
+
+    offset: int
+    dense: np.ndarray | None
+    sparse: list[dict[int, int]] | None = None
+
+    @classmethod
+    def make(cls, offset: int, dense: bool) -> "_Hist":
+        if dense:
+            return cls(offset, np.zeros((BATCHES, 2 * offset + 1), dtype=np.int64))
+        return cls(offset, None, [dict() for _ in range(BATCHES)])
+
+    def add(self, b: int, idx: np.ndarray) -> None:
+        """Add signed values (dense: already offset into 0..2*offset)."""
+        if self.dense is not None:
+            self.dense[b] += np.bincount(idx.ravel(), minlength=self.dense.shape[1])
+        else:
+            vals, cnt = np.unique(idx.ravel(), return_counts=True)
+            d = self.sparse[b]
+            for v, c in zip(vals.tolist(), cnt.tolist()):
+                d[v] = d.get(v, 0) + c
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray]:
+        """(values, counts per batch (BATCHES, n)) with values in histogram units."""
+        if self.dense is not None:
+            return np.arange(-self.offset, self.offset + 1, dtype=np.float64), self.dense
+        keys = sorted(set().union(*self.sparse))
+        pos = {v: i for i, v in enumerate(keys)}
+        counts = np.zeros((BATCHES, len(keys)), dtype=np.int64)
+        for b, d in enumerate(self.sparse):
+            for v, c in d.items():
+                counts[b, pos[v]] = c
+        return np.asarray(keys, dtype=np.float64), counts
+
+
+@dataclass
+class PointStats:
+    """Results at one Es/N0 point; `*_batches` hold the per-batch values for the confidence."""
+
+    esn0_db: float
+    ebn0_db: float
+    n0: float
+    symbols: int
+    bits: int
+    ber_fixed: float | None = None
+    ber_fixed_batches: np.ndarray | None = None
+    bit_errors_fixed: int = 0
+    ber_exact: float | None = None
+    ber_exact_batches: np.ndarray | None = None
+    ber_maxlog: float | None = None
+    ber_maxlog_batches: np.ndarray | None = None
+    gmi_fixed: float | None = None
+    gmi_fixed_batches: np.ndarray | None = None
+    factor_fixed: float | None = None
+    nats_per_code: float | None = None
+    gmi_maxlog: float | None = None
+    gmi_maxlog_batches: np.ndarray | None = None
+    factor_maxlog: float | None = None
+    gmi_exact: float | None = None
+    gmi_exact_batches: np.ndarray | None = None
+    factor_exact: float | None = None
+    input_noise_db: float | None = None
+    input_clip_percent: float | None = None
+
+
+def _stderr(batches: np.ndarray | None) -> float | None:
+    if batches is None:
+        return None
+    return float(np.std(batches, ddof=1) / math.sqrt(len(batches)))
+
+
+class Chain:
+    """Precomputed tables for the Monte-Carlo of one design (fixed chain and float references)."""
+
+    def __init__(self, design: Design, *, ideal_mapper: bool = False, scale_code: int | None = None) -> None:
+        self.design = design
+        const = design.constellation
+        self.const = const
+        self.M, self.k = const.order, const.bits
+        labels = np.arange(self.M)
+        self.txbits = label_bits(labels, self.k)                                      # (M, k) int8
+        self.sign = (1.0 - 2.0 * self.txbits).T.copy()                                  # (k, M) +-1
+        self.tx_ideal = const.normalized.astype(np.complex128)
+        if ideal_mapper:
+            self.tx_fixed = self.tx_ideal
+        else:
+            self.tx_fixed = (design.point_i + 1j * design.point_q) * design.mapper_lsb
+        d = design.spec.demapper
+        self.algorithm = d.algorithm
+        self.hard = d.algorithm == "hard"
+        self.scale = None
+        if design.scale_format is not None:
+            if scale_code is None:
+                scale_code = min(1 << d.scale_fraction, design.scale_format.max_code)
+            self.scale = np.int64(scale_code)
+        self.scale_code = scale_code
+        # natural nats per LLR code at N0 = 1 (times 1/N0 later): code * llr_lsb * scale / N0
+        s_value = (float(scale_code) * design.scale_lsb) if self.scale is not None else 1.0
+        self.code_nats = 1.0 if self.hard else design.llr_lsb * s_value
+        self.llr_max = 1 if self.hard else design.llr_format.max_code
+        self.dense = self.llr_max <= (1 << 15)
+        off = self.llr_max
+        # fixed histogram index: s * llr + offset = llr * (1 - 2 b) + offset
+        self.fixed_sign = (1 - 2 * self.txbits).astype(np.int32)                         # (M, k)
+        self.fixed_offset = off
+        self.chunk = CHUNK if const.axes is not None else max(1024, (1 << 21) // self.M)
+        self.per_axis = const.axes is not None
+        self.axes = [self._axis_tables(n, ax) for n, ax in enumerate(const.axes) if ax.bits] if self.per_axis else []
+
+    def _axis_tables(self, n: int, ax) -> dict[str, Any]:
+        kappa = self.const.kappa
+        L = ax.levels
+        codes = np.asarray(ax.codes)
+        cb = np.stack([ax.axis_bit(codes, j) for j in range(ax.bits)], axis=1).astype(np.float64)   # (L, m)
+        ad = self.design.axes[n]
+        comp = ad.competitor.astype(np.float64)                                          # (m, L, 2)
+        # max-log: decided level, competitor offset by residual sign, sign from decided level's bit
+        return {"component": n, "cols": list(ax.label_bits), "levels": L, "lev": ax.amplitudes * kappa,
+                "b1": cb.T.copy(), "b0": (1.0 - cb).T.copy(),
+                "comp": comp.transpose(1, 2, 0).reshape(2 * L, ax.bits).T.copy(),     # (m, 2L)
+                "neg": (1.0 - 2.0 * cb).T.copy()}                                     # (m, L): +1 for bit 0
+
+    # ---- float references ------------------------------------------------------------
+
+    def float_llrs(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
+        """(max-log metric in normalized units, exact LLR in nats), both (k, N), of normalized samples."""
+        N = y.size
+        if not self.per_axis:
+            return llr_maxlog(self.const, y).T.copy(), llr_exact(self.const, y, n0).T.copy()
+        kappa = self.const.kappa
+        mx = np.empty((self.k, N))
+        ex = np.empty((self.k, N))
+        for t in self.axes:
+            comp = y.real if t["component"] == 0 else y.imag
+            L = t["levels"]
+            amp = comp / kappa
+            n_hat = np.clip(np.floor((amp + L) / 2.0), 0, L - 1).astype(np.int64)
+            e = amp - (2.0 * n_hat - (L - 1))
+            idx = 2 * n_hat + (e < 0)
+            dn = np.take(t["comp"], idx, axis=1)                                          # (m, N)
+            metric = 4.0 * kappa * kappa * dn * (dn - e)
+            metric *= np.take(t["neg"], n_hat, axis=1)
+            d2 = comp[None, :] - t["lev"][:, None]                                         # (L, N)
+            d2 *= d2
+            d2 -= d2.min(axis=0)
+            d2 *= -1.0 / n0
+            np.maximum(d2, -700.0, out=d2)          # keep exp() out of the slow subnormal range
+            np.exp(d2, out=d2)
+            s0 = t["b0"] @ d2
+            s1 = t["b1"] @ d2
+            np.maximum(s0, 1e-300, out=s0)
+            np.maximum(s1, 1e-300, out=s1)
+            for j, col in enumerate(t["cols"]):
+                mx[col] = metric[j]
+                ex[col] = np.log(s0[j] / s1[j])
+        return mx, ex
+
+    # ---- Monte-Carlo -------------------------------------------------------------------
+
+    def run(self, esn0_db: float, symbols: int, seed: int, *, fixed: bool = True, floats: bool = True,
+            keep: int = 0) -> tuple[PointStats, dict[str, np.ndarray]]:
+        """Monte-Carlo at one Es/N0 (dB): `symbols` symbols in BATCHES batches, seeded, chunked.
+
+        Returns the statistics and, when `keep` > 0, the first `keep` symbols' labels and
+        fixed-chain input codes (for the received-cloud plot).
+        """
+        design = self.design
+        n0 = 10.0 ** (-esn0_db / 10.0)
+        sigma = math.sqrt(n0 / 2.0)
+        k = self.k
+        st = PointStats(esn0_db=esn0_db, ebn0_db=esn0_db - 10.0 * math.log10(k), n0=n0, symbols=symbols, bits=k)
+        children = np.random.SeedSequence(seed).spawn(BATCHES)
+        per_batch = [symbols // BATCHES + (1 if b < symbols % BATCHES else 0) for b in range(BATCHES)]
+        err_f = np.zeros(BATCHES, np.int64)
+        err_x = np.zeros(BATCHES, np.int64)
+        err_m = np.zeros(BATCHES, np.int64)
+        qn = np.zeros(BATCHES)
+        clip = np.zeros(BATCHES, np.int64)
+        h_fixed = _Hist.make(self.fixed_offset, self.dense) if fixed else None
+        foff = int(FLOAT_LLR_CLIP * FLOAT_BINS_PER_NAT)
+        h_max = _Hist.make(foff, True) if floats else None
+        h_ex = _Hist.make(foff, True) if floats else None
+        kept: dict[str, list[np.ndarray]] = {"labels": [], "i": [], "q": []}
+        kept_n = 0
+        ifmt = design.input_format
+        kappa = self.const.kappa
+        mscale = FLOAT_BINS_PER_NAT / n0
+        for b in range(BATCHES):
+            rng = np.random.Generator(np.random.PCG64(children[b]))
+            left = per_batch[b]
+            while left > 0:
+                n = min(self.chunk, left)
+                left -= n
+                lab = rng.integers(0, self.M, size=n)
+                z = rng.standard_normal((2, n))
+                z *= sigma
+                noise = z[0] + 1j * z[1]
+                if fixed:
+                    y = np.take(self.tx_fixed, lab) + noise
+                    amp = y / kappa
+                    ci = quantize(amp.real, ifmt, "half-even")
+                    cq = quantize(amp.imag, ifmt, "half-even")
+                    lsb_amp = 2.0 ** -ifmt.fraction
+                    qn[b] += float(np.sum((ci * lsb_amp - amp.real) ** 2) + np.sum((cq * lsb_amp - amp.imag) ** 2))
+                    clip[b] += int(np.count_nonzero((ci == ifmt.max_code) | (ci == ifmt.min_code))
+                                   + np.count_nonzero((cq == ifmt.max_code) | (cq == ifmt.min_code)))
+                    txb = np.take(self.txbits, lab, axis=0)
+                    if self.hard:
+                        hb = demap(design, ci, cq)
+                        llr = (1 - 2 * hb).astype(np.int32)
+                    else:
+                        llr = demap(design, ci, cq, None if self.scale is None else self.scale)
+                        hb = hard_decisions(design, ci, cq)
+                    err_f[b] += int(np.count_nonzero(hb != txb))
+                    signed = llr * np.take(self.fixed_sign, lab, axis=0)
+                    h_fixed.add(b, signed + self.fixed_offset if self.dense else signed)
+                    if keep and kept_n < keep:
+                        take = min(keep - kept_n, n)
+                        kept["labels"].append(lab[:take])
+                        kept["i"].append(ci[:take])
+                        kept["q"].append(cq[:take])
+                        kept_n += take
+                if floats:
+                    y0 = np.take(self.tx_ideal, lab) + noise
+                    mx, ex = self.float_llrs(y0, n0)
+                    sg = np.take(self.sign, lab, axis=1)
+                    mx *= sg
+                    ex *= sg
+                    err_m[b] += int(np.count_nonzero(mx < 0))
+                    err_x[b] += int(np.count_nonzero(ex < 0))
+                    mx *= mscale
+                    ex *= FLOAT_BINS_PER_NAT
+                    for arr, h in ((mx, h_max), (ex, h_ex)):
+                        np.clip(arr, -foff, foff, out=arr)
+                        np.rint(arr, out=arr)
+                        idx = arr.astype(np.int64)
+                        idx += foff
+                        h.add(b, idx)
+        nb = np.asarray(per_batch, dtype=np.float64)
+        total_bits = symbols * k
+        if fixed:
+            st.ber_fixed_batches = err_f / (nb * k)
+            st.ber_fixed = float(err_f.sum() / total_bits)
+            st.bit_errors_fixed = int(err_f.sum())
+            nat = self.code_nats / n0 if not self.hard else 1.0
+            st.gmi_fixed, st.gmi_fixed_batches, st.factor_fixed = self._gmi_batches(h_fixed, nat, nb)
+            st.nats_per_code = st.factor_fixed * nat
+            st.input_noise_db = 10.0 * math.log10(max(float(qn.sum()) * kappa * kappa / symbols, 1e-300))
+            st.input_clip_percent = 100.0 * float(clip.sum()) / (2 * symbols)
+        if floats:
+            st.ber_maxlog_batches = err_m / (nb * k)
+            st.ber_maxlog = float(err_m.sum() / total_bits)
+            st.ber_exact_batches = err_x / (nb * k)
+            st.ber_exact = float(err_x.sum() / total_bits)
+            unit = 1.0 / FLOAT_BINS_PER_NAT
+            st.gmi_maxlog, st.gmi_maxlog_batches, st.factor_maxlog = self._gmi_batches(h_max, unit, nb)
+            st.gmi_exact, st.gmi_exact_batches, st.factor_exact = self._gmi_batches(h_ex, unit, nb, optimize=False)
+        out = {key: np.concatenate(v) if v else np.zeros(0, np.int64) for key, v in kept.items()}
+        return st, out
+
+    def _gmi_batches(self, h: _Hist, natural: float, nb: np.ndarray, optimize: bool = True):
+        values, counts = h.arrays()
+        total = counts.sum(axis=0)
+        used = total > 0
+        values, counts, total = values[used], counts[:, used], total[used]
+        n = int(nb.sum())
+        if optimize:
+            factor, gmi = best_scale(values, total, natural, self.k, n)
+        else:
+            factor = 1.0
+            gmi = _gmi_of(values, total.astype(np.float64), natural, self.k, n)
+        batches = np.array([_gmi_of(values, counts[b].astype(np.float64), natural * factor, self.k, int(nb[b]))
+                            for b in range(BATCHES)])
+        return gmi, batches, factor
+
+
+# --------------------------------------------------------------------------- sweeps
+
+
+def _progress(total: int, label: str) -> Callable[[int], None]:
+    """A progress bar on stderr when it is a terminal; a no-op otherwise."""
+    if not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty()) or total <= 1:
+        return lambda done: None
+
+    def show(done: int) -> None:
+        width = 30
+        fill = int(width * done / total)
+        sys.stderr.write(f"\r{label} [{'#' * fill}{'.' * (width - fill)}] {done}/{total}")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+    show(0)
+    return show
+
+
+def sweep(design: Design, esn0_db: Sequence[float], symbols: int = DEFAULT_SYMBOLS, seed: int = DEFAULT_SEED, *,
+          chain: Chain | None = None, label: str = "sweep") -> list[PointStats]:
+    """Monte-Carlo of all three chains at every Es/N0 point (dB)."""
+    chain = chain or Chain(design)
+    bar = _progress(len(esn0_db), label)
+    out = []
+    for n, s in enumerate(esn0_db):
+        out.append(chain.run(float(s), symbols, seed)[0])
+        bar(n + 1)
+    return out
+
+
+def _crossing(x: np.ndarray, y: np.ndarray, target: float, rising: bool = True) -> float:
+    """First x where the piecewise-linear curve y(x) reaches `target` (nan if it never does)."""
+    ok = (y >= target) if rising else (y <= target)
+    hit = np.flatnonzero(ok)
+    if hit.size == 0:
+        return math.nan
+    i = int(hit[0])
+    if i == 0:
+        return float(x[0]) if y[0] == target else math.nan
+    y0, y1 = y[i - 1], y[i]
+    return float(x[i - 1] + (target - y0) * (x[i] - x[i - 1]) / (y1 - y0))
+
+
+def find_operating_point(chain: Chain, gmi_target: float, seed: int, symbols: int = 1 << 15) -> float:
+    """Es/N0 (dB) where the float exact GMI reaches gmi_target bits (bisection on a quick Monte-Carlo)."""
+    lo, hi = -20.0, 60.0
+    for _ in range(14):
+        mid = (lo + hi) / 2.0
+        g = chain.run(mid, symbols, seed, fixed=False)[0].gmi_exact
+        if g < gmi_target:
+            lo = mid
+        else:
+            hi = mid
+    return (lo + hi) / 2.0
+
+
+@dataclass
+class LossResult:
+    """Implementation loss (dB of Es/N0) of the fixed chain at the operating point, with 95 % intervals."""
+
+    operating_point_esn0_db: float
+    gmi_target: float
+    loss_db_vs_exact: float | None
+    loss_db_vs_exact_ci95: tuple[float, float] | None
+    loss_db_vs_maxlog: float | None
+    loss_db_vs_maxlog_ci95: tuple[float, float] | None
+    ber_target: float | None
+    ber_loss_db_vs_exact: float | None
+    ber_loss_db_vs_exact_ci95: tuple[float, float] | None
+    ber_loss_db_vs_maxlog: float | None
+    ber_loss_db_vs_maxlog_ci95: tuple[float, float] | None
+    grid: list[PointStats] = field(default_factory=list)
+    note: str = ""
+
+
+def _grid_steps(op: float) -> list[float]:
+    """Es/N0 grid around the operating point: 0.1 dB steps near it, coarser further right (dB)."""
+    pts = [op + 0.1 * i for i in range(-3, 11)]
+    pts += [op + 1.0 + 0.25 * i for i in range(1, 9)]
+    pts += [op + 3.0 + 0.5 * i for i in range(1, 15)]
+    return [round(p, 6) for p in pts]
+
+
+def _interval(full: float, batches: list[float]) -> tuple[float, float] | None:
+    vals = np.asarray(batches, dtype=np.float64)
+    if not np.all(np.isfinite(vals)) or not math.isfinite(full):
+        return None
+    half = T_975 * float(np.std(vals, ddof=1)) / math.sqrt(len(vals))
+    return (full - half, full + half)
+
+
+def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: int = DEFAULT_SEED, *,
+                        operating_point_db: float | None = None, gmi_fraction: float = DEFAULT_GMI_FRACTION,
+                        chain: Chain | None = None, label: str = "loss") -> LossResult:
+    """Horizontal distance (dB) between the fixed and the float GMI (and BER) curves at the operating point.
+
+    The curves are measured on a grid around the operating point (0.1 dB steps where the fixed
+    curve usually crosses) with common random numbers and linearly interpolated; the 95 %
+    interval is the batch-means interval of the same crossing computed per batch.
+    """
+    chain = chain or Chain(design)
+    k = chain.k
+    if operating_point_db is None:
+        if not 0.0 < gmi_fraction < 1.0:
+            raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
+        target = gmi_fraction * k
+        op0 = find_operating_point(chain, target, seed)
+    else:
+        op0 = float(operating_point_db)
+        target = None
+    grid_x = _grid_steps(op0)
+    bar = _progress(len(grid_x), label)
+    grid: list[PointStats] = []
+    for n, s in enumerate(grid_x):
+        st = chain.run(s, symbols, seed)[0]
+        grid.append(st)
+        bar(n + 1)
+        if target is None and n == 3:
+            target = st.gmi_exact
+        if n >= 5 and target is not None and st.gmi_fixed >= target and st.gmi_maxlog >= target \
+                and np.all(st.gmi_fixed_batches >= target) and np.all(st.gmi_maxlog_batches >= target) \
+                and st.ber_fixed <= grid[3].ber_exact and st.ber_fixed <= grid[3].ber_maxlog:
+            bar(len(grid_x))
+            break
+    x = np.asarray([g.esn0_db for g in grid])
+
+    def cross(attr: str, tgt, b: int | None = None, rising: bool = True) -> float:
+        if b is None:
+            y = np.asarray([getattr(g, attr) for g in grid])
+        else:
+            y = np.asarray([getattr(g, attr + "_batches")[b] for g in grid])
+        if not rising:
+            y = np.log10(np.maximum(y, 1e-300))
+            tgt = math.log10(max(tgt, 1e-300))
+        return _crossing(x, y, tgt, rising)
+
+    s_exact = cross("gmi_exact", target)
+    op = s_exact if math.isfinite(s_exact) else op0
+    note = ""
+    results: dict[str, Any] = {}
+    for ref in ("exact", "maxlog"):
+        full = cross("gmi_fixed", target) - cross(f"gmi_{ref}", target)
+        per = [cross("gmi_fixed", target, b) - cross(f"gmi_{ref}", target, b) for b in range(BATCHES)]
+        results[f"loss_{ref}"] = (full if math.isfinite(full) else None, _interval(full, per))
+    # BER: the reference BER at the operating point (log-linear interpolation), fixed chain crossing it
+    ber_target = None
+    for ref in ("exact", "maxlog"):
+        yref = np.log10(np.maximum([getattr(g, f"ber_{ref}") for g in grid], 1e-300))
+        tgt = 10.0 ** float(np.interp(op, x, yref))
+        if ref == "exact":
+            ber_target = tgt
+        full = cross("ber_fixed", tgt, rising=False) - cross(f"ber_{ref}", tgt, rising=False)
+        per = []
+        for b in range(BATCHES):
+            yb = np.log10(np.maximum([getattr(g, f"ber_{ref}_batches")[b] for g in grid], 1e-300))
+            tb = 10.0 ** float(np.interp(op, x, yb))
+            per.append(cross("ber_fixed", tb, b, rising=False) - cross(f"ber_{ref}", tb, b, rising=False))
+        results[f"ber_{ref}"] = (full if math.isfinite(full) else None, _interval(full, per))
+    if results["loss_exact"][0] is None:
+        note = (f"the fixed-point GMI stays below the target {target:.4g} bits up to "
+                f"{grid_x[-1]:.1f} dB Es/N0: the loss is larger than {grid_x[-1] - op:.1f} dB")
+    return LossResult(operating_point_esn0_db=op, gmi_target=float(target),
+                      loss_db_vs_exact=results["loss_exact"][0], loss_db_vs_exact_ci95=results["loss_exact"][1],
+                      loss_db_vs_maxlog=results["loss_maxlog"][0], loss_db_vs_maxlog_ci95=results["loss_maxlog"][1],
+                      ber_target=ber_target,
+                      ber_loss_db_vs_exact=results["ber_exact"][0], ber_loss_db_vs_exact_ci95=results["ber_exact"][1],
+                      ber_loss_db_vs_maxlog=results["ber_maxlog"][0],
+                      ber_loss_db_vs_maxlog_ci95=results["ber_maxlog"][1], grid=grid, note=note)
