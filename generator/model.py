@@ -269,6 +269,9 @@ def output(design: Design, mag: np.ndarray, neg: np.ndarray, scale: np.ndarray |
     """Output stage: magnitude x scale, rounding shift, symmetric saturation, sign."""
     d = design.spec.demapper
     p = mag if scale is None else mag * scale
+    if design.output_shift < 0:
+        # clamp before the exact left shift so int64 cannot wrap; same result as shifting first
+        p = np.minimum(p, (design.llr_format.max_code >> -design.output_shift) + 1)
     v = shift_round(p, design.output_shift, d.rounding)
     v = np.minimum(v, design.llr_format.max_code)
     return np.where(neg, -v, v)
