@@ -1,0 +1,155 @@
+"""The `qamsmith` command: generate, list, run; exit status 2 with nothing written on bad input;
+deterministic output; the committed out/ designs regenerate byte for byte."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from qamsmith.cli import COMMAND_MODULES, DEFAULT_EXAMPLE, examples
+from qamsmith.emit import MANIFEST, build_files
+from qamsmith.spec import DesignSpec
+
+REPO = Path(__file__).resolve().parent.parent
+
+
+def _tree(root: Path) -> dict[str, bytes]:
+    return {p.relative_to(root).as_posix(): p.read_bytes() for p in sorted(root.rglob("*")) if p.is_file()}
+
+
+def test_generate_without_arguments_builds_the_default_example(cli, tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    r = cli("generate")
+    assert r.code == 0, r.err
+    target = tmp_path / "out" / DEFAULT_EXAMPLE
+    assert (target / "design.toml").is_file() and (target / MANIFEST).is_file()
+    assert r.out.startswith(f"qamsmith: wrote out/{DEFAULT_EXAMPLE}/: ") and len(r.out.splitlines()) == 2
+    # a second run over its own, unmodified output is allowed and changes nothing
+    before = _tree(target)
+    assert cli("generate").code == 0
+    assert _tree(target) == before
+
+
+@pytest.mark.parametrize("argv,pattern", [
+    (["--order", "32"], r"constellation\.order = 32: one of 2, 4, 16, 64, 256, 1024, 4096 \(non-square"),
+    (["--labeling", "grey"], r"constellation\.labeling = 'grey': one of gray, 3gpp-nr"),
+    (["--llr-width", "1"], r"demapper\.llr_width = 1: an integer from 2 to 32"),
+    (["--input-fraction", "12"], r"demapper\.input_fraction = 12: an integer from 0 to 10"),
+    (["--order", "256", "--input-width", "8", "--input-fraction", "4"], r"demapper\.input_width = 8: at least 9 bits"),
+    (["--labeling", "natural", "--algorithm", "folded"], r"demapper\.algorithm = 'folded': maxlog or hard"),
+    (["--set", "mapper.widht=12"], r"mapper\.widht = 12: a known key of \[mapper\]"),
+    (["--set", "mapper.width"], r"--set = 'mapper\.width': section\.key=value"),
+    (["--table", "missing.csv"], r"constellation\.table_file = 'missing\.csv': a readable CSV file"),
+    (["no-such-example"], r"spec = 'no-such-example': a TOML file or a built-in example: larkspur-"),
+], ids=["order32", "labeling", "llr-width", "fraction", "input-width", "folded-natural", "toml-key", "set-syntax",
+        "table-file", "example"])
+def test_bad_input_exits_2_and_writes_nothing(cli, tmp_path: Path, argv: list[str], pattern: str) -> None:
+    r = cli("generate", *argv, "--out", str(tmp_path / "out"))
+    assert r.code == 2 and r.out == ""
+    assert len(r.err.splitlines()) == 1
+    import re
+    assert re.match(r"qamsmith: error: " + pattern, r.err), r.err
+    assert not (tmp_path / "out").exists()
+
+
+def test_argparse_errors_exit_2(cli) -> None:
+    assert cli("generate", "--order", "sixteen").code == 2
+    assert cli("frobnicate").code == 2
+    assert cli().code == 2
+    assert cli("run", "somewhere").code == 2              # --block is required
+
+
+def test_foreign_files_refused_then_kept_with_force(cli, tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    assert cli("generate", "larkspur-telemetry-qpsk", "--out", str(out)).code == 0
+    target = out / "larkspur-telemetry-qpsk"
+    (target / "lab-notes.md").write_text("scope shots\n")
+    before = _tree(target)
+    r = cli("generate", "larkspur-telemetry-qpsk", "--llr-width", "6", "--out", str(out))
+    assert r.code == 2 and "qamsmith did not write, e.g. 'lab-notes.md'" in r.err and "--force" in r.err
+    assert _tree(target) == before
+    assert cli("generate", "larkspur-telemetry-qpsk", "--llr-width", "6", "--out", str(out), "--force").code == 0
+    assert (target / "lab-notes.md").read_text() == "scope shots\n"
+    assert json.loads((target / MANIFEST).read_text())["spec"]["demapper"]["llr_width"] == 6
+
+
+def test_two_generates_are_byte_identical(cli, tmp_path: Path) -> None:
+    for run in ("a", "b"):
+        assert cli("generate", "--order", "64", "--labeling", "gray", "--set", "demapper.scale_width=4",
+                   "--out", str(tmp_path / run)).code == 0
+    a, b = _tree(tmp_path / "a"), _tree(tmp_path / "b")
+    assert a == b and "qam64-gray-maxlog/manifest.json" in a
+
+
+def test_design_toml_regenerates_every_file(cli, tmp_path: Path) -> None:
+    first = tmp_path / "first"
+    assert cli("generate", "--order", "16", "--table", str(REPO / "generator/examples/larkspur-spur-16.csv"),
+               "--name", "spur", "--out", str(first)).code == 0
+    second = tmp_path / "second"
+    assert cli("generate", str(first / "spur" / "design.toml"), "--out", str(second)).code == 0
+    assert _tree(first) == _tree(second)
+    # and over itself, in place
+    assert cli("generate", str(first / "spur" / "design.toml"), "--out", str(first)).code == 0
+    assert _tree(first) == _tree(second)
+
+
+def test_flags_override_a_spec_file(cli, tmp_path: Path) -> None:
+    assert cli("generate", "larkspur-backhaul-256", "--algorithm", "folded", "--name", "bh-folded",
+               "--set", 'interface.prefix="bhf"', "--out", str(tmp_path)).code == 0
+    spec = json.loads((tmp_path / "bh-folded" / MANIFEST).read_text())["spec"]
+    assert spec["demapper"]["algorithm"] == "folded" and spec["constellation"]["order"] == 256
+    assert spec["interface"]["prefix"] == "bhf"
+
+
+def test_list_shows_what_is_supported(cli) -> None:
+    r = cli("list")
+    assert r.code == 0
+    for text in ("2, 4, 16, 64, 256, 1024, 4096", "gray, 3gpp-nr, ieee-802.11, natural, table", "maxlog, folded, hard",
+                 "half-even, half-away, floor", "demapper.llr_width", "[default 8]", f"{DEFAULT_EXAMPLE} (default)",
+                 "larkspur-telemetry-qpsk"):
+        assert text in r.out, text
+
+
+@pytest.mark.parametrize("name", ["larkspur-telemetry-qpsk", "larkspur-spur-16"])
+@pytest.mark.parametrize("block", ["mapper", "demapper"])
+def test_run_reproduces_the_expected_vectors(cli, tmp_path: Path, name: str, block: str) -> None:
+    assert cli("generate", name, "--out", str(tmp_path)).code == 0
+    design = tmp_path / name
+    expected = (design / "vectors" / f"{block}_out.hex").read_bytes()
+    r = cli("run", str(design), "--block", block, "--input", str(design / "vectors" / f"{block}_in.hex"))
+    assert r.code == 0 and r.out.encode() == expected
+    out = tmp_path / "result.hex"
+    assert cli("run", str(design / "design.toml"), "--block", block, "--output", str(out)).code == 0
+    assert out.read_bytes() == expected
+
+
+def test_run_refuses_malformed_words(cli, tmp_path: Path) -> None:
+    assert cli("generate", "larkspur-telemetry-qpsk", "--out", str(tmp_path)).code == 0
+    bad = tmp_path / "bad.hex"
+    bad.write_text("// two labels\n1\n7\n")
+    r = cli("run", str(tmp_path / "larkspur-telemetry-qpsk"), "--block", "mapper", "--input", str(bad))
+    assert r.code == 2 and r.err.startswith("qamsmith: error: --input = ") and "at most 2 bits" in r.err
+    bad.write_text("zz\n")
+    assert cli("run", str(tmp_path / "larkspur-telemetry-qpsk"), "--block", "demapper", "--input", str(bad)).code == 2
+
+
+def test_command_modules_register_subcommands() -> None:
+    assert isinstance(COMMAND_MODULES, tuple) and all(isinstance(m, str) for m in COMMAND_MODULES)
+    from qamsmith.cli import build_parser
+    build_parser()                                             # every listed module imports and registers
+
+
+@pytest.mark.parametrize("name", sorted(examples()))
+def test_committed_out_designs_regenerate_byte_for_byte(name: str) -> None:
+    """Golden files: out/<name>/ holds exactly what the current generator writes for that example."""
+    target = REPO / "out" / name
+    assert target.is_dir(), f"out/{name} is missing: run `qamsmith generate {name}` and commit it"
+    spec = DesignSpec.from_toml(target / "design.toml")
+    assert spec == DesignSpec.from_toml(REPO / "generator" / "examples" / f"{name}.toml")
+    files = build_files(spec)
+    listed = {e["path"] for e in json.loads((target / MANIFEST).read_text())["files"]} | {MANIFEST}
+    assert listed == set(files)
+    stale = [path for path, data in files.items() if (target / path).read_bytes() != data]
+    assert not stale, f"out/{name} is stale ({stale[:3]}): regenerate with `qamsmith generate {name} --force`"
