@@ -197,13 +197,21 @@ def input_noise(design: Design) -> dict[str, float]:
 # --------------------------------------------------------------------------- GMI from histograms
 
 
+def _softplus(scale: float, values: np.ndarray) -> np.ndarray:
+    """log(1 + exp(-scale * values)) in nats, elementwise (exp() kept out of the subnormal range)."""
+    t = -scale * values
+    np.maximum(t, -700.0, out=t)                # terms below exp(-700) are zero anyway
+    return np.logaddexp(0.0, t)
+
+
 def _gmi_of(values: np.ndarray, counts: np.ndarray, scale: float, bits_per_symbol: int,
-            symbols: int) -> float:
-    """GMI (bits/symbol) from a histogram of s * llr values (any unit) at `scale` nats per unit."""
-    if symbols == 0:
-        return float("nan")
-    loss = np.logaddexp(0.0, -scale * values) @ counts
-    return bits_per_symbol - float(loss) / (math.log(2.0) * symbols)
+            symbols: int | np.ndarray) -> float | np.ndarray:
+    """GMI (bits/symbol) from a histogram of s * llr values (any unit) at `scale` nats per unit.
+
+    `counts` may be (n,) or (batches, n) with `symbols` per batch.
+    """
+    loss = counts @ _softplus(scale, values)
+    return bits_per_symbol - loss / (math.log(2.0) * np.asarray(symbols, dtype=np.float64))
 
 
 def best_scale(values: np.ndarray, counts: np.ndarray, natural: float, bits_per_symbol: int,
@@ -211,7 +219,7 @@ def best_scale(values: np.ndarray, counts: np.ndarray, natural: float, bits_per_
     """The factor (relative to `natural` nats per unit) maximizing the GMI, and that GMI.
 
     GMI is concave in the factor (log(1 + exp(-a x)) is convex in a), so a golden-section
-    search on the log of the factor finds the maximum; tolerance 1e-5 in log units.
+    search on the log of the factor finds the maximum; tolerance 1e-4 in log units.
     """
     keep = counts > 0
     v, c = values[keep].astype(np.float64), counts[keep].astype(np.float64)
@@ -219,11 +227,11 @@ def best_scale(values: np.ndarray, counts: np.ndarray, natural: float, bits_per_
     a, b = math.log(lo), math.log(hi)
 
     def f(t: float) -> float:
-        return -_gmi_of(v, c, natural * math.exp(t), bits_per_symbol, symbols)
+        return -float(_gmi_of(v, c, natural * math.exp(t), bits_per_symbol, symbols))
 
     x1, x2 = b - g * (b - a), a + g * (b - a)
     f1, f2 = f(x1), f(x2)
-    while b - a > 1e-5:
+    while b - a > 1e-4:
         if f1 <= f2:
             b, x2, f2 = x2, x1, f1
             x1 = b - g * (b - a)
@@ -252,35 +260,32 @@ class _Hist:
 
     offset: int
     dense: np.ndarray | None
-    sparse: list[dict[int, int]] | None = None
+    sparse: list[list[tuple[np.ndarray, np.ndarray]]] | None = None
 
     @classmethod
     def make(cls, offset: int, dense: bool) -> "_Hist":
         if dense:
             return cls(offset, np.zeros((BATCHES, 2 * offset + 1), dtype=np.int64))
-        return cls(offset, None, [dict() for _ in range(BATCHES)])
+        return cls(offset, None, [[] for _ in range(BATCHES)])
 
     def add(self, b: int, idx: np.ndarray) -> None:
         """Add signed values (dense: already offset into 0..2*offset)."""
         if self.dense is not None:
             self.dense[b] += np.bincount(idx.ravel(), minlength=self.dense.shape[1])
         else:
-            vals, cnt = np.unique(idx.ravel(), return_counts=True)
-            d = self.sparse[b]
-            for v, c in zip(vals.tolist(), cnt.tolist()):
-                d[v] = d.get(v, 0) + c
+            self.sparse[b].append(np.unique(idx.ravel(), return_counts=True))
 
     def arrays(self) -> tuple[np.ndarray, np.ndarray]:
         """(values, counts per batch (BATCHES, n)) with values in histogram units."""
         if self.dense is not None:
             return np.arange(-self.offset, self.offset + 1, dtype=np.float64), self.dense
-        keys = sorted(set().union(*self.sparse))
-        pos = {v: i for i, v in enumerate(keys)}
-        counts = np.zeros((BATCHES, len(keys)), dtype=np.int64)
-        for b, d in enumerate(self.sparse):
-            for v, c in d.items():
-                counts[b, pos[v]] = c
-        return np.asarray(keys, dtype=np.float64), counts
+        vals = [v for parts in self.sparse for v, _ in parts]
+        keys = np.unique(np.concatenate(vals)) if vals else np.zeros(0, np.int64)
+        counts = np.zeros((BATCHES, keys.size), dtype=np.int64)
+        for b, parts in enumerate(self.sparse):
+            for v, c in parts:
+                counts[b] += np.bincount(np.searchsorted(keys, v), weights=c, minlength=keys.size).astype(np.int64)
+        return keys.astype(np.float64), counts
 
 
 @dataclass
@@ -319,6 +324,14 @@ def _stderr(batches: np.ndarray | None) -> float | None:
     return float(np.std(batches, ddof=1) / math.sqrt(len(batches)))
 
 
+def _row_sum(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Sum of the given rows of a (L, N) array (row by row: much faster than a small matmul)."""
+    out = a[rows[0]].copy()
+    for r in rows[1:]:
+        out += a[r]
+    return out
+
+
 class Chain:
     """Precomputed tables for the Monte-Carlo of one design (fixed chain and float references)."""
 
@@ -335,6 +348,9 @@ class Chain:
             self.tx_fixed = self.tx_ideal
         else:
             self.tx_fixed = (design.point_i + 1j * design.point_q) * design.mapper_lsb
+        #: mean energy of the fixed mapper's output (normalized units): Es/N0 refers to what is sent,
+        #: so a mapper whose rounding raises its power gains nothing from it
+        self.es_fixed = float(np.mean(np.abs(self.tx_fixed) ** 2))
         d = design.spec.demapper
         self.algorithm = d.algorithm
         self.hard = d.algorithm == "hard"
@@ -366,7 +382,8 @@ class Chain:
         comp = ad.competitor.astype(np.float64)                                          # (m, L, 2)
         # max-log: decided level, competitor offset by residual sign, sign from decided level's bit
         return {"component": n, "cols": list(ax.label_bits), "levels": L, "lev": ax.amplitudes * kappa,
-                "b1": cb.T.copy(), "b0": (1.0 - cb).T.copy(),
+                "rows0": [np.flatnonzero(cb[:, j] == 0) for j in range(ax.bits)],
+                "rows1": [np.flatnonzero(cb[:, j] == 1) for j in range(ax.bits)],
                 "comp": comp.transpose(1, 2, 0).reshape(2 * L, ax.bits).T.copy(),     # (m, 2L)
                 "neg": (1.0 - 2.0 * cb).T.copy()}                                     # (m, L): +1 for bit 0
 
@@ -396,13 +413,14 @@ class Chain:
             d2 *= -1.0 / n0
             np.maximum(d2, -700.0, out=d2)          # keep exp() out of the slow subnormal range
             np.exp(d2, out=d2)
-            s0 = t["b0"] @ d2
-            s1 = t["b1"] @ d2
-            np.maximum(s0, 1e-300, out=s0)
-            np.maximum(s1, 1e-300, out=s1)
             for j, col in enumerate(t["cols"]):
+                s0 = _row_sum(d2, t["rows0"][j])
+                s1 = _row_sum(d2, t["rows1"][j])
+                np.maximum(s0, 1e-300, out=s0)
+                np.maximum(s1, 1e-300, out=s1)
+                s0 /= s1
                 mx[col] = metric[j]
-                ex[col] = np.log(s0[j] / s1[j])
+                ex[col] = np.log(s0)
         return mx, ex
 
     # ---- Monte-Carlo -------------------------------------------------------------------
@@ -435,6 +453,7 @@ class Chain:
         ifmt = design.input_format
         kappa = self.const.kappa
         mscale = FLOAT_BINS_PER_NAT / n0
+        fixed_gain = math.sqrt(self.es_fixed)
         for b in range(BATCHES):
             rng = np.random.Generator(np.random.PCG64(children[b]))
             left = per_batch[b]
@@ -446,7 +465,7 @@ class Chain:
                 z *= sigma
                 noise = z[0] + 1j * z[1]
                 if fixed:
-                    y = np.take(self.tx_fixed, lab) + noise
+                    y = np.take(self.tx_fixed, lab) + noise * fixed_gain
                     amp = y / kappa
                     ci = quantize(amp.real, ifmt, "half-even")
                     cq = quantize(amp.imag, ifmt, "half-even")
@@ -518,9 +537,8 @@ class Chain:
             factor, gmi = best_scale(values, total, natural, self.k, n)
         else:
             factor = 1.0
-            gmi = _gmi_of(values, total.astype(np.float64), natural, self.k, n)
-        batches = np.array([_gmi_of(values, counts[b].astype(np.float64), natural * factor, self.k, int(nb[b]))
-                            for b in range(BATCHES)])
+            gmi = float(_gmi_of(values, total.astype(np.float64), natural, self.k, n))
+        batches = _gmi_of(values, counts.astype(np.float64), natural * factor, self.k, nb)
         return gmi, batches, factor
 
 
@@ -694,3 +712,284 @@ def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: in
                       ber_loss_db_vs_exact=results["ber_exact"][0], ber_loss_db_vs_exact_ci95=results["ber_exact"][1],
                       ber_loss_db_vs_maxlog=results["ber_maxlog"][0],
                       ber_loss_db_vs_maxlog_ci95=results["ber_maxlog"][1], grid=grid, note=note)
+
+
+# --------------------------------------------------------------------------- width explorer
+
+DEFAULT_EXPLORE_SYMBOLS = 1 << 17
+MAPPER_WIDTHS = range(3, 17)
+INPUT_FRACTIONS = range(0, 8)
+INPUT_EXTRA_BITS = 5
+LLR_WIDTHS = range(2, 13)
+#: the fine demapper input used while another stage is swept (fraction bits)
+REFERENCE_INPUT_FRACTION = 6
+
+
+def _exact_llr_settings(spec: DesignSpec) -> dict[str, Any]:
+    """LLR width and fraction that carry the demapper's metric exactly (no rounding, no saturation)."""
+    design = derive(spec.with_settings({"demapper.llr_width": 32, "demapper.llr_fraction": 0}))
+    d = spec.demapper
+    frac = design.metric_fraction + (d.scale_fraction if d.scale_width else 0)
+    width = design.widths["product"][0] + 1
+    if width > 32 or frac > 31:
+        width, frac = 32, min(frac, 31)
+    return {"demapper.llr_width": width, "demapper.llr_fraction": min(frac, width - 1)}
+
+
+def reference_spec(spec: DesignSpec, esn0_db: float) -> DesignSpec:
+    """The spec with a fine, unclipped demapper input at `esn0_db` and exact LLR words (the explorer's reference)."""
+    const = derive(spec).constellation
+    peak = float(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
+    sigma_amp = math.sqrt(10.0 ** (-esn0_db / 10.0) / 2.0) / const.kappa
+    last = None
+    for f in range(REFERENCE_INPUT_FRACTION, -1, -1):
+        reach = (peak + 1.0 + 8.0 * sigma_amp) * 2 ** f
+        width = min(int(reach).bit_length() + 1, 20)
+        try:
+            cand = spec.with_settings({"demapper.input_width": width, "demapper.input_fraction": f})
+            cand = cand.with_settings(_exact_llr_settings(cand))
+            derive(cand)
+            return cand
+        except SpecError as exc:
+            last = exc
+    raise last if last else SpecError("demapper", spec.demapper, "a demapper the explorer can widen")
+
+
+def _min_input_width(spec: DesignSpec, f: int) -> int | None:
+    for w in range(max(2, f + 2), 21):
+        try:
+            derive(spec.with_settings({"demapper.input_width": w, "demapper.input_fraction": f}))
+            return w
+        except SpecError:
+            continue
+    return None
+
+
+@dataclass
+class _Probe:
+    """GMI of fixed chains at the operating point against a reference, as a linearized loss (dB)."""
+
+    esn0_db: float
+    symbols: int
+    seed: int
+    ref_gmi: float
+    ref_batches: np.ndarray
+    slope: float                     # bits per dB of the reference GMI curve at the operating point
+    evaluations: int = 0
+
+    def loss(self, spec: DesignSpec, *, ideal_mapper: bool) -> dict[str, Any]:
+        try:
+            design = derive(spec)
+        except SpecError as exc:
+            return {"loss_db": None, "error": str(exc)}
+        st = Chain(design, ideal_mapper=ideal_mapper).run(self.esn0_db, self.symbols, self.seed, floats=False)[0]
+        self.evaluations += 1
+        full = (self.ref_gmi - st.gmi_fixed) / self.slope
+        per = (self.ref_batches - st.gmi_fixed_batches) / self.slope
+        half = T_975 * float(np.std(per, ddof=1)) / math.sqrt(BATCHES)
+        return {"loss_db": full, "loss_db_ci95": [full - half, full + half], "gmi": st.gmi_fixed,
+                "llr_factor": st.factor_fixed}
+
+
+def explore_widths(spec: DesignSpec, *, budget_db: float = DEFAULT_BUDGET_DB,
+                   symbols: int = DEFAULT_EXPLORE_SYMBOLS, seed: int = DEFAULT_SEED,
+                   operating_point_db: float | None = None, gmi_fraction: float = DEFAULT_GMI_FRACTION,
+                   label: str = "widths") -> dict[str, Any]:
+    """Sweep mapper, demapper input and LLR widths; recommend the smallest within `budget_db`.
+
+    Each stage is swept with the other two at reference precision (ideal mapper, fine unclipped
+    input, exact LLR words); its loss is the GMI gap to the reference at the operating point
+    divided by the slope of the reference GMI curve there (dB, linearized: accurate for small
+    losses). Stage losses add to first order, so each stage gets an equal share of the budget;
+    the combination is then measured and widened stage by stage until it fits the budget.
+    """
+    if not isinstance(budget_db, (int, float)) or not 0 < budget_db <= 10:
+        raise SpecError("budget_db", budget_db, "a loss budget in dB, above 0 and at most 10")
+    check_symbols(symbols, spec.bits)
+    base = derive(spec)
+    k = base.bits
+    exact_chain = Chain(base)
+    if operating_point_db is None:
+        if not 0.0 < gmi_fraction < 1.0:
+            raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
+        op = find_operating_point(exact_chain, gmi_fraction * k, seed)
+    else:
+        op = float(operating_point_db)
+    ref = reference_spec(spec, op)
+    ref_chain = Chain(derive(ref), ideal_mapper=True)
+    st0 = ref_chain.run(op, symbols, seed)[0]
+    lo = ref_chain.run(op - 0.1, symbols, seed, floats=False)[0].gmi_fixed
+    hi = ref_chain.run(op + 0.1, symbols, seed, floats=False)[0].gmi_fixed
+    slope = max((hi - lo) / 0.2, 1e-6)
+    probe = _Probe(op, symbols, seed, st0.gmi_fixed, st0.gmi_fixed_batches, slope)
+    algorithm = spec.demapper.algorithm
+    stages = ["mapper", "input"] + ([] if algorithm == "hard" else ["llr"])
+    share = budget_db / len(stages)
+    m = spec.mapper
+    input_keys = {"demapper.input_width": ref.demapper.input_width,
+                  "demapper.input_fraction": ref.demapper.input_fraction}
+    steps = len(MAPPER_WIDTHS) + len(INPUT_FRACTIONS) * (INPUT_EXTRA_BITS + 1) + sum(LLR_WIDTHS)
+    bar = _progress(steps, label)
+    done = 0
+
+    # mapper: the largest fraction that fits each width (unit-power), or the width alone (full-scale)
+    mapper_rows = []
+    for w in MAPPER_WIDTHS:
+        done += 1
+        bar(done)
+        fracs = range(w - 1, -1, -1) if m.scaling == "unit-power" else (m.fraction if m.fraction < w else 0,)
+        for f in fracs:
+            try:
+                cand = ref.with_settings({"mapper.width": w, "mapper.fraction": f})
+                derive(cand)
+            except SpecError:
+                continue
+            row = {"width": w, "fraction": f if m.scaling == "unit-power" else None}
+            row.update(probe.loss(cand, ideal_mapper=False))
+            row["evm_db"] = mapper_evm(derive(cand))["evm_db"]
+            mapper_rows.append(row)
+            break
+
+    # demapper input: width and fraction, with exact LLR words for each
+    input_rows = []
+    for f in INPUT_FRACTIONS:
+        wmin = _min_input_width(ref, f)
+        for extra in range(INPUT_EXTRA_BITS + 1):
+            done += 1
+            bar(done)
+            if wmin is None or wmin + extra > 20:
+                continue
+            try:
+                cand = ref.with_settings({"demapper.input_width": wmin + extra, "demapper.input_fraction": f})
+                cand = cand.with_settings(_exact_llr_settings(cand))
+            except SpecError:
+                continue
+            row = {"width": wmin + extra, "fraction": f}
+            row.update(probe.loss(cand, ideal_mapper=True))
+            input_rows.append(row)
+
+    # LLR words: every fraction of each width, the best kept
+    llr_rows = []
+    if "llr" in stages:
+        for w in LLR_WIDTHS:
+            for f in range(w):
+                done += 1
+                bar(done)
+                cand = ref.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": f})
+                row = {"width": w, "fraction": f}
+                row.update(probe.loss(cand, ideal_mapper=True))
+                llr_rows.append(row)
+    bar(steps)
+
+    def best_per_width(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        best: dict[int, dict[str, Any]] = {}
+        for r in rows:
+            if r.get("loss_db") is None:
+                continue
+            cur = best.get(r["width"])
+            if cur is None or r["loss_db"] < cur["loss_db"]:
+                best[r["width"]] = r
+        return [best[w] for w in sorted(best)]
+
+    curves = {"mapper": best_per_width(mapper_rows), "input": best_per_width(input_rows),
+              "llr": best_per_width(llr_rows)}
+
+    def pick(stage: str, start_after: int | None = None) -> dict[str, Any] | None:
+        rows = curves[stage]
+        for r in rows:
+            if start_after is not None and r["width"] <= start_after:
+                continue
+            if r["loss_db"] <= share or start_after is not None:
+                return r
+        return rows[-1] if rows and start_after is None else None
+
+    chosen = {s: pick(s) for s in stages}
+
+    def combined_spec(ch: dict[str, dict[str, Any]]) -> tuple[DesignSpec, dict[str, Any]]:
+        settings: dict[str, Any] = {"mapper.width": ch["mapper"]["width"]}
+        if m.scaling == "unit-power":
+            settings["mapper.fraction"] = ch["mapper"]["fraction"]
+        settings["demapper.input_width"] = ch["input"]["width"]
+        settings["demapper.input_fraction"] = ch["input"]["fraction"]
+        cand = spec.with_settings(settings)
+        if "llr" in ch:
+            w = ch["llr"]["width"]
+            best = None
+            for f in range(w):
+                trial = cand.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": f})
+                r = probe.loss(trial, ideal_mapper=False)
+                if r["loss_db"] is not None and (best is None or r["loss_db"] < best[1]["loss_db"]):
+                    best = (f, r)
+            settings["demapper.llr_width"] = w
+            settings["demapper.llr_fraction"] = best[0]
+            return cand.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": best[0]}), \
+                {"settings": settings, **best[1]}
+        return cand, {"settings": settings, **probe.loss(cand, ideal_mapper=False)}
+
+    combo_spec, combo = combined_spec(chosen)
+    rounds = 0
+    while combo["loss_db"] > budget_db and rounds < 12:
+        rounds += 1
+        order = sorted(stages, key=lambda s: -chosen[s]["loss_db"])
+        for s in order:
+            nxt = pick(s, start_after=chosen[s]["width"])
+            if nxt is not None:
+                chosen[s] = nxt
+                break
+        else:
+            break
+        combo_spec, combo = combined_spec(chosen)
+    current = probe.loss(spec, ideal_mapper=False)
+    current["settings"] = {"mapper.width": m.width, "mapper.fraction": m.fraction,
+                           "demapper.input_width": spec.demapper.input_width,
+                           "demapper.input_fraction": spec.demapper.input_fraction,
+                           "demapper.llr_width": spec.demapper.llr_width,
+                           "demapper.llr_fraction": spec.demapper.llr_fraction}
+    full = implementation_loss(derive(combo_spec), symbols, seed, operating_point_db=op if operating_point_db is not None else None,
+                               gmi_fraction=gmi_fraction, label="check")
+    combo["loss_db_vs_exact"] = full.loss_db_vs_exact
+    combo["loss_db_vs_exact_ci95"] = full.loss_db_vs_exact_ci95
+    combo["loss_db_vs_maxlog"] = full.loss_db_vs_maxlog
+    combo["loss_db_vs_maxlog_ci95"] = full.loss_db_vs_maxlog_ci95
+    combo["within_budget"] = bool(combo["loss_db"] <= budget_db)
+    ref_settings = {"mapper": "ideal (float points)", **input_keys,
+                    "demapper.llr_width": ref.demapper.llr_width, "demapper.llr_fraction": ref.demapper.llr_fraction}
+    return {
+        "operating_point_esn0_db": op, "budget_db": budget_db, "stage_share_db": share, "symbols": symbols,
+        "seed": seed, "batches": BATCHES, "algorithm": algorithm,
+        "reference": ref_settings, "reference_gmi": st0.gmi_fixed, "slope_bits_per_db": slope,
+        "reference_loss_db_vs_exact": (st0.gmi_exact - st0.gmi_fixed) / slope,
+        "mapper": mapper_rows, "input": input_rows, "llr": llr_rows,
+        "mapper_best": curves["mapper"], "input_best": curves["input"], "llr_best": curves["llr"],
+        "chosen": {s: {"width": chosen[s]["width"], "fraction": chosen[s]["fraction"],
+                       "loss_db": chosen[s]["loss_db"]} for s in stages},
+        "recommended": combo, "current": current, "evaluations": probe.evaluations,
+        "method": ("linearized loss: (reference GMI - candidate GMI) / reference slope at the operating point; "
+                   "each stage swept with the others at reference precision; common random numbers"),
+    }
+
+
+def widths_table(result: dict[str, Any]) -> str:
+    """A plain-text table of the explorer's per-width losses and its recommendation."""
+    lines = [f"operating point Es/N0 {result['operating_point_esn0_db']:.2f} dB, budget {result['budget_db']:g} dB "
+             f"({result['stage_share_db']:.3f} dB per stage), {result['symbols']} symbols, seed {result['seed']}",
+             f"{'stage':<8} {'width':>5} {'frac':>5} {'loss dB':>9} {'95% interval':>21}"]
+    for stage in ("mapper", "input", "llr"):
+        for r in result[f"{stage}_best"]:
+            ci = r.get("loss_db_ci95") or [math.nan, math.nan]
+            frac = "-" if r["fraction"] is None else str(r["fraction"])
+            mark = " <" if result["chosen"].get(stage, {}).get("width") == r["width"] else ""
+            lines.append(f"{stage:<8} {r['width']:>5} {frac:>5} {r['loss_db']:>9.4f} "
+                         f"[{ci[0]:>8.4f}, {ci[1]:>8.4f}]{mark}")
+    rec = result["recommended"]
+    lines.append("recommended: " + ", ".join(f"{k} = {v}" for k, v in rec["settings"].items()))
+    ci = rec.get("loss_db_ci95") or [math.nan, math.nan]
+    lines.append(f"  loss {rec['loss_db']:.4f} dB [{ci[0]:.4f}, {ci[1]:.4f}] vs the reference "
+                 f"({'within' if rec['within_budget'] else 'OVER'} budget)")
+    if rec.get("loss_db_vs_exact") is not None:
+        lines.append(f"  loss vs float exact log-MAP {rec['loss_db_vs_exact']:.4f} dB, "
+                     f"vs float max-log {rec['loss_db_vs_maxlog']:.4f} dB")
+    cur = result["current"]
+    if cur.get("loss_db") is not None:
+        lines.append(f"current spec: loss {cur['loss_db']:.4f} dB vs the reference")
+    return "\n".join(lines)
