@@ -21,7 +21,7 @@ from .fixed import ROUNDING_MODES
 from .spec import ALGORITHMS, SECTIONS, DesignSpec, field_docs, parse_value
 
 #: Modules that add their own subcommand: each defines `register(subparsers) -> None`.
-COMMAND_MODULES: tuple[str, ...] = ()
+COMMAND_MODULES: tuple[str, ...] = ("qamsmith.verify", "qamsmith.analysis", "qamsmith.report")
 
 DEFAULT_EXAMPLE = "larkspur-backhaul-256"
 
@@ -142,6 +142,9 @@ def cmd_list(args: argparse.Namespace) -> int:
         shown = repr(value) if isinstance(value, str) else ("[]" if value == () else str(value).lower()
                                                             if isinstance(value, bool) else str(value))
         out.write(f"  {key:<{width}}  {doc} [default {shown}]\n")
+        if key == "constellation.table":
+            out.write(f"  {'constellation.table_file':<{width}}  a label,i,q CSV read into constellation.table "
+                      "(relative to the spec file) [no default]\n")
     out.write("\nbuilt-in examples (qamsmith generate NAME):\n")
     for name, res in examples().items():
         mark = " (default)" if name == DEFAULT_EXAMPLE else ""
