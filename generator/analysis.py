@@ -316,6 +316,7 @@ class PointStats:
     factor_exact: float | None = None
     input_noise_db: float | None = None
     input_clip_percent: float | None = None
+    reliability_code: int | None = None
 
 
 def _stderr(batches: np.ndarray | None) -> float | None:
@@ -354,15 +355,9 @@ class Chain:
         d = design.spec.demapper
         self.algorithm = d.algorithm
         self.hard = d.algorithm == "hard"
-        self.scale = None
-        if design.scale_format is not None:
-            if scale_code is None:
-                scale_code = min(1 << d.scale_fraction, design.scale_format.max_code)
-            self.scale = np.int64(scale_code)
-        self.scale_code = scale_code
-        # natural nats per LLR code at N0 = 1 (times 1/N0 later): code * llr_lsb * scale / N0
-        s_value = (float(scale_code) * design.scale_lsb) if self.scale is not None else 1.0
-        self.code_nats = 1.0 if self.hard else design.llr_lsb * s_value
+        #: reliability input: a fixed code, or None for the ideal 1/N0 estimate at each point
+        self.scale_code = scale_code if design.scale_format is not None else None
+        self.has_scale = design.scale_format is not None
         self.llr_max = 1 if self.hard else design.llr_format.max_code
         self.dense = self.llr_max <= (1 << 15)
         off = self.llr_max
@@ -425,6 +420,24 @@ class Chain:
 
     # ---- Monte-Carlo -------------------------------------------------------------------
 
+    def reliability(self, n0: float) -> int | None:
+        """Reliability code fed to the demapper at noise density n0: the fixed code, or round(2^f / N0)
+        (an ideal 1/N0 estimate in the input's format), clamped to 1 .. max code."""
+        if not self.has_scale:
+            return None
+        if self.scale_code is not None:
+            return int(self.scale_code)
+        fmt = self.design.scale_format
+        return int(min(max(round(2.0 ** fmt.fraction / n0), 1), fmt.max_code))
+
+    def natural_nats(self, n0: float) -> float:
+        """Nats per LLR code that make the codes true max-log LLRs: llr_lsb / (scale * N0)."""
+        if self.hard:
+            return 1.0
+        code = self.reliability(n0)
+        value = 1.0 if code is None else code * self.design.scale_lsb
+        return self.design.llr_lsb / (max(value, 1e-300) * n0)
+
     def run(self, esn0_db: float, symbols: int, seed: int, *, fixed: bool = True, floats: bool = True,
             keep: int = 0) -> tuple[PointStats, dict[str, np.ndarray]]:
         """Monte-Carlo at one Es/N0 (dB): `symbols` symbols in BATCHES batches, seeded, chunked.
@@ -454,6 +467,9 @@ class Chain:
         kappa = self.const.kappa
         mscale = FLOAT_BINS_PER_NAT / n0
         fixed_gain = math.sqrt(self.es_fixed)
+        rel = self.reliability(n0)
+        scale = None if rel is None else np.int64(rel)
+        st.reliability_code = rel
         for b in range(BATCHES):
             rng = np.random.Generator(np.random.PCG64(children[b]))
             left = per_batch[b]
@@ -478,7 +494,7 @@ class Chain:
                         hb = demap(design, ci, cq)
                         llr = (1 - 2 * hb).astype(np.int32)
                     else:
-                        llr = demap(design, ci, cq, None if self.scale is None else self.scale)
+                        llr = demap(design, ci, cq, scale)
                         hb = hard_decisions(design, ci, cq)
                     err_f[b] += int(np.count_nonzero(hb != txb))
                     signed = llr * np.take(self.fixed_sign, lab, axis=0)
@@ -511,7 +527,7 @@ class Chain:
             st.ber_fixed_batches = err_f / (nb * k)
             st.ber_fixed = float(err_f.sum() / total_bits)
             st.bit_errors_fixed = int(err_f.sum())
-            nat = self.code_nats / n0 if not self.hard else 1.0
+            nat = self.natural_nats(n0)
             st.gmi_fixed, st.gmi_fixed_batches, st.factor_fixed = self._gmi_batches(h_fixed, nat, nb)
             st.nats_per_code = st.factor_fixed * nat
             st.input_noise_db = 10.0 * math.log10(max(float(qn.sum()) * kappa * kappa / symbols, 1e-300))
@@ -993,3 +1009,224 @@ def widths_table(result: dict[str, Any]) -> str:
     if cur.get("loss_db") is not None:
         lines.append(f"current spec: loss {cur['loss_db']:.4f} dB vs the reference")
     return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------- the analysis document
+
+THEORY_SOURCE = ("K. Cho and D. Yoon, 'On the general BER expression of one- and two-dimensional amplitude "
+                 "modulations', IEEE Trans. Commun. 50(7), 2002 (exact, Gray square M-QAM)")
+GMI_SOURCE = ("BICM GMI (bits/symbol) with the LLR scaled by the factor that maximizes it; G. Caire, G. Taricco "
+              "and E. Biglieri, 'Bit-interleaved coded modulation', IEEE Trans. Inf. Theory 44(3), 1998")
+
+
+def _num(x: Any, digits: int = 7) -> Any:
+    """JSON-friendly number: rounded to `digits` significant digits; nan/inf -> None."""
+    if x is None:
+        return None
+    if isinstance(x, (list, tuple, np.ndarray)):
+        return [_num(v, digits) for v in x]
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    x = float(x)
+    if not math.isfinite(x):
+        return None
+    return float(f"{x:.{digits}g}")
+
+
+def _ci(full: float | None, batches: np.ndarray | None) -> list[float] | None:
+    se = _stderr(batches)
+    if full is None or se is None:
+        return None
+    return [full - T_975 * se, full + T_975 * se]
+
+
+def point_record(st: PointStats, design: Design) -> dict[str, Any]:
+    """One SNR point of analysis.json (the keys the issue names, plus confidence and diagnostics)."""
+    k = st.bits
+    ber_theory = float(ber_gray_qam(design.constellation.order, st.esn0_db)[0]) if theory_applies(design) else None
+    rec = {
+        "esn0_db": st.esn0_db, "ebn0_db": st.ebn0_db,
+        "ber_fixed": st.ber_fixed, "ber_theory": ber_theory,
+        "gmi_fixed": st.gmi_fixed, "gmi_maxlog": st.gmi_maxlog, "gmi_exact": st.gmi_exact,
+        "ber_fixed_ci95": _ci(st.ber_fixed, st.ber_fixed_batches),
+        "bit_errors_fixed": st.bit_errors_fixed,
+        # no error seen: the one-sided 95 % upper bound ~ 3 / bits (the 'rule of three')
+        "ber_fixed_upper95": (3.0 / (st.symbols * k)) if st.bit_errors_fixed == 0 else None,
+        "ber_exact": st.ber_exact, "ber_maxlog": st.ber_maxlog,
+        "gmi_fixed_ci95": _ci(st.gmi_fixed, st.gmi_fixed_batches),
+        "gmi_maxlog_ci95": _ci(st.gmi_maxlog, st.gmi_maxlog_batches),
+        "gmi_exact_ci95": _ci(st.gmi_exact, st.gmi_exact_batches),
+        "llr_factor_fixed": st.factor_fixed, "nats_per_llr_code": st.nats_per_code,
+        "llr_factor_maxlog": st.factor_maxlog,
+        "input_noise_db": st.input_noise_db, "input_clip_percent": st.input_clip_percent,
+        "reliability_code": st.reliability_code,
+        "shannon_capacity": float(shannon_capacity(st.esn0_db)),
+    }
+    return {key: _num(v) for key, v in rec.items()}
+
+
+def default_sweep(operating_point_db: float) -> list[float]:
+    """Es/N0 points (dB) when none are given: 1 dB steps from 8 dB below to 6 dB above the operating point."""
+    start = math.floor(operating_point_db) - 8
+    return [float(start + i) for i in range(15)]
+
+
+def run_analysis(spec: DesignSpec, *, esn0_db: Sequence[float] | None = None, symbols: int = DEFAULT_SYMBOLS,
+                 seed: int = DEFAULT_SEED, operating_point_db: float | None = None,
+                 gmi_fraction: float = DEFAULT_GMI_FRACTION, ber_floor: float | None = None) -> dict[str, Any]:
+    """The SNR sweep, the implementation loss and the quantization figures of one design, as analysis.json."""
+    design = derive(spec)
+    k = design.bits
+    check_symbols(symbols, k, ber_floor)
+    if operating_point_db is not None and not SNR_LIMITS_DB[0] <= operating_point_db <= SNR_LIMITS_DB[1]:
+        raise SpecError("operating_point", operating_point_db,
+                        f"an Es/N0 from {SNR_LIMITS_DB[0]:g} to {SNR_LIMITS_DB[1]:g} dB")
+    chain = Chain(design)
+    loss = implementation_loss(design, symbols, seed, operating_point_db=operating_point_db,
+                               gmi_fraction=gmi_fraction, chain=chain)
+    op = loss.operating_point_esn0_db
+    points = list(esn0_db) if esn0_db else default_sweep(op)
+    stats = sweep(design, points, symbols, seed, chain=chain)
+    evm = mapper_evm(design)
+    noise = input_noise(design)
+    n0_op = 10.0 ** (-op / 10.0)
+    d = spec.demapper
+    doc: dict[str, Any] = {
+        "design": spec.name, "order": design.constellation.order, "labeling": spec.constellation.labeling,
+        "algorithm": d.algorithm, "bits_per_symbol": k,
+        "symbols": symbols, "seed": seed, "batches": BATCHES,
+        "points": [point_record(st, design) for st in stats],
+        "evm_db": _num(evm["evm_db"]), "evm_percent": _num(evm["evm_percent"]),
+        "evm_uniform_model_db": _num(evm["evm_uniform_model_db"]), "mapper_power_db": _num(evm["mapper_power_db"]),
+        "mapper_lsb": _num(design.mapper_lsb),
+        "input_lsb": _num(noise["input_lsb"]), "input_noise_db": _num(noise["input_noise_db"]),
+        "input_noise_to_n0_db": _num(noise["input_noise_db"] - 10.0 * math.log10(n0_op)),
+        "input_headroom_db": _num(noise["input_headroom_db"]),
+        "llr_lsb": _num(design.llr_lsb),
+        "operating_point_esn0_db": _num(op), "operating_point_ebn0_db": _num(op - 10.0 * math.log10(k)),
+        "operating_point_gmi": _num(loss.gmi_target),
+        "operating_point_rule": (f"given: Es/N0 = {operating_point_db:g} dB" if operating_point_db is not None
+                                 else f"float exact GMI = {gmi_fraction:g} x log2(M)"),
+        "loss_db_vs_exact": _num(loss.loss_db_vs_exact), "loss_db_vs_exact_ci95": _num(loss.loss_db_vs_exact_ci95),
+        "loss_db_vs_maxlog": _num(loss.loss_db_vs_maxlog),
+        "loss_db_vs_maxlog_ci95": _num(loss.loss_db_vs_maxlog_ci95),
+        "ber_at_operating_point": _num(loss.ber_target),
+        "ber_loss_db_vs_exact": _num(loss.ber_loss_db_vs_exact),
+        "ber_loss_db_vs_exact_ci95": _num(loss.ber_loss_db_vs_exact_ci95),
+        "ber_loss_db_vs_maxlog": _num(loss.ber_loss_db_vs_maxlog),
+        "ber_loss_db_vs_maxlog_ci95": _num(loss.ber_loss_db_vs_maxlog_ci95),
+        "loss_note": loss.note,
+        "loss_grid": [point_record(st, design) for st in loss.grid],
+        "reliability_code": chain.scale_code,
+        "reliability_rule": (None if not chain.has_scale else "fixed code" if chain.scale_code is not None
+                             else "round(2^scale_fraction / N0) clamped to 1..max: an ideal 1/N0 estimate"),
+        "theory": THEORY_SOURCE if theory_applies(design) else "none: the labeling is not Gray-type square QAM",
+        "gmi_definition": GMI_SOURCE,
+        "method": ("AWGN, Es = mean energy of the mapper's output; common random numbers at every point; "
+                   f"{BATCHES} independent batches (95 % intervals by batch means, Student t); float LLRs "
+                   "of the ideal constellation on the same noise; loss = horizontal distance of the curves on a "
+                   "0.1 dB grid around the operating point, linearly interpolated"),
+    }
+    if ber_floor is not None:
+        doc["ber_floor"] = ber_floor
+    return doc
+
+
+# --------------------------------------------------------------------------- command line
+
+
+def load_design_source(source: str, out_root: str) -> tuple[DesignSpec, Path]:
+    """The spec of DESIGN (a generated directory, a spec TOML or a built-in example) and its directory."""
+    from .cli import load_spec      # the command line's loader (examples by name), imported when run
+
+    spec = load_spec(source)
+    path = Path(source)
+    if path.is_dir():
+        return spec, path
+    return spec, Path(out_root) / spec.name
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    """Write a file through a temporary file beside it and a rename (nothing half-written)."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    except OSError as exc:
+        raise SpecError("--json", str(path), f"a writable location ({exc.strerror})") from None
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise SpecError("--json", str(path), f"a writable location ({exc.strerror})") from None
+
+
+def to_json(doc: dict[str, Any]) -> str:
+    """Deterministic JSON (sorted keys, rounded numbers, no timestamps)."""
+    return json.dumps(_clean(doc), indent=2, sort_keys=True) + "\n"
+
+
+def _clean(x: Any) -> Any:
+    if isinstance(x, dict):
+        return {str(k): _clean(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple, np.ndarray)):
+        return [_clean(v) for v in x]
+    if isinstance(x, (float, int, np.floating, np.integer)) and not isinstance(x, bool):
+        return _num(x)
+    return x
+
+
+def add_common_arguments(p: argparse.ArgumentParser, *, symbols: int) -> None:
+    """DESIGN, --out, --symbols, --seed and the operating point, shared by `analyze` and `widths`."""
+    p.add_argument("design", metavar="DESIGN", help="a generated design directory (out/<name>/), a spec TOML "
+                   "or a built-in example name")
+    p.add_argument("--out", default="out", metavar="DIR",
+                   help="output root when DESIGN is a spec or an example (default: out)")
+    p.add_argument("--symbols", type=int, default=symbols, metavar="N",
+                   help=f"Monte-Carlo symbols per Es/N0 point (default {symbols})")
+    p.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S", help="random seed (default 1)")
+    op = p.add_mutually_exclusive_group()
+    op.add_argument("--operating-point", type=float, metavar="DB",
+                    help="Es/N0 (dB) where the loss is measured (default: where the float exact GMI reaches "
+                    "--gmi-target x log2 M)")
+    op.add_argument("--gmi-target", type=float, default=DEFAULT_GMI_FRACTION, metavar="FRACTION",
+                    help="operating point: float exact GMI at this fraction of log2 M (default 0.9)")
+
+
+def _check_seed(seed: int) -> None:
+    if seed < 0 or seed >= 2 ** 63:
+        raise SpecError("--seed", seed, "an integer from 0 to 2^63 - 1")
+
+
+def cmd_widths(args: argparse.Namespace) -> int:
+    spec, target = load_design_source(args.design, args.out)
+    _check_seed(args.seed)
+    if not 0 < args.gmi_target < 1:
+        raise SpecError("--gmi-target", args.gmi_target, "a fraction of log2(M) between 0 and 1")
+    path = Path(args.json) if args.json else target / "widths.json"
+    if path.exists() and path.is_dir():
+        raise SpecError("--json", str(path), "a file path (a directory is in the way)")
+    result = explore_widths(spec, budget_db=args.budget, symbols=args.symbols, seed=args.seed,
+                            operating_point_db=args.operating_point, gmi_fraction=args.gmi_target)
+    result["design"] = spec.name
+    atomic_write_text(path, to_json(result))
+    print(widths_table(result))
+    print(f"qamsmith: wrote {path}")
+    return 0
+
+
+def register(subparsers: Any) -> None:
+    """Add `qamsmith widths` (the width explorer)."""
+    p = subparsers.add_parser(
+        "widths", help="explore mapper, demapper input and LLR widths against a loss budget",
+        description="Sweep the mapper width, the demapper input width and fraction and the LLR width and "
+                    "fraction at the operating point; recommend the smallest widths (and the LLR fraction that "
+                    "maximizes GMI) within the loss budget. Prints a table and writes JSON.")
+    add_common_arguments(p, symbols=DEFAULT_EXPLORE_SYMBOLS)
+    p.add_argument("--budget", type=float, default=DEFAULT_BUDGET_DB, metavar="DB",
+                   help="implementation-loss budget in dB (default 0.1)")
+    p.add_argument("--json", metavar="FILE", help="where to write the table (default: <design dir>/widths.json)")
+    p.set_defaults(func=cmd_widths)
