@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from dataclasses import fields
 from importlib import resources
@@ -242,6 +243,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SpecError as exc:
         print(f"qamsmith: error: {exc}", file=sys.stderr)
         return 2
+    except BrokenPipeError:                    # e.g. `qamsmith list | head`: not an error of ours
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":

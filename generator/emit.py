@@ -290,11 +290,9 @@ def demapper_input_words(design: Design, i: np.ndarray, q: np.ndarray, scale: np
 
 def run_block(design: Design, block: str, words: Sequence[int]) -> list[int]:
     """The model on input words of `block` ('mapper' or 'demapper'): expected output words."""
-    pack = packing(design)
     if block == "mapper":
-        labels = np.asarray(words, dtype=np.int64)
-        return mapper_words(design, labels)
-    fields = unpack_words(words, pack["demapper_input"]["fields"])
+        return mapper_words(design, np.asarray(words, dtype=np.int64))
+    fields = unpack_words(words, packing(design)["demapper_input"]["fields"])
     return demapper_words(design, fields["i"], fields["q"], fields.get("s"))
 
 
@@ -388,7 +386,7 @@ def demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndar
         n_sweep = min(sfmt.max_code + 1, MAX_SWEEP)
         parts_i.append(rng.integers(lo, hi, n_sweep))
         parts_q.append(rng.integers(lo, hi, n_sweep))
-        notes.append(f"every reliability code with random I, Q" if n_sweep == sfmt.max_code + 1
+        notes.append("every reliability code with random I, Q" if n_sweep == sfmt.max_code + 1
                      else f"{n_sweep} reliability codes")
     parts_i.append(rng.integers(lo, hi, RANDOM_VECTORS))
     parts_q.append(rng.integers(lo, hi, RANDOM_VECTORS))

@@ -4,6 +4,7 @@ deterministic output; the committed out/ designs regenerate byte for byte."""
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import pytest
@@ -49,7 +50,6 @@ def test_bad_input_exits_2_and_writes_nothing(cli, tmp_path: Path, argv: list[st
     r = cli("generate", *argv, "--out", str(tmp_path / "out"))
     assert r.code == 2 and r.out == ""
     assert len(r.err.splitlines()) == 1
-    import re
     assert re.match(r"qamsmith: error: " + pattern, r.err), r.err
     assert not (tmp_path / "out").exists()
 
