@@ -635,9 +635,9 @@ class LossResult:
     note: str = ""
 
 
-def _grid_steps(op: float) -> list[float]:
-    """Es/N0 grid around the operating point: 0.1 dB steps near it, coarser further right (dB)."""
-    pts = [op + 0.1 * i for i in range(-3, 11)]
+def _grid_right(op: float) -> list[float]:
+    """Es/N0 points right of the operating point: 0.1 dB steps to +1 dB, then coarser up to +10 dB."""
+    pts = [op + 0.1 * i for i in range(1, 11)]
     pts += [op + 1.0 + 0.25 * i for i in range(1, 9)]
     pts += [op + 3.0 + 0.5 * i for i in range(1, 15)]
     return [round(p, 6) for p in pts]
@@ -658,7 +658,9 @@ def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: in
 
     The curves are measured on a grid around the operating point (0.1 dB steps where the fixed
     curve usually crosses) with common random numbers and linearly interpolated; the 95 %
-    interval is the batch-means interval of the same crossing computed per batch.
+    interval is the batch-means interval of the same crossing computed per batch. The grid
+    grows to the left until every batch starts below the target and to the right until every
+    batch of the fixed chain has crossed it (at most 10 dB).
     """
     chain = chain or Chain(design)
     k = chain.k
@@ -670,20 +672,41 @@ def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: in
     else:
         op0 = float(operating_point_db)
         target = None
-    grid_x = _grid_steps(op0)
-    bar = _progress(len(grid_x), label)
-    grid: list[PointStats] = []
-    for n, s in enumerate(grid_x):
-        st = chain.run(s, symbols, seed)[0]
-        grid.append(st)
-        bar(n + 1)
-        if target is None and n == 3:
-            target = st.gmi_exact
-        if n >= 5 and target is not None and st.gmi_fixed >= target and st.gmi_maxlog >= target \
-                and np.all(st.gmi_fixed_batches >= target) and np.all(st.gmi_maxlog_batches >= target) \
-                and st.ber_fixed <= grid[3].ber_exact and st.ber_fixed <= grid[3].ber_maxlog:
-            bar(len(grid_x))
+    bar = _progress(24, label)
+    points: dict[float, PointStats] = {}
+
+    def at(s: float) -> PointStats:
+        s = round(s, 6)
+        if s not in points:
+            points[s] = chain.run(s, symbols, seed)[0]
+            bar(min(len(points), 23))
+        return points[s]
+
+    centre = at(op0)
+    if target is None:
+        target = centre.gmi_exact
+    ber0 = min(centre.ber_exact, centre.ber_maxlog)
+
+    def below(st: PointStats) -> bool:
+        gmi_ok = all(np.all(getattr(st, f"gmi_{c}_batches") < target) for c in ("exact", "maxlog", "fixed"))
+        ber_ok = all(np.all(getattr(st, f"ber_{c}_batches") > ber0) for c in ("exact", "maxlog", "fixed"))
+        return gmi_ok and ber_ok
+
+    def above(st: PointStats) -> bool:
+        return bool(np.all(st.gmi_fixed_batches >= target) and np.all(st.gmi_maxlog_batches >= target)
+                    and np.all(st.gmi_exact_batches >= target) and np.all(st.ber_fixed_batches < ber0 * 0.8))
+
+    left = op0
+    for i in range(1, 31):
+        left = op0 - 0.1 * i
+        if i >= 3 and below(at(left)):
             break
+    for s in _grid_right(op0):
+        if above(at(s)):
+            break
+    bar(24)
+    grid = [points[s] for s in sorted(points)]
+    grid_x = sorted(points)
     x = np.asarray([g.esn0_db for g in grid])
 
     def cross(attr: str, tgt, b: int | None = None, rising: bool = True) -> float:
