@@ -44,6 +44,8 @@ from .spec import DesignSpec
 BATCHES = 16
 #: largest chunk of symbols processed at once (bounded memory: a few tens of MB)
 CHUNK = 1 << 16
+#: float LLRs are computed in blocks of this many symbols (their (levels x N) arrays stay in cache)
+FLOAT_BLOCK = 1 << 14
 #: float LLR histograms: bins per natural-log unit and the clipping magnitude (nats)
 FLOAT_BINS_PER_NAT = 64
 FLOAT_LLR_CLIP = 512.0
@@ -402,17 +404,19 @@ class Chain:
             dn = np.take(t["comp"], idx, axis=1)                                          # (m, N)
             metric = 4.0 * kappa * kappa * dn * (dn - e)
             metric *= np.take(t["neg"], n_hat, axis=1)
+            # exact: log(sum_{b=0} w / sum_{b=1} w), w = exp(-(d2 - d2_min) / N0). The exponent is
+            # formed in float64, exp() and the sums run in float32 (SIMD; LLR error < 1e-5 nats);
+            # exponents are clamped at -80 (w >= 1.8e-35, normal in float32), so |LLR| is capped
+            # near 80 nats, where a bit's GMI term is below 1e-34.
             d2 = comp[None, :] - t["lev"][:, None]                                         # (L, N)
             d2 *= d2
             d2 -= d2.min(axis=0)
             d2 *= -1.0 / n0
-            np.maximum(d2, -700.0, out=d2)          # keep exp() out of the slow subnormal range
-            np.exp(d2, out=d2)
+            np.maximum(d2, -80.0, out=d2)
+            w = np.exp(d2.astype(np.float32))
             for j, col in enumerate(t["cols"]):
-                s0 = _row_sum(d2, t["rows0"][j])
-                s1 = _row_sum(d2, t["rows1"][j])
-                np.maximum(s0, 1e-300, out=s0)
-                np.maximum(s1, 1e-300, out=s1)
+                s0 = _row_sum(w, t["rows0"][j])
+                s1 = _row_sum(w, t["rows1"][j])
                 s0 /= s1
                 mx[col] = metric[j]
                 ex[col] = np.log(s0)
@@ -507,20 +511,9 @@ class Chain:
                         kept_n += take
                 if floats:
                     y0 = np.take(self.tx_ideal, lab) + noise
-                    mx, ex = self.float_llrs(y0, n0)
-                    sg = np.take(self.sign, lab, axis=1)
-                    mx *= sg
-                    ex *= sg
-                    err_m[b] += int(np.count_nonzero(mx < 0))
-                    err_x[b] += int(np.count_nonzero(ex < 0))
-                    mx *= mscale
-                    ex *= FLOAT_BINS_PER_NAT
-                    for arr, h in ((mx, h_max), (ex, h_ex)):
-                        np.clip(arr, -foff, foff, out=arr)
-                        np.rint(arr, out=arr)
-                        idx = arr.astype(np.int64)
-                        idx += foff
-                        h.add(b, idx)
+                    for lo in range(0, n, FLOAT_BLOCK):          # cache-sized blocks of the chunk
+                        sl = slice(lo, lo + FLOAT_BLOCK)
+                        self._float_block(b, y0[sl], lab[sl], n0, mscale, foff, h_max, h_ex, err_m, err_x)
         nb = np.asarray(per_batch, dtype=np.float64)
         total_bits = symbols * k
         if fixed:
@@ -542,6 +535,24 @@ class Chain:
             st.gmi_exact, st.gmi_exact_batches, st.factor_exact = self._gmi_batches(h_ex, unit, nb, optimize=False)
         out = {key: np.concatenate(v) if v else np.zeros(0, np.int64) for key, v in kept.items()}
         return st, out
+
+    def _float_block(self, b: int, y0: np.ndarray, lab: np.ndarray, n0: float, mscale: float, foff: int,
+                     h_max: _Hist, h_ex: _Hist, err_m: np.ndarray, err_x: np.ndarray) -> None:
+        """Float max-log and exact LLRs of one block: errors of their signs and histograms of s * LLR."""
+        mx, ex = self.float_llrs(y0, n0)
+        sg = np.take(self.sign, lab, axis=1)
+        mx *= sg
+        ex *= sg
+        err_m[b] += int(np.count_nonzero(mx < 0))
+        err_x[b] += int(np.count_nonzero(ex < 0))
+        mx *= mscale
+        ex *= FLOAT_BINS_PER_NAT
+        for arr, h in ((mx, h_max), (ex, h_ex)):
+            np.clip(arr, -foff, foff, out=arr)
+            np.rint(arr, out=arr)
+            idx = arr.astype(np.int64)
+            idx += foff
+            h.add(b, idx)
 
     def _gmi_batches(self, h: _Hist, natural: float, nb: np.ndarray, optimize: bool = True):
         values, counts = h.arrays()
