@@ -1240,7 +1240,7 @@ def cmd_widths(args: argparse.Namespace) -> int:
     _check_seed(args.seed)
     if not 0 < args.gmi_target < 1:
         raise SpecError("--gmi-target", args.gmi_target, "a fraction of log2(M) between 0 and 1")
-    path = Path(args.json) if args.json else target / "widths.json"
+    path = Path(args.json) if args.json else target / "report" / "widths.json"
     if path.exists() and path.is_dir():
         raise SpecError("--json", str(path), "a file path (a directory is in the way)")
     result = explore_widths(spec, budget_db=args.budget, symbols=args.symbols, seed=args.seed,
@@ -1262,5 +1262,6 @@ def register(subparsers: Any) -> None:
     add_common_arguments(p, symbols=DEFAULT_EXPLORE_SYMBOLS)
     p.add_argument("--budget", type=float, default=DEFAULT_BUDGET_DB, metavar="DB",
                    help="implementation-loss budget in dB (default 0.1)")
-    p.add_argument("--json", metavar="FILE", help="where to write the table (default: <design dir>/widths.json)")
+    p.add_argument("--json", metavar="FILE",
+                   help="where to write the table (default: <design dir>/report/widths.json)")
     p.set_defaults(func=cmd_widths)

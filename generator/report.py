@@ -300,7 +300,9 @@ def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], width
           f"against the same algorithm with wide words (reference: ideal mapper, input "
           f"{widths['reference']['demapper.input_width']}-bit with fraction "
           f"{widths['reference']['demapper.input_fraction']}, exact LLR words), linearized at the operating point; "
-          f"the reference itself is {widths['reference_loss_db_vs_exact']:.4f} dB from float exact log-MAP.\n")
+          f"the reference itself is {widths['reference_loss_db_vs_exact']:.4f} dB from float exact log-MAP. "
+          "The mapper row counts quantization only: keep whatever headroom the transmit filter or DAC needs "
+          "on top of the width shown.\n")
         w("![loss against width](loss_vs_width.png)\n")
         w("| stage | width | fraction | loss dB | 95 % interval |\n| --- | ---: | ---: | ---: | --- |")
         for s in ("mapper", "input", "llr"):
