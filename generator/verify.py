@@ -95,8 +95,12 @@ def _read_hex(path: Path) -> list[int]:
 
 
 def prepare_stimulus(design: model.Design, design_dir: Path, build: Path, n_random: int, seed: int,
-                     use_vectors: bool = True) -> dict[str, Any]:
-    """Hex files of vectors/ + random words per block in `build`; returns paths and counts."""
+                     use_vectors: bool = True, vector_limit: int | None = None) -> dict[str, Any]:
+    """Hex files of vectors/ + random words per block in `build`; returns paths and counts.
+
+    `vector_limit` keeps an evenly strided subset of the demapper's vectors/ words (for the
+    2-D search of many points, whose simulation is slow); None keeps every word.
+    """
     pack = emit.packing(design)
     widths = {"map": (pack["mapper_input"]["width"], pack["mapper_output"]["width"]),
               "dem": (pack["demapper_input"]["width"], pack["demapper_output"]["width"])}
@@ -108,6 +112,10 @@ def prepare_stimulus(design: model.Design, design_dir: Path, build: Path, n_rand
         if use_vectors:
             words_in += _read_hex(design_dir / "vectors" / files[blk][0])
             words_out += _read_hex(design_dir / "vectors" / files[blk][1])
+            if blk == "dem" and vector_limit is not None and len(words_in) > vector_limit:
+                keep = np.unique(np.linspace(0, len(words_in) - 1, vector_limit).round().astype(int))
+                words_in = [words_in[j] for j in keep]
+                words_out = [words_out[j] for j in keep]
         words_in += rnd[blk][0]
         words_out += rnd[blk][1]
         if len(words_in) != len(words_out):
@@ -151,13 +159,14 @@ def _plusargs(info: dict[str, Any], seed: int, in_pct: int, out_pct: int) -> lis
 
 
 def run_direct(design_dir: str | Path, *, n_random: int = 0, seed: int = 1, in_pct: int = 80, out_pct: int = 80,
-               build_dir: str | Path | None = None, use_vectors: bool = True) -> Result:
+               build_dir: str | Path | None = None, use_vectors: bool = True,
+               vector_limit: int | None = None) -> Result:
     """The harness on plain iverilog + vvp (no Python per clock): the fast path of the test matrix."""
     design_dir = Path(design_dir).resolve()
     design = load_design(design_dir)
     t0 = time.perf_counter()
     with _build_dir(build_dir) as build:
-        info = prepare_stimulus(design, design_dir, build, n_random, seed, use_vectors)
+        info = prepare_stimulus(design, design_dir, build, n_random, seed, use_vectors, vector_limit)
         top = testbench.harness_module(design)
         depth = _depth(max(info["map"]["count"], info["dem"]["count"]))
         params = {"DEPTH": str(depth), **_rom_parameters(design, design_dir)}
