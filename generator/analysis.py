@@ -354,6 +354,8 @@ class Chain:
         #: mean energy of the fixed mapper's output (normalized units): Es/N0 refers to what is sent,
         #: so a mapper whose rounding raises its power gains nothing from it
         self.es_fixed = float(np.mean(np.abs(self.tx_fixed) ** 2))
+        #: fixed mapper output per component in amplitude units (the demapper input's scale)
+        self.tx_amp = (self.tx_fixed.real / const.kappa, self.tx_fixed.imag / const.kappa)
         d = design.spec.demapper
         self.algorithm = d.algorithm
         self.hard = d.algorithm == "hard"
@@ -471,6 +473,8 @@ class Chain:
         kappa = self.const.kappa
         mscale = FLOAT_BINS_PER_NAT / n0
         fixed_gain = math.sqrt(self.es_fixed)
+        amp_noise = fixed_gain / kappa          # noise (already times sigma) in amplitude units
+        lsb_amp = 2.0 ** -ifmt.fraction
         rel = self.reliability(n0)
         scale = None if rel is None else np.int64(rel)
         st.reliability_code = rel
@@ -483,16 +487,19 @@ class Chain:
                 lab = rng.integers(0, self.M, size=n)
                 z = rng.standard_normal((2, n))
                 z *= sigma
-                noise = z[0] + 1j * z[1]
                 if fixed:
-                    y = np.take(self.tx_fixed, lab) + noise * fixed_gain
-                    amp = y / kappa
-                    ci = quantize(amp.real, ifmt, "half-even")
-                    cq = quantize(amp.imag, ifmt, "half-even")
-                    lsb_amp = 2.0 ** -ifmt.fraction
-                    qn[b] += float(np.sum((ci * lsb_amp - amp.real) ** 2) + np.sum((cq * lsb_amp - amp.imag) ** 2))
-                    clip[b] += int(np.count_nonzero((ci == ifmt.max_code) | (ci == ifmt.min_code))
-                                   + np.count_nonzero((cq == ifmt.max_code) | (cq == ifmt.min_code)))
+                    # received samples in amplitude units (the demapper's AGC scale), per component
+                    codes = []
+                    for comp in (0, 1):
+                        amp = np.take(self.tx_amp[comp], lab)
+                        amp += z[comp] * amp_noise
+                        c = quantize(amp, ifmt, "half-even")
+                        r = c * lsb_amp
+                        r -= amp
+                        qn[b] += float(np.dot(r, r))
+                        clip[b] += int(np.count_nonzero(c == ifmt.max_code) + np.count_nonzero(c == ifmt.min_code))
+                        codes.append(c)
+                    ci, cq = codes
                     txb = np.take(self.txbits, lab, axis=0)
                     if self.hard:
                         hb = demap(design, ci, cq)
@@ -502,7 +509,9 @@ class Chain:
                         hb = hard_decisions(design, ci, cq)
                     err_f[b] += int(np.count_nonzero(hb != txb))
                     signed = llr * np.take(self.fixed_sign, lab, axis=0)
-                    h_fixed.add(b, signed + self.fixed_offset if self.dense else signed)
+                    if self.dense:
+                        signed += self.fixed_offset
+                    h_fixed.add(b, signed)
                     if keep and kept_n < keep:
                         take = min(keep - kept_n, n)
                         kept["labels"].append(lab[:take])
@@ -510,7 +519,7 @@ class Chain:
                         kept["q"].append(cq[:take])
                         kept_n += take
                 if floats:
-                    y0 = np.take(self.tx_ideal, lab) + noise
+                    y0 = np.take(self.tx_ideal, lab) + (z[0] + 1j * z[1])
                     for lo in range(0, n, FLOAT_BLOCK):          # cache-sized blocks of the chunk
                         sl = slice(lo, lo + FLOAT_BLOCK)
                         self._float_block(b, y0[sl], lab[sl], n0, mscale, foff, h_max, h_ex, err_m, err_x)
