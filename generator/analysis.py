@@ -1207,6 +1207,17 @@ def atomic_write_text(path: Path, text: str) -> None:
         raise SpecError("--json", str(path), f"a writable location ({exc.strerror})") from None
 
 
+def atomic_write_probe(path: Path) -> None:
+    """Refuse (SpecError) a path whose directory cannot take a new file; leaves nothing behind."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+        os.close(fd)
+        os.unlink(tmp)
+    except OSError as exc:
+        raise SpecError("--json", str(path), f"a writable location ({exc.strerror})") from None
+
+
 def to_json(doc: dict[str, Any]) -> str:
     """Deterministic JSON (sorted keys, rounded numbers, no timestamps)."""
     return json.dumps(_clean(doc), indent=2, sort_keys=True) + "\n"
@@ -1252,6 +1263,7 @@ def cmd_widths(args: argparse.Namespace) -> int:
     path = Path(args.json) if args.json else target / "report" / "widths.json"
     if path.exists() and path.is_dir():
         raise SpecError("--json", str(path), "a file path (a directory is in the way)")
+    atomic_write_probe(path)                 # fail before the long computation, not after it
     result = explore_widths(spec, budget_db=args.budget, symbols=args.symbols, seed=args.seed,
                             operating_point_db=args.operating_point, gmi_fraction=args.gmi_target)
     result["design"] = spec.name

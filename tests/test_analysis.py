@@ -355,3 +355,20 @@ def test_width_explorer_recommends_within_budget() -> None:
     assert "recommended:" in text and "llr" in text
     with pytest.raises(SpecError, match="budget_db"):
         an.explore_widths(_spec(4), budget_db=0.0)
+
+
+def test_progress_bar_only_on_a_terminal(monkeypatch: pytest.MonkeyPatch) -> None:
+    import io
+    import sys
+
+    class Tty(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    for stream, shown in ((Tty(), True), (io.StringIO(), False)):
+        monkeypatch.setattr(sys, "stderr", stream)
+        bar = an._progress(3, "sweep")
+        for n in (1, 2, 3):
+            bar(n)
+        assert ("sweep [" in stream.getvalue() and "3/3" in stream.getvalue()) is shown
+        assert (stream.getvalue() == "") is not shown

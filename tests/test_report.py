@@ -66,6 +66,7 @@ def test_analyze_a_generated_directory_with_ebn0(cli, tmp_path: Path) -> None:
     design = tmp_path / "larkspur-spur-16"
     res = cli("analyze", str(design), "--ebn0", "4,8", "--no-widths", "--symbols", "2048")
     assert res.code == 0, res.err
+    assert res.err == ""                       # no progress bar when stderr is not a terminal
     doc = json.loads((design / "report" / "analysis.json").read_text(encoding="utf-8"))
     assert [p["ebn0_db"] for p in doc["points"]] == [4.0, 8.0]
     assert not (design / "report" / "widths.json").exists()
@@ -120,3 +121,6 @@ def test_widths_command(cli, tmp_path: Path) -> None:
     bad = cli("widths", "larkspur-telemetry-qpsk", "--budget", "-1", "--json", str(tmp_path / "x.json"))
     assert bad.code == 2 and "budget_db = -1.0" in bad.err
     assert not (tmp_path / "x.json").exists()
+    (tmp_path / "file").write_text("in the way\n")
+    blocked = cli("widths", "larkspur-telemetry-qpsk", "--json", str(tmp_path / "file" / "w.json"))
+    assert blocked.code == 2 and "a writable location" in blocked.err
