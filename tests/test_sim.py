@@ -115,7 +115,8 @@ def _expect_refusal(order: int, labeling: str, alg: str) -> str | None:
     """The refusals the spec layer must give (None: the case must simulate)."""
     if labeling == "table" and order > 256:
         return r"constellation\.table = .*not a product.*up to 256 points"
-    if alg == "folded" and (labeling == "table" and order > 2 or labeling == "natural" and order > 4):
+    if alg == "folded" and (labeling == "table" and order > 2 or labeling == "natural" and order > 4
+                            or labeling == "3gpp-nr" and order == 2):  # 3GPP BPSK: one bit on both axes
         return r"demapper\.algorithm = 'folded'.*Gray-type"
     return None
 
@@ -155,9 +156,9 @@ def test_bench_catches_a_wrong_rtl_constant(tmp_path: Path) -> None:
     d = tmp_path / spec.name
     rtl_path = next((d / "rtl").glob("*_demapper.v"))
     text = rtl_path.read_text()
-    old = "dn_i1 = 4'sd2;"
+    old = "competitor_i1 = 4'sd2;"
     assert old in text
-    rtl_path.write_text(text.replace(old, "dn_i1 = 4'sd3;", 1))
+    rtl_path.write_text(text.replace(old, "competitor_i1 = 4'sd3;", 1))
     res = verify.run_direct(d, n_random=0)
     assert res.mismatches > 0
 
