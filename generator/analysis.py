@@ -392,7 +392,7 @@ class Chain:
         """(max-log metric in normalized units, exact LLR in nats), both (k, N), of normalized samples."""
         N = y.size
         if not self.per_axis:
-            return llr_maxlog(self.const, y).T.copy(), llr_exact(self.const, y, n0).T.copy()
+            return self._float_llrs_2d(y, n0)
         kappa = self.const.kappa
         mx = np.empty((self.k, N))
         ex = np.empty((self.k, N))
@@ -422,6 +422,32 @@ class Chain:
                 s0 /= s1
                 mx[col] = metric[j]
                 ex[col] = np.log(s0)
+        return mx, ex
+
+    def _float_llrs_2d(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
+        """Float LLRs over every point (no per-axis structure), (k, N): the same method in 2-D."""
+        pts = self.tx_ideal
+        d2 = y.real[None, :] - pts.real[:, None]                                         # (M, N)
+        d2 *= d2
+        dq = y.imag[None, :] - pts.imag[:, None]
+        dq *= dq
+        d2 += dq
+        k = self.k
+        mx = np.empty((k, y.size))
+        ex = np.empty((k, y.size))
+        for j in range(k):
+            one = self.txbits[:, j].astype(bool)
+            mx[j] = d2[one].min(axis=0) - d2[~one].min(axis=0)
+        d2 -= d2.min(axis=0)
+        d2 *= -1.0 / n0
+        np.maximum(d2, -80.0, out=d2)
+        w = np.exp(d2.astype(np.float32))
+        for j in range(k):
+            rows1 = np.flatnonzero(self.txbits[:, j])
+            rows0 = np.flatnonzero(self.txbits[:, j] == 0)
+            s0 = _row_sum(w, rows0)
+            s0 /= _row_sum(w, rows1)
+            ex[j] = np.log(s0)
         return mx, ex
 
     # ---- Monte-Carlo -------------------------------------------------------------------

@@ -101,6 +101,22 @@ def test_fast_float_llrs_equal_the_model(order: int, labeling: str) -> None:
         assert np.all(np.sign(ex.T[~ok]) == np.sign(ref[~ok])) and np.all(np.abs(ex.T[~ok]) > 60)
 
 
+@pytest.mark.parametrize("example", ["larkspur-spur-16"])
+def test_fast_float_llrs_2d_equal_the_model(repo, example: str) -> None:
+    # a table labeling that is not a product: the engine's 2-D float LLRs against the model's references
+    design = derive(DesignSpec.from_toml(repo / "generator" / "examples" / f"{example}.toml"))
+    chain = an.Chain(design)
+    assert not chain.per_axis
+    rng = np.random.default_rng(5)
+    y = (rng.standard_normal(3000) + 1j * rng.standard_normal(3000)) * 0.9
+    for n0 in (0.05, 0.5):
+        mx, ex = chain.float_llrs(y, n0)
+        assert np.allclose(mx.T, model.llr_maxlog(design, y), atol=1e-12)
+        ref = model.llr_exact(design, y, n0)
+        ok = np.abs(ref) < 60
+        assert np.allclose(ex.T[ok], ref[ok], rtol=0, atol=1e-5)
+
+
 # --------------------------------------------------------------------------- BER
 
 
