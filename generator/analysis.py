@@ -17,6 +17,12 @@ Taricco and Biglieri, IEEE Trans. Inf. Theory 44(3), 1998) where LLRs of arbitra
 decoder's input scaling would apply); the implementation loss in dB of Es/N0 at an operating
 point; the mapper's quantization EVM. Confidence comes from batch means over `BATCHES`
 independent batches of symbols.
+
+Conventions: Es is the mean energy of the mapper's actual output (unit power for the ideal
+points); a reliability input, when the design has one, is driven with round(2^f / N0), an ideal
+1/N0 estimate. GMIs come from histograms of s * LLR (integer codes exactly; float LLRs in bins of
+1/64 nat), so the scalar-factor search is cheap. Float exact LLRs are computed on every symbol,
+exp() and the level sums in float32 (error < 1e-5 nats), magnitudes capped near 80 nats.
 """
 
 from __future__ import annotations
@@ -28,7 +34,7 @@ import os
 import re
 import sys
 import tempfile
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
@@ -37,7 +43,7 @@ import numpy as np
 from .constellation import label_bits
 from .errors import SpecError
 from .fixed import quantize
-from .model import Design, demap, derive, hard_decisions, llr_exact, llr_maxlog
+from .model import Design, demap, derive, hard_decisions
 from .spec import DesignSpec
 
 #: independent batches for the batch-means confidence intervals
@@ -1312,3 +1318,8 @@ def register(subparsers: Any) -> None:
     p.add_argument("--json", metavar="FILE",
                    help="where to write the table (default: <design dir>/report/widths.json)")
     p.set_defaults(func=cmd_widths)
+
+
+__all__ = ["BATCHES", "Chain", "LossResult", "PointStats", "ber_gray_qam", "best_scale", "check_symbols",
+           "esn0_from_ebn0", "explore_widths", "gmi_direct", "implementation_loss", "input_noise", "mapper_evm",
+           "parse_snr", "register", "run_analysis", "shannon_capacity", "sweep", "to_json", "widths_table"]

@@ -8,7 +8,6 @@ an error leaves the previous report (or nothing) behind, never half a report.
 from __future__ import annotations
 
 import argparse
-import math
 import os
 import shutil
 import tempfile
@@ -19,7 +18,6 @@ import numpy as np
 
 from . import __version__
 from . import analysis as an
-from .constellation import label_bits
 from .errors import SpecError
 from .model import Design, demap, derive
 from .spec import DesignSpec
@@ -457,3 +455,6 @@ def register(subparsers: Any) -> None:
                    help=f"symbols per width candidate (default {an.DEFAULT_EXPLORE_SYMBOLS})")
     p.add_argument("--no-widths", dest="widths", action="store_false", help="skip the width table")
     p.set_defaults(func=cmd_analyze)
+
+
+__all__ = ["PLOTS", "register", "report_markdown", "write_report"]
