@@ -106,270 +106,300 @@ module lvt_bh256_demapper (
 
   // ---------------------------------------------------------------- step 2: metric
   // I axis: label of the decided level gives each LLR's sign
-  reg  [3:0] lab_i;
-  always @* begin
-    lab_i = 4'd0;
-    case (n_i_s0_reg)
-      4'd0: lab_i = 4'd15;
-      4'd1: lab_i = 4'd14;
-      4'd2: lab_i = 4'd12;
-      4'd3: lab_i = 4'd13;
-      4'd4: lab_i = 4'd9;
-      4'd5: lab_i = 4'd8;
-      4'd6: lab_i = 4'd10;
-      4'd7: lab_i = 4'd11;
-      4'd8: lab_i = 4'd3;
-      4'd9: lab_i = 4'd2;
-      4'd10: lab_i = 4'd0;
-      4'd11: lab_i = 4'd1;
-      4'd12: lab_i = 4'd5;
-      4'd13: lab_i = 4'd4;
-      4'd14: lab_i = 4'd6;
-      4'd15: lab_i = 4'd7;
-    endcase
-  end
+  function [3:0] label_i;
+    input [3:0] n;
+    begin
+      label_i = 4'd0;
+      case (n)
+        4'd0: label_i = 4'd15;
+        4'd1: label_i = 4'd14;
+        4'd2: label_i = 4'd12;
+        4'd3: label_i = 4'd13;
+        4'd4: label_i = 4'd9;
+        4'd5: label_i = 4'd8;
+        4'd6: label_i = 4'd10;
+        4'd7: label_i = 4'd11;
+        4'd8: label_i = 4'd3;
+        4'd9: label_i = 4'd2;
+        4'd10: label_i = 4'd0;
+        4'd11: label_i = 4'd1;
+        4'd12: label_i = 4'd5;
+        4'd13: label_i = 4'd4;
+        4'd14: label_i = 4'd6;
+        4'd15: label_i = 4'd7;
+      endcase
+    end
+  endfunction
+  wire [3:0] lab_i = label_i(n_i_s0_reg);
   // axis bit 0 (label bit b0): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_i0;
-  always @* begin
-    dn_i0 = 5'd0;
-    case (n_i_s0_reg)
-      4'd0: dn_i0 = 5'sd8;
-      4'd1: dn_i0 = 5'sd7;
-      4'd2: dn_i0 = 5'sd6;
-      4'd3: dn_i0 = 5'sd5;
-      4'd4: dn_i0 = 5'sd4;
-      4'd5: dn_i0 = 5'sd3;
-      4'd6: dn_i0 = 5'sd2;
-      4'd7: dn_i0 = 5'sd1;
-      4'd8: dn_i0 = -5'sd1;
-      4'd9: dn_i0 = -5'sd2;
-      4'd10: dn_i0 = -5'sd3;
-      4'd11: dn_i0 = -5'sd4;
-      4'd12: dn_i0 = -5'sd5;
-      4'd13: dn_i0 = -5'sd6;
-      4'd14: dn_i0 = -5'sd7;
-      4'd15: dn_i0 = -5'sd8;
-    endcase
-  end
+  function [4:0] competitor_i0;
+    input [3:0] key;
+    begin
+      competitor_i0 = 5'd0;
+      case (key)
+        4'd0: competitor_i0 = 5'sd8;
+        4'd1: competitor_i0 = 5'sd7;
+        4'd2: competitor_i0 = 5'sd6;
+        4'd3: competitor_i0 = 5'sd5;
+        4'd4: competitor_i0 = 5'sd4;
+        4'd5: competitor_i0 = 5'sd3;
+        4'd6: competitor_i0 = 5'sd2;
+        4'd7: competitor_i0 = 5'sd1;
+        4'd8: competitor_i0 = -5'sd1;
+        4'd9: competitor_i0 = -5'sd2;
+        4'd10: competitor_i0 = -5'sd3;
+        4'd11: competitor_i0 = -5'sd4;
+        4'd12: competitor_i0 = -5'sd5;
+        4'd13: competitor_i0 = -5'sd6;
+        4'd14: competitor_i0 = -5'sd7;
+        4'd15: competitor_i0 = -5'sd8;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_i0 = competitor_i0(n_i_s0_reg);
   wire [12:0] tfull_i0 = { {{2{dn_i0[4]}}, dn_i0}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
   wire [11:0] t_i0 = tfull_i0[11:0];
   wire [14:0] r_i0 = $signed({{10{dn_i0[4]}}, dn_i0}) * $signed({{3{t_i0[11]}}, t_i0});
   wire [13:0] mag_i0_1_next = r_i0[13:0];
   wire neg_i0_1_next = lab_i[3];
   // axis bit 1 (label bit b2): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_i1;
-  always @* begin
-    dn_i1 = 5'd0;
-    case (n_i_s0_reg)
-      4'd0: dn_i1 = 5'sd4;
-      4'd1: dn_i1 = 5'sd3;
-      4'd2: dn_i1 = 5'sd2;
-      4'd3: dn_i1 = 5'sd1;
-      4'd4: dn_i1 = -5'sd1;
-      4'd5: dn_i1 = -5'sd2;
-      4'd6: dn_i1 = -5'sd3;
-      4'd7: dn_i1 = -5'sd4;
-      4'd8: dn_i1 = 5'sd4;
-      4'd9: dn_i1 = 5'sd3;
-      4'd10: dn_i1 = 5'sd2;
-      4'd11: dn_i1 = 5'sd1;
-      4'd12: dn_i1 = -5'sd1;
-      4'd13: dn_i1 = -5'sd2;
-      4'd14: dn_i1 = -5'sd3;
-      4'd15: dn_i1 = -5'sd4;
-    endcase
-  end
+  function [4:0] competitor_i1;
+    input [3:0] key;
+    begin
+      competitor_i1 = 5'd0;
+      case (key)
+        4'd0: competitor_i1 = 5'sd4;
+        4'd1: competitor_i1 = 5'sd3;
+        4'd2: competitor_i1 = 5'sd2;
+        4'd3: competitor_i1 = 5'sd1;
+        4'd4: competitor_i1 = -5'sd1;
+        4'd5: competitor_i1 = -5'sd2;
+        4'd6: competitor_i1 = -5'sd3;
+        4'd7: competitor_i1 = -5'sd4;
+        4'd8: competitor_i1 = 5'sd4;
+        4'd9: competitor_i1 = 5'sd3;
+        4'd10: competitor_i1 = 5'sd2;
+        4'd11: competitor_i1 = 5'sd1;
+        4'd12: competitor_i1 = -5'sd1;
+        4'd13: competitor_i1 = -5'sd2;
+        4'd14: competitor_i1 = -5'sd3;
+        4'd15: competitor_i1 = -5'sd4;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_i1 = competitor_i1(n_i_s0_reg);
   wire [12:0] tfull_i1 = { {{2{dn_i1[4]}}, dn_i1}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
   wire [11:0] t_i1 = tfull_i1[11:0];
   wire [14:0] r_i1 = $signed({{10{dn_i1[4]}}, dn_i1}) * $signed({{3{t_i1[11]}}, t_i1});
   wire [13:0] mag_i1_1_next = r_i1[13:0];
   wire neg_i1_1_next = lab_i[2];
   // axis bit 2 (label bit b4): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_i2;
-  always @* begin
-    dn_i2 = 5'd0;
-    case (n_i_s0_reg)
-      4'd0: dn_i2 = 5'sd2;
-      4'd1: dn_i2 = 5'sd1;
-      4'd2: dn_i2 = -5'sd1;
-      4'd3: dn_i2 = -5'sd2;
-      4'd4: dn_i2 = 5'sd2;
-      4'd5: dn_i2 = 5'sd1;
-      4'd6: dn_i2 = -5'sd1;
-      4'd7: dn_i2 = -5'sd2;
-      4'd8: dn_i2 = 5'sd2;
-      4'd9: dn_i2 = 5'sd1;
-      4'd10: dn_i2 = -5'sd1;
-      4'd11: dn_i2 = -5'sd2;
-      4'd12: dn_i2 = 5'sd2;
-      4'd13: dn_i2 = 5'sd1;
-      4'd14: dn_i2 = -5'sd1;
-      4'd15: dn_i2 = -5'sd2;
-    endcase
-  end
+  function [4:0] competitor_i2;
+    input [3:0] key;
+    begin
+      competitor_i2 = 5'd0;
+      case (key)
+        4'd0: competitor_i2 = 5'sd2;
+        4'd1: competitor_i2 = 5'sd1;
+        4'd2: competitor_i2 = -5'sd1;
+        4'd3: competitor_i2 = -5'sd2;
+        4'd4: competitor_i2 = 5'sd2;
+        4'd5: competitor_i2 = 5'sd1;
+        4'd6: competitor_i2 = -5'sd1;
+        4'd7: competitor_i2 = -5'sd2;
+        4'd8: competitor_i2 = 5'sd2;
+        4'd9: competitor_i2 = 5'sd1;
+        4'd10: competitor_i2 = -5'sd1;
+        4'd11: competitor_i2 = -5'sd2;
+        4'd12: competitor_i2 = 5'sd2;
+        4'd13: competitor_i2 = 5'sd1;
+        4'd14: competitor_i2 = -5'sd1;
+        4'd15: competitor_i2 = -5'sd2;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_i2 = competitor_i2(n_i_s0_reg);
   wire [12:0] tfull_i2 = { {{2{dn_i2[4]}}, dn_i2}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
   wire [11:0] t_i2 = tfull_i2[11:0];
   wire [14:0] r_i2 = $signed({{10{dn_i2[4]}}, dn_i2}) * $signed({{3{t_i2[11]}}, t_i2});
   wire [13:0] mag_i2_1_next = r_i2[13:0];
   wire neg_i2_1_next = lab_i[1];
   // axis bit 3 (label bit b6): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_i3;
-  always @* begin
-    dn_i3 = 5'd0;
-    case (n_i_s0_reg)
-      4'd0: dn_i3 = 5'sd1;
-      4'd1: dn_i3 = -5'sd1;
-      4'd2: dn_i3 = 5'sd1;
-      4'd3: dn_i3 = -5'sd1;
-      4'd4: dn_i3 = 5'sd1;
-      4'd5: dn_i3 = -5'sd1;
-      4'd6: dn_i3 = 5'sd1;
-      4'd7: dn_i3 = -5'sd1;
-      4'd8: dn_i3 = 5'sd1;
-      4'd9: dn_i3 = -5'sd1;
-      4'd10: dn_i3 = 5'sd1;
-      4'd11: dn_i3 = -5'sd1;
-      4'd12: dn_i3 = 5'sd1;
-      4'd13: dn_i3 = -5'sd1;
-      4'd14: dn_i3 = 5'sd1;
-      4'd15: dn_i3 = -5'sd1;
-    endcase
-  end
+  function [4:0] competitor_i3;
+    input [3:0] key;
+    begin
+      competitor_i3 = 5'd0;
+      case (key)
+        4'd0: competitor_i3 = 5'sd1;
+        4'd1: competitor_i3 = -5'sd1;
+        4'd2: competitor_i3 = 5'sd1;
+        4'd3: competitor_i3 = -5'sd1;
+        4'd4: competitor_i3 = 5'sd1;
+        4'd5: competitor_i3 = -5'sd1;
+        4'd6: competitor_i3 = 5'sd1;
+        4'd7: competitor_i3 = -5'sd1;
+        4'd8: competitor_i3 = 5'sd1;
+        4'd9: competitor_i3 = -5'sd1;
+        4'd10: competitor_i3 = 5'sd1;
+        4'd11: competitor_i3 = -5'sd1;
+        4'd12: competitor_i3 = 5'sd1;
+        4'd13: competitor_i3 = -5'sd1;
+        4'd14: competitor_i3 = 5'sd1;
+        4'd15: competitor_i3 = -5'sd1;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_i3 = competitor_i3(n_i_s0_reg);
   wire [12:0] tfull_i3 = { {{2{dn_i3[4]}}, dn_i3}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
   wire [11:0] t_i3 = tfull_i3[11:0];
   wire [14:0] r_i3 = $signed({{10{dn_i3[4]}}, dn_i3}) * $signed({{3{t_i3[11]}}, t_i3});
   wire [13:0] mag_i3_1_next = r_i3[13:0];
   wire neg_i3_1_next = lab_i[0];
   // Q axis: label of the decided level gives each LLR's sign
-  reg  [3:0] lab_q;
-  always @* begin
-    lab_q = 4'd0;
-    case (n_q_s0_reg)
-      4'd0: lab_q = 4'd15;
-      4'd1: lab_q = 4'd14;
-      4'd2: lab_q = 4'd12;
-      4'd3: lab_q = 4'd13;
-      4'd4: lab_q = 4'd9;
-      4'd5: lab_q = 4'd8;
-      4'd6: lab_q = 4'd10;
-      4'd7: lab_q = 4'd11;
-      4'd8: lab_q = 4'd3;
-      4'd9: lab_q = 4'd2;
-      4'd10: lab_q = 4'd0;
-      4'd11: lab_q = 4'd1;
-      4'd12: lab_q = 4'd5;
-      4'd13: lab_q = 4'd4;
-      4'd14: lab_q = 4'd6;
-      4'd15: lab_q = 4'd7;
-    endcase
-  end
+  function [3:0] label_q;
+    input [3:0] n;
+    begin
+      label_q = 4'd0;
+      case (n)
+        4'd0: label_q = 4'd15;
+        4'd1: label_q = 4'd14;
+        4'd2: label_q = 4'd12;
+        4'd3: label_q = 4'd13;
+        4'd4: label_q = 4'd9;
+        4'd5: label_q = 4'd8;
+        4'd6: label_q = 4'd10;
+        4'd7: label_q = 4'd11;
+        4'd8: label_q = 4'd3;
+        4'd9: label_q = 4'd2;
+        4'd10: label_q = 4'd0;
+        4'd11: label_q = 4'd1;
+        4'd12: label_q = 4'd5;
+        4'd13: label_q = 4'd4;
+        4'd14: label_q = 4'd6;
+        4'd15: label_q = 4'd7;
+      endcase
+    end
+  endfunction
+  wire [3:0] lab_q = label_q(n_q_s0_reg);
   // axis bit 0 (label bit b1): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_q0;
-  always @* begin
-    dn_q0 = 5'd0;
-    case (n_q_s0_reg)
-      4'd0: dn_q0 = 5'sd8;
-      4'd1: dn_q0 = 5'sd7;
-      4'd2: dn_q0 = 5'sd6;
-      4'd3: dn_q0 = 5'sd5;
-      4'd4: dn_q0 = 5'sd4;
-      4'd5: dn_q0 = 5'sd3;
-      4'd6: dn_q0 = 5'sd2;
-      4'd7: dn_q0 = 5'sd1;
-      4'd8: dn_q0 = -5'sd1;
-      4'd9: dn_q0 = -5'sd2;
-      4'd10: dn_q0 = -5'sd3;
-      4'd11: dn_q0 = -5'sd4;
-      4'd12: dn_q0 = -5'sd5;
-      4'd13: dn_q0 = -5'sd6;
-      4'd14: dn_q0 = -5'sd7;
-      4'd15: dn_q0 = -5'sd8;
-    endcase
-  end
+  function [4:0] competitor_q0;
+    input [3:0] key;
+    begin
+      competitor_q0 = 5'd0;
+      case (key)
+        4'd0: competitor_q0 = 5'sd8;
+        4'd1: competitor_q0 = 5'sd7;
+        4'd2: competitor_q0 = 5'sd6;
+        4'd3: competitor_q0 = 5'sd5;
+        4'd4: competitor_q0 = 5'sd4;
+        4'd5: competitor_q0 = 5'sd3;
+        4'd6: competitor_q0 = 5'sd2;
+        4'd7: competitor_q0 = 5'sd1;
+        4'd8: competitor_q0 = -5'sd1;
+        4'd9: competitor_q0 = -5'sd2;
+        4'd10: competitor_q0 = -5'sd3;
+        4'd11: competitor_q0 = -5'sd4;
+        4'd12: competitor_q0 = -5'sd5;
+        4'd13: competitor_q0 = -5'sd6;
+        4'd14: competitor_q0 = -5'sd7;
+        4'd15: competitor_q0 = -5'sd8;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_q0 = competitor_q0(n_q_s0_reg);
   wire [12:0] tfull_q0 = { {{2{dn_q0[4]}}, dn_q0}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
   wire [11:0] t_q0 = tfull_q0[11:0];
   wire [14:0] r_q0 = $signed({{10{dn_q0[4]}}, dn_q0}) * $signed({{3{t_q0[11]}}, t_q0});
   wire [13:0] mag_q0_1_next = r_q0[13:0];
   wire neg_q0_1_next = lab_q[3];
   // axis bit 1 (label bit b3): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_q1;
-  always @* begin
-    dn_q1 = 5'd0;
-    case (n_q_s0_reg)
-      4'd0: dn_q1 = 5'sd4;
-      4'd1: dn_q1 = 5'sd3;
-      4'd2: dn_q1 = 5'sd2;
-      4'd3: dn_q1 = 5'sd1;
-      4'd4: dn_q1 = -5'sd1;
-      4'd5: dn_q1 = -5'sd2;
-      4'd6: dn_q1 = -5'sd3;
-      4'd7: dn_q1 = -5'sd4;
-      4'd8: dn_q1 = 5'sd4;
-      4'd9: dn_q1 = 5'sd3;
-      4'd10: dn_q1 = 5'sd2;
-      4'd11: dn_q1 = 5'sd1;
-      4'd12: dn_q1 = -5'sd1;
-      4'd13: dn_q1 = -5'sd2;
-      4'd14: dn_q1 = -5'sd3;
-      4'd15: dn_q1 = -5'sd4;
-    endcase
-  end
+  function [4:0] competitor_q1;
+    input [3:0] key;
+    begin
+      competitor_q1 = 5'd0;
+      case (key)
+        4'd0: competitor_q1 = 5'sd4;
+        4'd1: competitor_q1 = 5'sd3;
+        4'd2: competitor_q1 = 5'sd2;
+        4'd3: competitor_q1 = 5'sd1;
+        4'd4: competitor_q1 = -5'sd1;
+        4'd5: competitor_q1 = -5'sd2;
+        4'd6: competitor_q1 = -5'sd3;
+        4'd7: competitor_q1 = -5'sd4;
+        4'd8: competitor_q1 = 5'sd4;
+        4'd9: competitor_q1 = 5'sd3;
+        4'd10: competitor_q1 = 5'sd2;
+        4'd11: competitor_q1 = 5'sd1;
+        4'd12: competitor_q1 = -5'sd1;
+        4'd13: competitor_q1 = -5'sd2;
+        4'd14: competitor_q1 = -5'sd3;
+        4'd15: competitor_q1 = -5'sd4;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_q1 = competitor_q1(n_q_s0_reg);
   wire [12:0] tfull_q1 = { {{2{dn_q1[4]}}, dn_q1}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
   wire [11:0] t_q1 = tfull_q1[11:0];
   wire [14:0] r_q1 = $signed({{10{dn_q1[4]}}, dn_q1}) * $signed({{3{t_q1[11]}}, t_q1});
   wire [13:0] mag_q1_1_next = r_q1[13:0];
   wire neg_q1_1_next = lab_q[2];
   // axis bit 2 (label bit b5): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_q2;
-  always @* begin
-    dn_q2 = 5'd0;
-    case (n_q_s0_reg)
-      4'd0: dn_q2 = 5'sd2;
-      4'd1: dn_q2 = 5'sd1;
-      4'd2: dn_q2 = -5'sd1;
-      4'd3: dn_q2 = -5'sd2;
-      4'd4: dn_q2 = 5'sd2;
-      4'd5: dn_q2 = 5'sd1;
-      4'd6: dn_q2 = -5'sd1;
-      4'd7: dn_q2 = -5'sd2;
-      4'd8: dn_q2 = 5'sd2;
-      4'd9: dn_q2 = 5'sd1;
-      4'd10: dn_q2 = -5'sd1;
-      4'd11: dn_q2 = -5'sd2;
-      4'd12: dn_q2 = 5'sd2;
-      4'd13: dn_q2 = 5'sd1;
-      4'd14: dn_q2 = -5'sd1;
-      4'd15: dn_q2 = -5'sd2;
-    endcase
-  end
+  function [4:0] competitor_q2;
+    input [3:0] key;
+    begin
+      competitor_q2 = 5'd0;
+      case (key)
+        4'd0: competitor_q2 = 5'sd2;
+        4'd1: competitor_q2 = 5'sd1;
+        4'd2: competitor_q2 = -5'sd1;
+        4'd3: competitor_q2 = -5'sd2;
+        4'd4: competitor_q2 = 5'sd2;
+        4'd5: competitor_q2 = 5'sd1;
+        4'd6: competitor_q2 = -5'sd1;
+        4'd7: competitor_q2 = -5'sd2;
+        4'd8: competitor_q2 = 5'sd2;
+        4'd9: competitor_q2 = 5'sd1;
+        4'd10: competitor_q2 = -5'sd1;
+        4'd11: competitor_q2 = -5'sd2;
+        4'd12: competitor_q2 = 5'sd2;
+        4'd13: competitor_q2 = 5'sd1;
+        4'd14: competitor_q2 = -5'sd1;
+        4'd15: competitor_q2 = -5'sd2;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_q2 = competitor_q2(n_q_s0_reg);
   wire [12:0] tfull_q2 = { {{2{dn_q2[4]}}, dn_q2}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
   wire [11:0] t_q2 = tfull_q2[11:0];
   wire [14:0] r_q2 = $signed({{10{dn_q2[4]}}, dn_q2}) * $signed({{3{t_q2[11]}}, t_q2});
   wire [13:0] mag_q2_1_next = r_q2[13:0];
   wire neg_q2_1_next = lab_q[1];
   // axis bit 3 (label bit b7): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  reg  [4:0] dn_q3;
-  always @* begin
-    dn_q3 = 5'd0;
-    case (n_q_s0_reg)
-      4'd0: dn_q3 = 5'sd1;
-      4'd1: dn_q3 = -5'sd1;
-      4'd2: dn_q3 = 5'sd1;
-      4'd3: dn_q3 = -5'sd1;
-      4'd4: dn_q3 = 5'sd1;
-      4'd5: dn_q3 = -5'sd1;
-      4'd6: dn_q3 = 5'sd1;
-      4'd7: dn_q3 = -5'sd1;
-      4'd8: dn_q3 = 5'sd1;
-      4'd9: dn_q3 = -5'sd1;
-      4'd10: dn_q3 = 5'sd1;
-      4'd11: dn_q3 = -5'sd1;
-      4'd12: dn_q3 = 5'sd1;
-      4'd13: dn_q3 = -5'sd1;
-      4'd14: dn_q3 = 5'sd1;
-      4'd15: dn_q3 = -5'sd1;
-    endcase
-  end
+  function [4:0] competitor_q3;
+    input [3:0] key;
+    begin
+      competitor_q3 = 5'd0;
+      case (key)
+        4'd0: competitor_q3 = 5'sd1;
+        4'd1: competitor_q3 = -5'sd1;
+        4'd2: competitor_q3 = 5'sd1;
+        4'd3: competitor_q3 = -5'sd1;
+        4'd4: competitor_q3 = 5'sd1;
+        4'd5: competitor_q3 = -5'sd1;
+        4'd6: competitor_q3 = 5'sd1;
+        4'd7: competitor_q3 = -5'sd1;
+        4'd8: competitor_q3 = 5'sd1;
+        4'd9: competitor_q3 = -5'sd1;
+        4'd10: competitor_q3 = 5'sd1;
+        4'd11: competitor_q3 = -5'sd1;
+        4'd12: competitor_q3 = 5'sd1;
+        4'd13: competitor_q3 = -5'sd1;
+        4'd14: competitor_q3 = 5'sd1;
+        4'd15: competitor_q3 = -5'sd1;
+      endcase
+    end
+  endfunction
+  wire [4:0] dn_q3 = competitor_q3(n_q_s0_reg);
   wire [12:0] tfull_q3 = { {{2{dn_q3[4]}}, dn_q3}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
   wire [11:0] t_q3 = tfull_q3[11:0];
   wire [14:0] r_q3 = $signed({{10{dn_q3[4]}}, dn_q3}) * $signed({{3{t_q3[11]}}, t_q3});

@@ -68,7 +68,8 @@ module lvt_spur16_mapper #(
     $readmemh(ROM_POINTS_FILE, rom_points);
 `ifndef SYNTHESIS
     if (^rom_points[15] === 1'bx) begin
-      $error("lvt_spur16_mapper: ROM image %s not loaded (pass its path as ROM_POINTS_FILE)", ROM_POINTS_FILE);
+      // Verilog-2001 has no $error: report and stop
+      $display("ERROR: lvt_spur16_mapper: ROM image %0s not loaded (pass its path as ROM_POINTS_FILE)", ROM_POINTS_FILE);
       $finish;
     end
 `endif

@@ -109,46 +109,58 @@ module lvt_tlm_demapper (
 
   // ---------------------------------------------------------------- step 2: metric
   // I axis: label of the decided level gives each LLR's sign
-  reg  [0:0] lab_i;
-  always @* begin
-    lab_i = 1'd0;
-    case (n_i_s0_reg)
-      1'd0: lab_i = 1'd0;
-      1'd1: lab_i = 1'd1;
-    endcase
-  end
+  function [0:0] label_i;
+    input [0:0] n;
+    begin
+      label_i = 1'd0;
+      case (n)
+        1'd0: label_i = 1'd0;
+        1'd1: label_i = 1'd1;
+      endcase
+    end
+  endfunction
+  wire [0:0] lab_i = label_i(n_i_s0_reg);
   // axis bit 0 (label bit b0): competitor offset dn (levels), R = dn * ((dn << 4) - e)
-  reg  [1:0] dn_i0;
-  always @* begin
-    dn_i0 = 2'd0;
-    case (n_i_s0_reg)
-      1'd0: dn_i0 = 2'sd1;
-      1'd1: dn_i0 = -2'sd1;
-    endcase
-  end
+  function [1:0] competitor_i0;
+    input [0:0] key;
+    begin
+      competitor_i0 = 2'd0;
+      case (key)
+        1'd0: competitor_i0 = 2'sd1;
+        1'd1: competitor_i0 = -2'sd1;
+      endcase
+    end
+  endfunction
+  wire [1:0] dn_i0 = competitor_i0(n_i_s0_reg);
   wire [8:0] tfull_i0 = { {{3{dn_i0[1]}}, dn_i0}, 4'd0 } - {{1{e_i_s0_reg[7]}}, e_i_s0_reg};
   wire [8:0] t_i0 = tfull_i0[8:0];
   wire [8:0] r_i0 = $signed({{7{dn_i0[1]}}, dn_i0}) * $signed(t_i0);
   wire [7:0] mag_i0_1_next = r_i0[7:0];
   wire neg_i0_1_next = lab_i[0];
   // Q axis: label of the decided level gives each LLR's sign
-  reg  [0:0] lab_q;
-  always @* begin
-    lab_q = 1'd0;
-    case (n_q_s0_reg)
-      1'd0: lab_q = 1'd0;
-      1'd1: lab_q = 1'd1;
-    endcase
-  end
+  function [0:0] label_q;
+    input [0:0] n;
+    begin
+      label_q = 1'd0;
+      case (n)
+        1'd0: label_q = 1'd0;
+        1'd1: label_q = 1'd1;
+      endcase
+    end
+  endfunction
+  wire [0:0] lab_q = label_q(n_q_s0_reg);
   // axis bit 0 (label bit b1): competitor offset dn (levels), R = dn * ((dn << 4) - e)
-  reg  [1:0] dn_q0;
-  always @* begin
-    dn_q0 = 2'd0;
-    case (n_q_s0_reg)
-      1'd0: dn_q0 = 2'sd1;
-      1'd1: dn_q0 = -2'sd1;
-    endcase
-  end
+  function [1:0] competitor_q0;
+    input [0:0] key;
+    begin
+      competitor_q0 = 2'd0;
+      case (key)
+        1'd0: competitor_q0 = 2'sd1;
+        1'd1: competitor_q0 = -2'sd1;
+      endcase
+    end
+  endfunction
+  wire [1:0] dn_q0 = competitor_q0(n_q_s0_reg);
   wire [8:0] tfull_q0 = { {{3{dn_q0[1]}}, dn_q0}, 4'd0 } - {{1{e_q_s0_reg[7]}}, e_q_s0_reg};
   wire [8:0] t_q0 = tfull_q0[8:0];
   wire [8:0] r_q0 = $signed({{7{dn_q0[1]}}, dn_q0}) * $signed(t_q0);

@@ -71,7 +71,8 @@ module lvt_tlm_mapper #(
     $readmemh(ROM_I_FILE, rom_i);
 `ifndef SYNTHESIS
     if (^rom_i[1] === 1'bx) begin
-      $error("lvt_tlm_mapper: ROM image %s not loaded (pass its path as ROM_I_FILE)", ROM_I_FILE);
+      // Verilog-2001 has no $error: report and stop
+      $display("ERROR: lvt_tlm_mapper: ROM image %0s not loaded (pass its path as ROM_I_FILE)", ROM_I_FILE);
       $finish;
     end
 `endif
@@ -84,7 +85,8 @@ module lvt_tlm_mapper #(
     $readmemh(ROM_Q_FILE, rom_q);
 `ifndef SYNTHESIS
     if (^rom_q[1] === 1'bx) begin
-      $error("lvt_tlm_mapper: ROM image %s not loaded (pass its path as ROM_Q_FILE)", ROM_Q_FILE);
+      // Verilog-2001 has no $error: report and stop
+      $display("ERROR: lvt_tlm_mapper: ROM image %0s not loaded (pass its path as ROM_Q_FILE)", ROM_Q_FILE);
       $finish;
     end
 `endif
