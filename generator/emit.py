@@ -26,6 +26,8 @@ from .spec import DesignSpec, field_docs
 
 GENERATOR = "qamsmith"
 MANIFEST = "manifest.json"
+#: where `qamsmith analyze` and `qamsmith cost` write about a design (kept while the design is unchanged)
+REPORT_DIR = "report"
 #: mapper vectors: every label once, then seeded random labels up to this count (at least 1024 random)
 MAPPER_VECTORS = 4096
 #: random demapper vectors after the exhaustive and extreme sections
@@ -616,6 +618,14 @@ def _owned(target: Path) -> dict[str, str]:
         return {}
 
 
+def _old_hash(target: Path) -> str | None:
+    """Content hash recorded in an earlier manifest of target, if any."""
+    try:
+        return str(json.loads((target / MANIFEST).read_text(encoding="utf-8"))["content_hash"])
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
 def generated_files(target: str | Path) -> list[str]:
     """Relative paths of the files qamsmith wrote into a design directory (manifest.json included)."""
     owned = _owned(Path(target))
@@ -639,12 +649,18 @@ def write_design(spec: DesignSpec, out_root: str | Path, *, force: bool = False)
     if target.exists() and not target.is_dir():
         raise SpecError("--out", str(target), "a directory (a file of that name is in the way)")
     foreign: list[str] = []
+    kept: list[str] = []
     if target.exists():
         owned = _owned(target)
         present = _entries(target)
         dirs = {str(Path(p).parent) for p in [*owned, *files]}
         dirs = {d_ for p in dirs for d_ in [p, *map(str, Path(p).parents)]}
-        foreign = [p for p in present if p not in owned and p != MANIFEST and p not in dirs]
+        foreign = [p for p in present if p not in owned and p != MANIFEST and p not in dirs
+                   and not p.startswith(REPORT_DIR + "/")]
+        # report/ holds what `qamsmith analyze` / `cost` wrote about this design: it stays while the
+        # design is the same (same content hash) and goes with the old design otherwise
+        if _old_hash(target) == content_hash(spec):
+            kept = [p for p in present if p.startswith(REPORT_DIR + "/")]
         modified = [p for p in present if p in owned and _sha(target / p) != owned[p]]
         clash = [p for p in foreign if p in files or any(g.startswith(p + "/") for g in files)]
         if clash:
@@ -671,7 +687,7 @@ def write_design(spec: DesignSpec, out_root: str | Path, *, force: bool = False)
             path = staging / rel
             path.parent.mkdir(parents=True, exist_ok=True)
             path.write_bytes(content)
-        for rel in foreign:                       # keep what the user put there, untouched
+        for rel in foreign + kept:                # keep what the user put there, untouched
             (staging / rel).parent.mkdir(parents=True, exist_ok=True)
             os.rename(target / rel, staging / rel)
             moved.append(rel)

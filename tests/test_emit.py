@@ -347,6 +347,17 @@ def test_foreign_files_are_refused_without_force_and_kept_with_it(tmp_path: Path
     assert {k: v for k, v in after.items() if k not in ("notes.txt", "rtl/mine.v")} == build_files(other)
 
 
+def test_report_stays_with_its_design_and_goes_with_a_changed_one(tmp_path: Path) -> None:
+    target = write_design(QPSK, tmp_path)
+    (target / "report").mkdir()
+    (target / "report" / "report.md").write_text("# review\n")
+    write_design(QPSK, tmp_path)                      # same design: the report still describes it
+    assert (target / "report" / "report.md").read_text() == "# review\n"
+    other = QPSK.with_settings({"demapper.llr_width": 6})
+    write_design(other, tmp_path)                     # a changed design: the old report is dropped
+    assert _tree(target) == build_files(other)
+
+
 def test_edited_generated_file_needs_force(tmp_path: Path) -> None:
     target = write_design(QPSK, tmp_path)
     (target / "design.toml").write_text("# edited\n")
