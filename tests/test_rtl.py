@@ -114,7 +114,7 @@ def test_rom_styles_and_logic() -> None:
     f = rtl.files(derive(_spec(64, mapper={"rom_style": "file"})))["rtl/t_mapper.v"]
     assert "$readmemh(ROM_I_FILE" in f and 'parameter ROM_Q_FILE = "rom/mapper_q.hex"' in f
     i = rtl.files(derive(_spec(64, mapper={"rom_style": "inline"})))["rtl/t_mapper.v"]
-    assert "$readmemh" not in i and "case (idx_i)" in i
+    assert "$readmemh" not in i and "level_i(idx_i)" in i
     g = rtl.files(derive(_spec(64, "3gpp-nr", mapper={"implementation": "logic"})))["rtl/t_mapper.v"]
     assert "$readmemh" not in g and "gray_i" in g and "acc_i" in g
 
