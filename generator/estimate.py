@@ -228,7 +228,7 @@ def ports_of(tools: Tools, sources: Sequence[Path], top: str, *, cwd: Path, work
              timeout: float = YOSYS_TIMEOUT_S) -> list[dict[str, Any]]:
     """Port list of `top` in declaration order: name, direction ('input'/'output'), width."""
     out = work / f"{top}.ports.json"
-    _run([*tools.yosys, "-q", "-p", f"{_read_cmd(sources)}; hierarchy -top {top}; write_json -compat-int {_q(out)}"],
+    _run([*tools.yosys, "-q", "-p", f"{_read_cmd(sources)}; hierarchy -top {top}; proc; write_json -compat-int {_q(out)}"],
          cwd=cwd, log=work / f"{top}.ports.log", timeout=timeout, what=f"yosys read of {top}")
     data = json.loads(out.read_text(encoding="utf-8"))
     mod = data["modules"][top]
@@ -287,6 +287,34 @@ def wrapper_context(name: str, dut: str, ports: Sequence[dict[str, Any]], clock:
             "banner": _banner(name, "register wrapper for the nextpnr Fmax estimate")}
 
 
+def bypass_degenerate_carries(netlist: dict[str, Any], top: str) -> int:
+    """Remove SB_CARRY cells whose two operands are the same net (CO = I0 then, whatever CI is).
+
+    Yosys emits them where an adder adds a signal to itself (shared low bits); nextpnr-ice40 0.4
+    cannot route the LUT beside such a carry (its router rips up the same LUT-input pip forever),
+    so the netlist is rewritten before place and route. Logic is unchanged. Returns the count.
+    """
+    cells = netlist["modules"][top]["cells"]
+    rename: dict[Any, Any] = {}
+    for name in [n for n, c in cells.items() if c["type"] == "SB_CARRY"]:
+        conn = cells[name]["connections"]
+        if conn["I0"] == conn["I1"]:
+            rename[conn["CO"][0]] = conn["I0"][0]
+            del cells[name]
+    if not rename:
+        return 0
+
+    def resolve(bit: Any) -> Any:
+        while bit in rename:
+            bit = rename[bit]
+        return bit
+
+    for cell in cells.values():
+        for port, bits in cell["connections"].items():
+            cell["connections"][port] = [resolve(b) for b in bits]
+    return len(rename)
+
+
 def place_route(tools: Tools, sources: Sequence[Path], top: str, ports: Sequence[dict[str, Any]], *, cwd: Path,
                 work: Path, seed: int = SEED, target_mhz: float = PNR_TARGET_MHZ,
                 timeout: float = PNR_TIMEOUT_S) -> dict[str, Any]:
@@ -300,6 +328,9 @@ def place_route(tools: Tools, sources: Sequence[Path], top: str, ports: Sequence
     cmds = [_read_cmd([*sources, wfile]), f"hierarchy -top {wname}", f"synth_ice40 -top {wname} -json {_q(netlist)}"]
     _run([*tools.yosys, "-q", "-p", "; ".join(cmds)], cwd=cwd, log=work / f"{wname}.yosys.log", timeout=timeout,
          what=f"yosys synth_ice40 of the wrapper of {top}")
+    data = json.loads(netlist.read_text(encoding="utf-8"))
+    if bypass_degenerate_carries(data, wname):
+        netlist.write_text(json.dumps(data), encoding="utf-8")
     report = work / f"{wname}.report.json"
     argv = [*tools.nextpnr, *PART["nextpnr_args"], "--json", str(netlist), "--seed", str(seed),
             "--freq", f"{target_mhz:g}", "--timing-allow-fail", "--pcf-allow-unconstrained",
@@ -321,21 +352,9 @@ def place_route(tools: Tools, sources: Sequence[Path], top: str, ports: Sequence
 
 
 def _env():
-    """The project's Jinja2 environment when emit provides it, else an equivalent strict one."""
-    try:
-        from .emit import jinja_env  # noqa: PLC0415 (emit is optional while it is being written)
-        return jinja_env()
-    except (ImportError, AttributeError):
-        import jinja2  # noqa: PLC0415
-        return jinja2.Environment(loader=jinja2.FileSystemLoader(str(Path(__file__).resolve().parent.parent / "templates")
-                                                                 if not _pkg_templates().exists() else str(_pkg_templates())),
-                                  undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True,
-                                  keep_trailing_newline=True)
-
-
-def _pkg_templates() -> Path:
-    from . import templates  # type: ignore[attr-defined]  # noqa: PLC0415
-    return Path(templates.__file__).resolve().parent
+    """The project's Jinja2 environment (templates/, StrictUndefined)."""
+    from .emit import jinja_env  # noqa: PLC0415
+    return jinja_env()
 
 
 def render(template: str, context: dict[str, Any]) -> str:
@@ -349,8 +368,9 @@ def _banner(name: str, what: str) -> str:
 
 
 def vlit(value: int, width: int) -> str:
-    """A sized signed Verilog literal: -12'sd5, not 12'sd-5."""
-    return f"-{width}'sd{-value}" if value < 0 else f"{width}'sd{value}"
+    """A sized signed Verilog literal (the project's filter: -12'sd5, never 12'sd-5)."""
+    from .emit import vlit as _vlit  # noqa: PLC0415
+    return _vlit(value, width)
 
 
 # --------------------------------------------------------------------------- reference designs
@@ -433,3 +453,306 @@ def reference_files(design: Design) -> dict[str, str]:
         ctx = bruteforce_context(design)
         out[f"{ctx['name']}.v"] = render("ref_bruteforce_demapper.v.j2", ctx)
     return out
+
+
+# --------------------------------------------------------------------------- the estimate
+
+
+ROLES = ("mapper", "demapper")
+
+
+@dataclass
+class Source:
+    """Where a design's RTL is: the directory (ROM paths are relative to it), the manifest, the spec."""
+
+    root: Path
+    spec: DesignSpec
+    manifest: dict[str, Any]
+
+
+def load_source(path: str | Path) -> Source:
+    """A generated design directory (out/<name>, with manifest.json and design.toml)."""
+    root = Path(path)
+    man = root / "manifest.json"
+    if not root.is_dir() or not man.is_file() or not (root / "design.toml").is_file():
+        raise SpecError("design", str(path), "a generated design directory (out/<name> with manifest.json and "
+                        "design.toml; run `qamsmith generate` first)")
+    try:
+        manifest = json.loads(man.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:
+        raise SpecError("design", str(man), f"a readable manifest ({exc})") from None
+    spec = DesignSpec.from_toml(root / "design.toml")
+    return Source(root, spec, manifest)
+
+
+def build_source(spec: DesignSpec, where: Path) -> Source:
+    """Generate `spec` into where/<name> (for benchmarks and tests) and load it."""
+    from .emit import build_files  # noqa: PLC0415
+    root = where / spec.name
+    for rel, content in build_files(spec).items():
+        p = root / rel
+        p.parent.mkdir(parents=True, exist_ok=True)
+        p.write_bytes(content)
+    return load_source(root)
+
+
+def _module_entry(src: Source, role: str) -> dict[str, Any]:
+    rtl_man = src.manifest.get("rtl", {})
+    entry = rtl_man.get("modules", {}).get(role)
+    if not entry:
+        raise SpecError("design", str(src.root), f"a manifest that lists the {role} module (regenerate the design)")
+    return entry
+
+
+def maxlog_variant(spec: DesignSpec) -> DesignSpec:
+    """The same spec with the maxlog algorithm (what the brute-force reference is compared with)."""
+    if spec.demapper.algorithm == "maxlog":
+        return spec
+    return spec.with_settings({"demapper.algorithm": "maxlog", "name": spec.name})
+
+
+def _synth_all(tools: Tools, flows: Sequence[str], sources: Sequence[Path], top: str, cwd: Path, work: Path,
+               timeout: float) -> dict[str, dict[str, Any]]:
+    return {flow: synthesize(tools, sources, top, flow, cwd=cwd, work=work, timeout=timeout) for flow in flows}
+
+
+def _ratio(a: float | None, b: float | None) -> float | None:
+    return round(a / b, 4) if a is not None and b else None
+
+
+def estimate(src: Source, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax: bool = True, references: bool = True,
+             seed: int = SEED, timeout: float = YOSYS_TIMEOUT_S, tools: Tools | None = None,
+             progress=None) -> dict[str, Any]:
+    """Run the flows on both modules of a design (and the references); the hardware.json content."""
+    tools = tools or find_tools(need_pnr=fmax)
+    flows = available_flows(tools, flows)
+    say = progress or (lambda msg: None)
+    design = derive(src.spec)
+    result: dict[str, Any] = {
+        "design": src.spec.name,
+        "tools": dict(sorted(tools.versions.items())),
+        "part": {k: v for k, v in PART.items() if k != "nextpnr_args"} if fmax else None,
+        "settings": {"flows": list(flows), "seed": seed if fmax else None,
+                     "pnr_target_mhz": PNR_TARGET_MHZ if fmax else None,
+                     "wrapper": "registers on every input and output (input shift chain, output XOR tree)"},
+        "modules": {}, "references": {},
+    }
+    work = Path(tempfile.mkdtemp(prefix="qamsmith-cost-"))
+    try:
+        for role in ROLES:
+            entry = _module_entry(src, role)
+            top = entry["module"]
+            sources = [src.root / entry["file"]]
+            say(f"{role}: {top}: yosys {', '.join(flows)}")
+            figures: dict[str, Any] = {
+                "module": top, "latency_cycles": int(entry["latency"]),
+                "initiation_interval": int(entry.get("initiation_interval", 1)),
+                "pipeline": entry.get("pipeline"),
+                "flows": _synth_all(tools, flows, sources, top, src.root, work, timeout),
+            }
+            if role == "demapper":
+                figures["algorithm"] = src.spec.demapper.algorithm
+            if fmax:
+                say(f"{role}: {top}: nextpnr-ice40 {PART['device']}")
+                ports = ports_of(tools, sources, top, cwd=src.root, work=work, timeout=timeout)
+                figures.update(place_route(tools, sources, top, ports, cwd=src.root, work=work, seed=seed,
+                                           timeout=timeout))
+            result["modules"][role] = figures
+        if references:
+            result["references"] = _references(tools, src, design, flows, fmax, seed, timeout, work, say)
+    except ToolFailed:
+        raise  # the temporary directory stays for its logs
+    except BaseException:
+        shutil.rmtree(work, ignore_errors=True)
+        raise
+    shutil.rmtree(work, ignore_errors=True)
+    _ratios(result)
+    return result
+
+
+def _references(tools: Tools, src: Source, design: Design, flows: Sequence[str], fmax: bool, seed: int,
+                timeout: float, work: Path, say) -> dict[str, Any]:
+    refs: dict[str, Any] = {}
+    ref_dir = work / "ref"
+    ref_dir.mkdir()
+    actx = adder_context(design)
+    apath = ref_dir / f"{actx['name']}.v"
+    apath.write_text(render("ref_adder.v.j2", actx), encoding="utf-8")
+    say(f"reference: {actx['width']}-bit registered adder")
+    adder: dict[str, Any] = {"module": actx["name"], "width": actx["width"],
+                             "flows": _synth_all(tools, [f for f in flows if f == "ice40"] or flows[:1],
+                                                 [apath], actx["name"], ref_dir, work, timeout)}
+    if fmax:
+        ports = ports_of(tools, [apath], actx["name"], cwd=ref_dir, work=work, timeout=timeout)
+        adder.update(place_route(tools, [apath], actx["name"], ports, cwd=ref_dir, work=work, seed=seed,
+                                 timeout=timeout))
+    refs["adder"] = adder
+    if not design.per_axis:
+        refs["bruteforce_demapper"] = {"skipped": "a 2-D search design has no per-axis brute-force reference"}
+        return refs
+    mspec = maxlog_variant(src.spec)
+    mdesign = derive(mspec)
+    bctx = bruteforce_context(mdesign)
+    bpath = ref_dir / f"{bctx['name']}.v"
+    bpath.write_text(render("ref_bruteforce_demapper.v.j2", bctx), encoding="utf-8")
+    say(f"reference: brute-force demapper ({bctx['levels']} levels per axis)")
+    refs["bruteforce_demapper"] = {"module": bctx["name"], "levels_per_axis": bctx["levels"],
+                                   "flows": _synth_all(tools, flows, [bpath], bctx["name"], ref_dir, work, timeout)}
+    if mspec is not src.spec:
+        from . import rtl  # noqa: PLC0415
+        mdir = work / "maxlog"
+        for rel, text in rtl.files(mdesign).items():
+            if rel.endswith(f"{mspec.prefix}_demapper.v"):
+                (mdir / rel).parent.mkdir(parents=True, exist_ok=True)
+                (mdir / rel).write_text(text, encoding="utf-8")
+                top = f"{mspec.prefix}_demapper"
+                say("reference: the maxlog demapper at the same widths")
+                refs["maxlog_demapper"] = {"module": top, "flows": _synth_all(tools, flows, [mdir / rel], top, mdir,
+                                                                              work, timeout)}
+    return refs
+
+
+def _ratios(result: dict[str, Any]) -> None:
+    """maxlog / brute-force LUTs per flow, and each module's Fmax / the adder's."""
+    refs = result["references"]
+    brute = refs.get("bruteforce_demapper", {})
+    if "flows" in brute:
+        ml = refs.get("maxlog_demapper") or result["modules"]["demapper"]
+        brute["maxlog_lut_ratio"] = {f: _ratio(ml["flows"][f]["luts"], brute["flows"][f]["luts"])
+                                     for f in brute["flows"] if f in ml["flows"]}
+    adder_f = refs.get("adder", {}).get("fmax_mhz")
+    for fig in result["modules"].values():
+        if "fmax_mhz" in fig:
+            fig["fmax_vs_adder"] = _ratio(fig["fmax_mhz"], adder_f)
+
+
+# --------------------------------------------------------------------------- report
+
+
+_FLOW_TITLES = {"generic": "generic 4-LUT", "ice40": "iCE40", "ecp5": "ECP5", "xilinx": "Xilinx 7"}
+
+
+def _cell(v: Any) -> str:
+    if v is None:
+        return "-"
+    if isinstance(v, float):
+        return f"{v:.1f}"
+    return str(v)
+
+
+def markdown(result: dict[str, Any]) -> str:
+    """The report's hardware section (report/hardware.md)."""
+    flows = result["settings"]["flows"]
+    part = result.get("part")
+    lines = ["## Hardware cost", ""]
+    tools = ", ".join(result["tools"].values())
+    if part:
+        lines.append(f"Fmax on {part['family']} {part['device']} {part['package']} (nextpnr-ice40, seed "
+                     f"{result['settings']['seed']}, register-to-register inside an input/output register wrapper). "
+                     f"Tools: {tools}.")
+    else:
+        lines.append(f"Synthesis only (no place and route). Tools: {tools}.")
+    lines.append("")
+    head = ["module", "latency (cycles)", "II"]
+    for f in flows:
+        head += [f"{_FLOW_TITLES[f]} LUTs", f"{_FLOW_TITLES[f]} FFs"]
+        if f in ("ice40", "ecp5", "xilinx"):
+            head += [f"{_FLOW_TITLES[f]} BRAM", f"{_FLOW_TITLES[f]} mult"]
+    if part:
+        head += ["Fmax (MHz)", "Fmax / adder"]
+    lines += ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+    rows = [(fig["module"], fig) for fig in result["modules"].values()]
+    refs = result["references"]
+    for key in ("maxlog_demapper", "bruteforce_demapper", "adder"):
+        if "flows" in refs.get(key, {}):
+            rows.append((f"{refs[key]['module']} (reference)", refs[key]))
+    for name, fig in rows:
+        row = [f"`{name}`", _cell(fig.get("latency_cycles")), _cell(fig.get("initiation_interval"))]
+        for f in flows:
+            fl = fig["flows"].get(f, {})
+            row += [_cell(fl.get("luts")), _cell(fl.get("ffs"))]
+            if f in ("ice40", "ecp5", "xilinx"):
+                row += [_cell(fl.get("brams")), _cell(fl.get("multipliers"))]
+        if part:
+            row += [_cell(fig.get("fmax_mhz")), _cell(fig.get("fmax_vs_adder"))]
+        lines.append("| " + " | ".join(row) + " |")
+    lines.append("")
+    lines += summary_lines(result)
+    return "\n".join(lines) + "\n"
+
+
+def summary_lines(result: dict[str, Any]) -> list[str]:
+    """The comparison sentences printed by `qamsmith cost` and put under the table."""
+    out = []
+    refs = result["references"]
+    brute = refs.get("bruteforce_demapper", {})
+    if "maxlog_lut_ratio" in brute:
+        parts = [f"{_FLOW_TITLES[f]} {r:.3f}" for f, r in brute["maxlog_lut_ratio"].items() if r is not None]
+        out.append(f"- maxlog / brute-force demapper LUTs at the same widths ({brute['levels_per_axis']} levels "
+                   f"per axis): {', '.join(parts)}.")
+    elif "skipped" in brute:
+        out.append(f"- brute-force reference: {brute['skipped']}.")
+    adder = refs.get("adder", {})
+    if adder.get("fmax_mhz"):
+        parts = [f"{role} {fig['fmax_vs_adder']:.2f}" for role, fig in result["modules"].items()
+                 if fig.get("fmax_vs_adder") is not None]
+        out.append(f"- Fmax / bare registered {adder['width']}-bit adder ({adder['fmax_mhz']:.1f} MHz): "
+                   f"{', '.join(parts)}.")
+    return out
+
+
+def write_report(src: Source, result: dict[str, Any]) -> tuple[Path, Path]:
+    """report/hardware.json and report/hardware.md of the design (written atomically)."""
+    folder = src.root / "report"
+    folder.mkdir(exist_ok=True)
+    paths = (folder / "hardware.json", folder / "hardware.md")
+    texts = (json.dumps(result, sort_keys=True, indent=2) + "\n", markdown(result))
+    for path, text in zip(paths, texts):
+        tmp = path.with_name(path.name + ".tmp")
+        tmp.write_text(text, encoding="utf-8")
+        os.replace(tmp, path)
+    return paths
+
+
+# --------------------------------------------------------------------------- command
+
+
+def register(subparsers: Any) -> None:
+    """Add `qamsmith cost DESIGN`."""
+    p = subparsers.add_parser(
+        "cost", help="hardware cost: LUTs, flip-flops, block RAM, multipliers, Fmax, latency",
+        description="Synthesize the design's modules with Yosys and place and route them with nextpnr-ice40 "
+                    f"({PART['family']} {PART['device']} {PART['package']}); compare the demapper with a brute-force "
+                    "reference and the Fmax with a bare registered adder; write report/hardware.json and "
+                    "report/hardware.md.")
+    p.add_argument("design", metavar="DESIGN", help="a generated design directory (out/<name>)")
+    p.add_argument("--flows", default=",".join(DEFAULT_FLOWS), metavar="LIST",
+                   help=f"Yosys flows, comma-separated, from {', '.join(FLOWS)} (default: %(default)s)")
+    p.add_argument("--no-fmax", action="store_true", help="synthesis only, no nextpnr run")
+    p.add_argument("--no-reference", action="store_true", help="skip the brute-force and adder references")
+    p.add_argument("--seed", type=int, default=SEED, help="nextpnr placement seed (default: %(default)s)")
+    p.add_argument("--timeout", type=float, default=YOSYS_TIMEOUT_S, metavar="S",
+                   help="per tool run, seconds (default: %(default)s)")
+    p.add_argument("--quiet", action="store_true", help="print the summary only")
+    p.set_defaults(func=cmd_cost)
+
+
+def cmd_cost(args: argparse.Namespace) -> int:
+    """Handler of `qamsmith cost`: 0 done, 2 bad input or a missing tool, 1 a tool failed."""
+    src = load_source(args.design)
+    flows = [f.strip() for f in args.flows.split(",") if f.strip()]
+    say = (lambda msg: None) if args.quiet else (lambda msg: print(f"  {msg}", file=sys.stderr, flush=True))
+    try:
+        tools = find_tools(need_pnr=not args.no_fmax)
+        result = estimate(src, flows=flows, fmax=not args.no_fmax, references=not args.no_reference,
+                          seed=args.seed, timeout=args.timeout, tools=tools, progress=say)
+    except ToolMissing as exc:
+        print(f"qamsmith: error: {exc}", file=sys.stderr)
+        return 2
+    except ToolFailed as exc:
+        print(f"qamsmith: error: {exc}", file=sys.stderr)
+        return 1
+    json_path, md_path = write_report(src, result)
+    print(markdown(result), end="")
+    print(f"wrote {json_path} and {md_path}")
+    return 0
