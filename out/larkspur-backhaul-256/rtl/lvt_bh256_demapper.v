@@ -16,7 +16,7 @@
 //   demapper.input_width = 12
 //   demapper.input_fraction = 6
 //   demapper.llr_width = 6
-//   demapper.llr_fraction = 1
+//   demapper.llr_fraction = 4
 //   demapper.rounding = "half-away"
 //   demapper.scale_width = 0
 //   demapper.scale_fraction = 0
@@ -25,7 +25,7 @@
 //   interface.demapper_stages = 0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: 214dea75d33649fd
+// Content hash: 758952c543ea84b5
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -448,46 +448,46 @@ module lvt_bh256_demapper (
 
 
   // ---------------------------------------------------------------- step 3: output
-  // rounding shift by 5 (half-away), symmetric saturation to +-31, sign
-  wire [14:0] rsum_i0 = {1'd0, mag_i0_s1_reg} + 15'd16;
-  wire [9:0] v_i0 = rsum_i0[14:5];
+  // rounding shift by 2 (half-away), symmetric saturation to +-31, sign
+  wire [14:0] rsum_i0 = {1'd0, mag_i0_s1_reg} + 15'd2;
+  wire [12:0] v_i0 = rsum_i0[14:2];
 
-  wire [LLR_W-2:0] sat_i0 = (|v_i0[9:LLR_W-1]) ? 5'd31 : v_i0[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_i0 = (|v_i0[12:LLR_W-1]) ? 5'd31 : v_i0[LLR_W-2:0];
   wire [LLR_W-1:0] llr_i0_2_next = neg_i0_s1_reg ? 6'd0 - {1'b0, sat_i0} : {1'b0, sat_i0};
-  wire [14:0] rsum_i1 = {1'd0, mag_i1_s1_reg} + 15'd16;
-  wire [9:0] v_i1 = rsum_i1[14:5];
+  wire [14:0] rsum_i1 = {1'd0, mag_i1_s1_reg} + 15'd2;
+  wire [12:0] v_i1 = rsum_i1[14:2];
 
-  wire [LLR_W-2:0] sat_i1 = (|v_i1[9:LLR_W-1]) ? 5'd31 : v_i1[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_i1 = (|v_i1[12:LLR_W-1]) ? 5'd31 : v_i1[LLR_W-2:0];
   wire [LLR_W-1:0] llr_i1_2_next = neg_i1_s1_reg ? 6'd0 - {1'b0, sat_i1} : {1'b0, sat_i1};
-  wire [14:0] rsum_i2 = {1'd0, mag_i2_s1_reg} + 15'd16;
-  wire [9:0] v_i2 = rsum_i2[14:5];
+  wire [14:0] rsum_i2 = {1'd0, mag_i2_s1_reg} + 15'd2;
+  wire [12:0] v_i2 = rsum_i2[14:2];
 
-  wire [LLR_W-2:0] sat_i2 = (|v_i2[9:LLR_W-1]) ? 5'd31 : v_i2[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_i2 = (|v_i2[12:LLR_W-1]) ? 5'd31 : v_i2[LLR_W-2:0];
   wire [LLR_W-1:0] llr_i2_2_next = neg_i2_s1_reg ? 6'd0 - {1'b0, sat_i2} : {1'b0, sat_i2};
-  wire [14:0] rsum_i3 = {1'd0, mag_i3_s1_reg} + 15'd16;
-  wire [9:0] v_i3 = rsum_i3[14:5];
+  wire [14:0] rsum_i3 = {1'd0, mag_i3_s1_reg} + 15'd2;
+  wire [12:0] v_i3 = rsum_i3[14:2];
 
-  wire [LLR_W-2:0] sat_i3 = (|v_i3[9:LLR_W-1]) ? 5'd31 : v_i3[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_i3 = (|v_i3[12:LLR_W-1]) ? 5'd31 : v_i3[LLR_W-2:0];
   wire [LLR_W-1:0] llr_i3_2_next = neg_i3_s1_reg ? 6'd0 - {1'b0, sat_i3} : {1'b0, sat_i3};
-  wire [14:0] rsum_q0 = {1'd0, mag_q0_s1_reg} + 15'd16;
-  wire [9:0] v_q0 = rsum_q0[14:5];
+  wire [14:0] rsum_q0 = {1'd0, mag_q0_s1_reg} + 15'd2;
+  wire [12:0] v_q0 = rsum_q0[14:2];
 
-  wire [LLR_W-2:0] sat_q0 = (|v_q0[9:LLR_W-1]) ? 5'd31 : v_q0[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_q0 = (|v_q0[12:LLR_W-1]) ? 5'd31 : v_q0[LLR_W-2:0];
   wire [LLR_W-1:0] llr_q0_2_next = neg_q0_s1_reg ? 6'd0 - {1'b0, sat_q0} : {1'b0, sat_q0};
-  wire [14:0] rsum_q1 = {1'd0, mag_q1_s1_reg} + 15'd16;
-  wire [9:0] v_q1 = rsum_q1[14:5];
+  wire [14:0] rsum_q1 = {1'd0, mag_q1_s1_reg} + 15'd2;
+  wire [12:0] v_q1 = rsum_q1[14:2];
 
-  wire [LLR_W-2:0] sat_q1 = (|v_q1[9:LLR_W-1]) ? 5'd31 : v_q1[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_q1 = (|v_q1[12:LLR_W-1]) ? 5'd31 : v_q1[LLR_W-2:0];
   wire [LLR_W-1:0] llr_q1_2_next = neg_q1_s1_reg ? 6'd0 - {1'b0, sat_q1} : {1'b0, sat_q1};
-  wire [14:0] rsum_q2 = {1'd0, mag_q2_s1_reg} + 15'd16;
-  wire [9:0] v_q2 = rsum_q2[14:5];
+  wire [14:0] rsum_q2 = {1'd0, mag_q2_s1_reg} + 15'd2;
+  wire [12:0] v_q2 = rsum_q2[14:2];
 
-  wire [LLR_W-2:0] sat_q2 = (|v_q2[9:LLR_W-1]) ? 5'd31 : v_q2[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_q2 = (|v_q2[12:LLR_W-1]) ? 5'd31 : v_q2[LLR_W-2:0];
   wire [LLR_W-1:0] llr_q2_2_next = neg_q2_s1_reg ? 6'd0 - {1'b0, sat_q2} : {1'b0, sat_q2};
-  wire [14:0] rsum_q3 = {1'd0, mag_q3_s1_reg} + 15'd16;
-  wire [9:0] v_q3 = rsum_q3[14:5];
+  wire [14:0] rsum_q3 = {1'd0, mag_q3_s1_reg} + 15'd2;
+  wire [12:0] v_q3 = rsum_q3[14:2];
 
-  wire [LLR_W-2:0] sat_q3 = (|v_q3[9:LLR_W-1]) ? 5'd31 : v_q3[LLR_W-2:0];
+  wire [LLR_W-2:0] sat_q3 = (|v_q3[12:LLR_W-1]) ? 5'd31 : v_q3[LLR_W-2:0];
   wire [LLR_W-1:0] llr_q3_2_next = neg_q3_s1_reg ? 6'd0 - {1'b0, sat_q3} : {1'b0, sat_q3};
 
   // register stage 2 (after step "output")
@@ -545,7 +545,7 @@ module lvt_bh256_demapper (
 
 
   // bits that are provably constant (ranges checked by the generator) or not needed
-  wire unused_bits = ^{ sum_i[6:0], diff_i[12:12], sum_q[6:0], diff_q[12:12], tfull_i0[12:12], r_i0[14:14], tfull_i1[12:12], r_i1[14:14], tfull_i2[12:12], r_i2[14:14], tfull_i3[12:12], r_i3[14:14], tfull_q0[12:12], r_q0[14:14], tfull_q1[12:12], r_q1[14:14], tfull_q2[12:12], r_q2[14:14], tfull_q3[12:12], r_q3[14:14], rsum_i0[4:0], rsum_i1[4:0], rsum_i2[4:0], rsum_i3[4:0], rsum_q0[4:0], rsum_q1[4:0], rsum_q2[4:0], rsum_q3[4:0] };
+  wire unused_bits = ^{ sum_i[6:0], diff_i[12:12], sum_q[6:0], diff_q[12:12], tfull_i0[12:12], r_i0[14:14], tfull_i1[12:12], r_i1[14:14], tfull_i2[12:12], r_i2[14:14], tfull_i3[12:12], r_i3[14:14], tfull_q0[12:12], r_q0[14:14], tfull_q1[12:12], r_q1[14:14], tfull_q2[12:12], r_q2[14:14], tfull_q3[12:12], r_q3[14:14], rsum_i0[1:0], rsum_i1[1:0], rsum_i2[1:0], rsum_i3[1:0], rsum_q0[1:0], rsum_q1[1:0], rsum_q2[1:0], rsum_q3[1:0] };
 
 
 endmodule

@@ -16,7 +16,7 @@
 //   demapper.input_width = 12
 //   demapper.input_fraction = 6
 //   demapper.llr_width = 6
-//   demapper.llr_fraction = 1
+//   demapper.llr_fraction = 4
 //   demapper.rounding = "half-away"
 //   demapper.scale_width = 0
 //   demapper.scale_fraction = 0
@@ -25,7 +25,7 @@
 //   interface.demapper_stages = 0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: 214dea75d33649fd
+// Content hash: 758952c543ea84b5
 `timescale 1ns / 1ps
 `default_nettype none
 
