@@ -22,7 +22,7 @@ from .fixed import ROUNDING_MODES
 from .spec import ALGORITHMS, SECTIONS, DesignSpec, field_docs, parse_value
 
 #: Modules that add their own subcommand: each defines `register(subparsers) -> None`.
-COMMAND_MODULES: tuple[str, ...] = ("qamsmith.verify", "qamsmith.analysis", "qamsmith.report")
+COMMAND_MODULES: tuple[str, ...] = ("qamsmith.verify", "qamsmith.analysis", "qamsmith.report", "qamsmith.estimate")
 
 DEFAULT_EXAMPLE = "larkspur-backhaul-256"
 

