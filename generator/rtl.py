@@ -10,7 +10,8 @@ Pipeline: a module is a chain of logical steps (see `mapper_steps` / `demapper_s
 the steps (extra ones at the output). Every register stage has a valid bit; stage s loads
 when it is empty or the stage after it loads (ce_s = !valid_s | ce_{s+1}, ce_last =
 m_axis_tready), so the stream runs at one symbol per clock with any backpressure pattern,
-without bubbles or loss; s_axis_tready = ce_0 is combinational from m_axis_tready.
+without bubbles or loss; s_axis_tready = ce_0 is combinational from m_axis_tready, or, with
+`interface.skid`, a register of a two-entry skid buffer in front of stage 0.
 """
 
 from __future__ import annotations
@@ -149,6 +150,14 @@ def _pipeline(inputs: dict[str, tuple[int, bool]], steps: list[Step], outputs: t
             "plan": plan}
 
 
+def _stages(design: Any, role: str, steps: list[Step]) -> int:
+    """interface.<role>_stages, or the count timing.py chooses for interface.target_mhz."""
+    if design.spec.interface.target_mhz > 0:
+        from .timing import stages_for
+        return stages_for(design, role, [st.name for st in steps])
+    return getattr(design.spec.interface, f"{role}_stages")
+
+
 def _carried(spec) -> dict[str, tuple[int, bool]]:
     i = spec.interface
     out: dict[str, tuple[int, bool]] = {}
@@ -245,7 +254,7 @@ def _mapper_context(design: Any) -> dict[str, Any]:
                           ("label",)),
                      Step("level", {"lvl_i": (W, True), "lvl_q": (W, True)},
                           tuple(f"n_{a['name']}" for a in axes_ctx if a["bits"]))]
-    pipe = _pipeline(inputs, steps, ("lvl_i", "lvl_q"), spec.interface.mapper_stages, carried)
+    pipe = _pipeline(inputs, steps, ("lvl_i", "lvl_q"), _stages(design, "mapper", steps), carried)
     return {"kind": kind, "k": k, "W": W, "axes": axes_ctx, "roms": roms, "steps": steps,
             "inline": m.rom_style == "inline", "pipe": pipe, "carried": carried}
 
@@ -423,7 +432,7 @@ def _demapper_context(design: Any) -> dict[str, Any]:
         outputs = ("hard",)
     # mag/neg names above are per axis bit (i0..) or per label bit (0..); fields map them
     ctx["fields"] = sorted(fields, reverse=True)
-    pipe = _pipeline(inputs, steps, outputs, spec.interface.demapper_stages, carried)
+    pipe = _pipeline(inputs, steps, outputs, _stages(design, "demapper", steps), carried)
     ctx.update(steps=steps, pipe=pipe, outputs=outputs)
     return ctx
 
@@ -496,7 +505,8 @@ def manifest(design: Any) -> dict[str, Any]:
             "module": f"{p}_{role}", "file": path, "ports": _ports(design, role),
             "latency": c["pipe"]["latency"], "initiation_interval": 1,
             "pipeline": [{"step": st.name, "registers": st.regs} for st in c["steps"]],
-            "tready": "combinational from m_axis_tready through one OR gate per stage",
+            "tready": ("registered: a two-entry skid buffer at the input" if design.spec.interface.skid
+                       else "combinational from m_axis_tready through one OR gate per stage"),
         }
         if role == "mapper":
             entry["implementation"] = c["kind"]
@@ -526,7 +536,9 @@ def files(design: Any) -> dict[str, str]:
     for role in ("mapper", "demapper"):
         c = dict(ctx[role])
         unused: list[str] = []
-        c.update(module=f"{p}_{role}", spec=design.spec, ports=_ports(design, role), vlit=vlit,
+        ports = _ports(design, role)
+        c.update(module=f"{p}_{role}", spec=design.spec, ports=ports, vlit=vlit, skid=design.spec.interface.skid,
+                 s_width=next(pt["width"] for pt in ports if pt["name"] == "s_axis_tdata"),
                  sext=sext, zext=zext, unused=unused, keep=lambda expr: unused.append(expr) or "")
         body = env.get_template(f"{role}.v.j2").render(**c)
         out[f"rtl/{p}_{role}.v"] = _banner(design, f"{role} of design {design.spec.name}: synthesizable Verilog-2001") + body

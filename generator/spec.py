@@ -71,8 +71,10 @@ class InterfaceSpec:
     prefix: str = _f("", "module name prefix (default: the design name with '-' as '_')")
     mapper_stages: int = _f(0, "mapper register stages, latency in cycles (0: as many as it has steps)")
     demapper_stages: int = _f(0, "demapper register stages, latency in cycles (0: as many as it has steps)")
+    target_mhz: float = _f(0.0, "target clock, MHz: the generator chooses both stage counts (0: off, use the *_stages)")
     tlast: bool = _f(True, "carry s_axis_tlast to m_axis_tlast with its symbol")
     tuser_width: int = _f(0, "width of a tuser field carried with each symbol (0: none)")
+    skid: bool = _f(False, "register s_axis_tready through a two-entry skid buffer at the input (no added latency)")
 
 
 SECTIONS: dict[str, type] = {
@@ -138,9 +140,17 @@ class DesignSpec:
             raise SpecError("interface.prefix", i.prefix, "a Verilog identifier: lower-case letters, digits, '_', starting with a letter")
         _int("interface.mapper_stages", i.mapper_stages, 0, 8)
         _int("interface.demapper_stages", i.demapper_stages, 0, 8)
+        t = i.target_mhz
+        if (not isinstance(t, (int, float)) or isinstance(t, bool) or math.isnan(t) or not (t == 0 or 1 <= t <= 1000)):
+            raise SpecError("interface.target_mhz", t, "0 (off) or a clock from 1 to 1000 MHz")
+        if t and (i.mapper_stages or i.demapper_stages):
+            raise SpecError("interface.target_mhz", t, "0 when interface.mapper_stages or demapper_stages is set "
+                            "(a target clock chooses the stages)")
         if not isinstance(i.tlast, bool):
             raise SpecError("interface.tlast", i.tlast, "true or false")
         _int("interface.tuser_width", i.tuser_width, 0, 64)
+        if not isinstance(i.skid, bool):
+            raise SpecError("interface.skid", i.skid, "true or false")
 
     @property
     def prefix(self) -> str:

@@ -35,7 +35,8 @@ def _spec(order: int, labeling: str, alg: str, variant: int) -> DesignSpec:
     spec = DesignSpec(name="lint", constellation=ConstellationSpec(order=order, labeling=labeling, table=table),
                       mapper=mapper, demapper=dem,
                       interface=InterfaceSpec(tlast=variant != 1, tuser_width=(0, 2, 7)[variant],
-                                              mapper_stages=variant, demapper_stages=(0, 1, 5)[variant]))
+                                              mapper_stages=variant, demapper_stages=(0, 1, 5)[variant],
+                                              skid=variant == 2))
     return spec
 
 

@@ -126,3 +126,16 @@ def test_testbench_files() -> None:
     compile(files["tb/test_t.py"], "test_t.py", "exec")
     compile(files["tb/run.py"], "run.py", "exec")
     assert "TUSER_W = 3" in files["tb/test_t.py"]
+
+
+def test_skid_buffer_registers_tready() -> None:
+    """interface.skid: s_axis_tready comes from a register, not from m_axis_tready (common practice)."""
+    plain = derive(_spec(16))
+    skid = derive(_spec(16, interface={"skid": True, "tuser_width": 2}))
+    for role in ("mapper", "demapper"):
+        assert "assign s_axis_tready = ce_s0;" in rtl.files(plain)[f"rtl/t_{role}.v"]
+        text = rtl.files(skid)[f"rtl/t_{role}.v"]
+        assert "assign s_axis_tready = !skid_valid_reg;" in text and "ce_s0;" not in text.split("s_axis_tready =")[1]
+        assert rtl.manifest(skid)["modules"][role]["tready"].startswith("registered")
+        # the skid buffer adds no latency
+        assert rtl.manifest(skid)["modules"][role]["latency"] == rtl.manifest(plain)["modules"][role]["latency"]

@@ -173,6 +173,7 @@ OPTIONS = {
                                 demapper=DemapperSpec(scale_width=5, scale_fraction=3, llr_width=7),
                                 interface=InterfaceSpec(tlast=False, mapper_stages=4, demapper_stages=4)),
     "folded-notlast": dict(demapper=DemapperSpec(algorithm="folded"), interface=InterfaceSpec(tlast=False)),
+    "skid-tuser-stages2": dict(interface=InterfaceSpec(skid=True, tuser_width=4, mapper_stages=2, demapper_stages=2)),
 }
 
 

@@ -23,9 +23,11 @@
 //   interface.prefix = "lvt_bh256"
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
+//   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: 758952c543ea84b5
+//   interface.skid = false
+// Content hash: 949abf04c4533de4
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -56,8 +58,10 @@ module lvt_bh256_demapper (
   localparam WIDTH    = 12;  // width of each input component
   localparam LLR_W    = 6;  // width of each LLR
 
-  wire [WIDTH-1:0] in_y_i = s_axis_tdata[11:0];
-  wire [WIDTH-1:0] in_y_q = s_axis_tdata[23:12];
+  wire [WIDTH-1:0] in_y_i = in_tdata[11:0];
+  wire [WIDTH-1:0] in_y_q = in_tdata[23:12];
+  wire [23:0] in_tdata = s_axis_tdata;
+  wire                     in_tvalid = s_axis_tvalid;
   wire                     in_tlast = s_axis_tlast;
 
 
@@ -528,7 +532,7 @@ module lvt_bh256_demapper (
   wire ce_s2 = !valid_s2_reg || m_axis_tready;
 
   always @(posedge aclk) begin
-    if (ce_s0) valid_s0_reg <= s_axis_tvalid;
+    if (ce_s0) valid_s0_reg <= in_tvalid;
     if (ce_s1) valid_s1_reg <= valid_s0_reg;
     if (ce_s2) valid_s2_reg <= valid_s1_reg;
     // synchronous active-low reset: clears control only, never the datapath

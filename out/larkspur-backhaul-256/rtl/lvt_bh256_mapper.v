@@ -23,9 +23,11 @@
 //   interface.prefix = "lvt_bh256"
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
+//   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: 758952c543ea84b5
+//   interface.skid = false
+// Content hash: 949abf04c4533de4
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -59,7 +61,9 @@ module lvt_bh256_mapper #(
   localparam BITS  = 8;  // label bits per symbol
   localparam WIDTH = 12;  // width of each output component
 
-  wire [BITS-1:0] in_label = s_axis_tdata;
+  wire [BITS-1:0] in_label = in_tdata;
+  wire [7:0] in_tdata = s_axis_tdata;
+  wire                     in_tvalid = s_axis_tvalid;
   wire                     in_tlast = s_axis_tlast;
 
 
@@ -115,7 +119,7 @@ module lvt_bh256_mapper #(
   wire ce_s0 = !valid_s0_reg || m_axis_tready;
 
   always @(posedge aclk) begin
-    if (ce_s0) valid_s0_reg <= s_axis_tvalid;
+    if (ce_s0) valid_s0_reg <= in_tvalid;
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) begin
       valid_s0_reg <= 1'b0;

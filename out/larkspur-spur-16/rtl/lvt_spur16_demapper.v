@@ -23,9 +23,11 @@
 //   interface.prefix = "lvt_spur16"
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
+//   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: 8541d9122b828489
+//   interface.skid = false
+// Content hash: 2b56fe7bcb05fa68
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -56,8 +58,10 @@ module lvt_spur16_demapper (
   localparam WIDTH    = 10;  // width of each input component
   localparam LLR_W    = 6;  // width of each LLR
 
-  wire [WIDTH-1:0] in_y_i = s_axis_tdata[WIDTH-1:0];
-  wire [WIDTH-1:0] in_y_q = s_axis_tdata[2*WIDTH-1:WIDTH];
+  wire [WIDTH-1:0] in_y_i = in_tdata[WIDTH-1:0];
+  wire [WIDTH-1:0] in_y_q = in_tdata[2*WIDTH-1:WIDTH];
+  wire [19:0] in_tdata = s_axis_tdata;
+  wire                     in_tvalid = s_axis_tvalid;
   wire                     in_tlast = s_axis_tlast;
 
 
@@ -325,7 +329,7 @@ module lvt_spur16_demapper (
   wire ce_s2 = !valid_s2_reg || m_axis_tready;
 
   always @(posedge aclk) begin
-    if (ce_s0) valid_s0_reg <= s_axis_tvalid;
+    if (ce_s0) valid_s0_reg <= in_tvalid;
     if (ce_s1) valid_s1_reg <= valid_s0_reg;
     if (ce_s2) valid_s2_reg <= valid_s1_reg;
     // synchronous active-low reset: clears control only, never the datapath

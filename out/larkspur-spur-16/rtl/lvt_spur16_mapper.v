@@ -23,9 +23,11 @@
 //   interface.prefix = "lvt_spur16"
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
+//   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: 8541d9122b828489
+//   interface.skid = false
+// Content hash: 2b56fe7bcb05fa68
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -57,7 +59,9 @@ module lvt_spur16_mapper #(
   localparam BITS  = 4;  // label bits per symbol
   localparam WIDTH = 10;  // width of each output component
 
-  wire [BITS-1:0] in_label = s_axis_tdata;
+  wire [BITS-1:0] in_label = in_tdata;
+  wire [3:0] in_tdata = s_axis_tdata;
+  wire                     in_tvalid = s_axis_tvalid;
   wire                     in_tlast = s_axis_tlast;
 
 
@@ -100,7 +104,7 @@ module lvt_spur16_mapper #(
   wire ce_s0 = !valid_s0_reg || m_axis_tready;
 
   always @(posedge aclk) begin
-    if (ce_s0) valid_s0_reg <= s_axis_tvalid;
+    if (ce_s0) valid_s0_reg <= in_tvalid;
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) begin
       valid_s0_reg <= 1'b0;

@@ -25,7 +25,8 @@
 //   interface.demapper_stages = 0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: b5625b2b844536b3
+//   interface.skid = false
+// Content hash: b47a8cf2f2c5fdee
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -56,9 +57,11 @@ module lvt_tlm_demapper (
   localparam WIDTH    = 8;  // width of each input component
   localparam LLR_W    = 5;  // width of each LLR
 
-  wire [WIDTH-1:0] in_y_i = s_axis_tdata[7:0];
-  wire [WIDTH-1:0] in_y_q = s_axis_tdata[15:8];
-  wire [5:0] in_scale = s_axis_tdata[21:16];
+  wire [WIDTH-1:0] in_y_i = in_tdata[7:0];
+  wire [WIDTH-1:0] in_y_q = in_tdata[15:8];
+  wire [5:0] in_scale = in_tdata[21:16];
+  wire [21:0] in_tdata = s_axis_tdata;
+  wire                     in_tvalid = s_axis_tvalid;
   wire                     in_tlast = s_axis_tlast;
 
 
@@ -249,7 +252,7 @@ module lvt_tlm_demapper (
   wire ce_s3 = !valid_s3_reg || m_axis_tready;
 
   always @(posedge aclk) begin
-    if (ce_s0) valid_s0_reg <= s_axis_tvalid;
+    if (ce_s0) valid_s0_reg <= in_tvalid;
     if (ce_s1) valid_s1_reg <= valid_s0_reg;
     if (ce_s2) valid_s2_reg <= valid_s1_reg;
     if (ce_s3) valid_s3_reg <= valid_s2_reg;

@@ -25,7 +25,8 @@
 //   interface.demapper_stages = 0
 //   interface.tlast = true
 //   interface.tuser_width = 0
-// Content hash: b5625b2b844536b3
+//   interface.skid = false
+// Content hash: b47a8cf2f2c5fdee
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -59,7 +60,9 @@ module lvt_tlm_mapper #(
   localparam BITS  = 2;  // label bits per symbol
   localparam WIDTH = 10;  // width of each output component
 
-  wire [BITS-1:0] in_label = s_axis_tdata;
+  wire [BITS-1:0] in_label = in_tdata;
+  wire [1:0] in_tdata = s_axis_tdata;
+  wire                     in_tvalid = s_axis_tvalid;
   wire                     in_tlast = s_axis_tlast;
 
 
@@ -115,7 +118,7 @@ module lvt_tlm_mapper #(
   wire ce_s0 = !valid_s0_reg || m_axis_tready;
 
   always @(posedge aclk) begin
-    if (ce_s0) valid_s0_reg <= s_axis_tvalid;
+    if (ce_s0) valid_s0_reg <= in_tvalid;
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) begin
       valid_s0_reg <= 1'b0;
