@@ -472,7 +472,7 @@ class Source:
 
 def load_source(path: str | Path) -> Source:
     """A generated design directory (out/<name>, with manifest.json and design.toml)."""
-    root = Path(path)
+    root = Path(path).resolve()
     man = root / "manifest.json"
     if not root.is_dir() or not man.is_file() or not (root / "design.toml").is_file():
         raise SpecError("design", str(path), "a generated design directory (out/<name> with manifest.json and "

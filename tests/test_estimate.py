@@ -232,3 +232,31 @@ def test_synth_only_16qam_folded_compares_maxlog(tmp_path: Path) -> None:
     assert refs["maxlog_demapper"]["flows"]["ice40"]["luts"] > 0
     assert refs["bruteforce_demapper"]["maxlog_lut_ratio"]["ice40"] > 0
     assert data["modules"]["demapper"]["algorithm"] == "folded" and "fmax_mhz" not in data["modules"]["demapper"]
+
+
+# --------------------------------------------------------------------------- automatic pipelining (model only)
+
+
+def test_target_clock_chooses_stages_and_latency() -> None:
+    from qamsmith import rtl, timing
+    spec = DesignSpec(name="p").with_settings({"constellation.order": 16, "interface.target_mhz": 50.0})
+    d = derive(spec)
+    m_stages, d_stages = timing.choose_stages(d)
+    man = rtl.manifest(d)["modules"]
+    assert man["demapper"]["latency"] == d_stages and man["mapper"]["latency"] == m_stages
+    # a lower target never needs more stages; the predicted Fmax of the choice meets the target
+    steps = [st.name for st in rtl.contexts(d)["demapper"]["steps"]]
+    assert timing.predicted_fmax(d, "demapper", steps, d_stages) >= 50.0
+    slow = DesignSpec(name="p").with_settings({"constellation.order": 16, "interface.target_mhz": 10.0})
+    assert timing.choose_stages(derive(slow))[1] <= d_stages
+
+
+def test_target_clock_unreachable_and_bad_values() -> None:
+    from qamsmith import SpecError, rtl
+    spec = DesignSpec(name="p").with_settings({"constellation.order": 256, "interface.target_mhz": 900.0})
+    with pytest.raises(SpecError, match=r"^interface.target_mhz = 900.0: at most \d+ MHz for this design on iCE40 HX8K"):
+        rtl.manifest(derive(spec))
+    with pytest.raises(SpecError, match="0 \\(off\\) or a clock from 1 to 1000 MHz"):
+        DesignSpec(name="p").with_settings({"interface.target_mhz": -5.0})
+    with pytest.raises(SpecError, match="a target clock chooses the stages"):
+        DesignSpec(name="p").with_settings({"interface.target_mhz": 100.0, "interface.demapper_stages": 2})

@@ -23,10 +23,11 @@
 //   interface.prefix = "lvt_tlm"
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
+//   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
 //   interface.skid = false
-// Content hash: b47a8cf2f2c5fdee
+// Content hash: 2c0682d29f74b7cb
 `timescale 1ns / 1ps
 `default_nettype none
 
