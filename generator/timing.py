@@ -17,7 +17,7 @@ from typing import Any, Sequence
 
 from .errors import SpecError
 
-#: Measured 2025-12-01 on iCE40 HX8K CT256, Yosys 0.23 (7ce5011c24b) synth_ice40, nextpnr-ice40 0.4-1+b1,
+#: Measured 2026-12-01 on iCE40 HX8K CT256, Yosys 0.23 (7ce5011c24b) synth_ice40, nextpnr-ice40 0.4-1+b1,
 #: seed 1, inside estimate's register wrapper (tests/benchmarks/bench_hardware.py --calibrate reruns it).
 #: Registered adders: w = 4, 8, 12, 16, 24, 32 bits -> 2.234, 2.738, 3.438, 3.942, 5.146, 6.350 ns;
 #: chains of n LUT4 levels: n = 1, 2, 4, 6 -> 1.90, 2.63, 5.45, 7.05 ns (seed 1);
@@ -25,7 +25,7 @@ from .errors import SpecError
 CALIBRATION: dict[str, Any] = {
     "part": "iCE40 HX8K CT256",
     "tools": "Yosys 0.23 (git sha1 7ce5011c24b); nextpnr-ice40 0.4-1+b1",
-    "date": "2025-12-01",
+    "date": "2026-12-01",
     #: clock-to-out + setup + one route (ns): the delay of a register-to-register hop
     "register_ns": 0.80,
     #: one LUT4 level with its route (ns)
