@@ -707,7 +707,13 @@ def write_report(src: Source, result: dict[str, Any]) -> tuple[Path, Path]:
     folder.mkdir(exist_ok=True)
     paths = (folder / "hardware.json", folder / "hardware.md")
     texts = (json.dumps(result, sort_keys=True, indent=2) + "\n", markdown(result))
-    for path, text in zip(paths, texts):
+    report_md = folder / "report.md"
+    if report_md.is_file():                          # `qamsmith analyze` wrote a report: put the figures in it
+        from .report import splice_hardware
+        paths_texts = [*zip(paths, texts), (report_md, splice_hardware(report_md.read_text(encoding="utf-8"), texts[1]))]
+    else:
+        paths_texts = list(zip(paths, texts))
+    for path, text in paths_texts:
         tmp = path.with_name(path.name + ".tmp")
         tmp.write_text(text, encoding="utf-8")
         os.replace(tmp, path)

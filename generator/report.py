@@ -242,7 +242,30 @@ def _ci(ci: Any, fmt: str = ".4f") -> str:
     return "n/a" if not ci else f"[{format(ci[0], fmt)}, {format(ci[1], fmt)}]"
 
 
-def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], widths: dict[str, Any] | None) -> str:
+#: files `qamsmith cost` writes into report/; `qamsmith analyze` keeps them when it rewrites the report
+HARDWARE_FILES = ("hardware.json", "hardware.md")
+_HW_BEGIN = "<!-- hardware: from qamsmith cost -->"
+_HW_END = "<!-- /hardware -->"
+
+
+def hardware_section(hardware_md: str | None) -> str:
+    """The report's hardware part: report/hardware.md between markers, or how to produce it."""
+    body = hardware_md.strip() if hardware_md else (
+        "## Hardware cost\n\nNot measured yet: `qamsmith cost <design>` runs Yosys and nextpnr and fills this in.")
+    return f"{_HW_BEGIN}\n{body}\n{_HW_END}\n"
+
+
+def splice_hardware(report_md: str, hardware_md: str) -> str:
+    """report.md with its hardware part replaced by hardware_md (used by `qamsmith cost`)."""
+    head, sep, rest = report_md.partition(_HW_BEGIN)
+    _, sep2, tail = rest.partition(_HW_END + "\n")
+    if not sep or not sep2:
+        return report_md.rstrip("\n") + "\n\n" + hardware_section(hardware_md)
+    return head + hardware_section(hardware_md) + tail
+
+
+def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], widths: dict[str, Any] | None,
+                    hardware_md: str | None = None) -> str:
     """The design-review text: what was simulated, what it cost, which widths to pick."""
     d, m = spec.demapper, spec.mapper
     k = doc["bits_per_symbol"]
@@ -315,6 +338,7 @@ def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], width
           f"({'within' if rec['within_budget'] else 'over'} budget); against float exact log-MAP "
           f"{_f(rec.get('loss_db_vs_exact'))} dB, float max-log {_f(rec.get('loss_db_vs_maxlog'))} dB. "
           f"The current spec: {_f(widths['current'].get('loss_db'))} dB against the reference.\n")
+    w(hardware_section(hardware_md))
     w("## Method\n")
     w(f"{doc['method']}. Es/N0 is the mean energy of the mapper's actual output codes over N0; the demapper "
       "input is quantized as the AGC/equalizer would deliver it (levels at odd multiples of 2^input_fraction codes, "
@@ -374,7 +398,13 @@ def write_report(spec: DesignSpec, target: Path, doc: dict[str, Any], widths: di
         (staging / "analysis.json").write_text(an.to_json(doc), encoding="utf-8")
         if widths:
             (staging / "widths.json").write_text(an.to_json(widths), encoding="utf-8")
-        (staging / "report.md").write_text(report_markdown(spec, design, doc, widths), encoding="utf-8")
+        hardware_md = None
+        for name in HARDWARE_FILES:                 # what `qamsmith cost` measured stays with the report
+            if (target / name).is_file():
+                shutil.copy2(target / name, staging / name)
+        if (staging / "hardware.md").is_file():
+            hardware_md = (staging / "hardware.md").read_text(encoding="utf-8")
+        (staging / "report.md").write_text(report_markdown(spec, design, doc, widths, hardware_md), encoding="utf-8")
         _swap(staging, target)
     except OSError as exc:
         shutil.rmtree(staging, ignore_errors=True)

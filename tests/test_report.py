@@ -124,3 +124,24 @@ def test_widths_command(cli, tmp_path: Path) -> None:
     (tmp_path / "file").write_text("in the way\n")
     blocked = cli("widths", "larkspur-telemetry-qpsk", "--json", str(tmp_path / "file" / "w.json"))
     assert blocked.code == 2 and "a writable location" in blocked.err
+
+
+def test_hardware_figures_join_the_report_and_survive_a_new_analysis(tmp_path: Path) -> None:
+    """`qamsmith cost` splices report/hardware.md into report.md; a later `analyze` keeps both."""
+    from qamsmith.cli import main
+    from qamsmith.report import splice_hardware
+
+    assert main(["analyze", "larkspur-telemetry-qpsk", "--out", str(tmp_path), "--snr", "0:3:6", *FAST]) == 0
+    report = tmp_path / "larkspur-telemetry-qpsk" / "report"
+    text = (report / "report.md").read_text(encoding="utf-8")
+    assert "Not measured yet: `qamsmith cost" in text
+    hw = "## Hardware cost\n\n| module | LUTs |\n| --- | ---: |\n| mapper | 17 |\n"
+    (report / "hardware.md").write_text(hw, encoding="utf-8")
+    (report / "hardware.json").write_text("{}\n", encoding="utf-8")
+    spliced = splice_hardware(text, hw)
+    assert "| mapper | 17 |" in spliced and "Not measured yet" not in spliced
+    assert splice_hardware(spliced, hw) == spliced          # idempotent: one hardware part, replaced in place
+    assert main(["analyze", "larkspur-telemetry-qpsk", "--out", str(tmp_path), "--snr", "0:3:6", *FAST]) == 0
+    assert (report / "hardware.md").read_text(encoding="utf-8") == hw
+    assert (report / "hardware.json").read_text(encoding="utf-8") == "{}\n"
+    assert "| mapper | 17 |" in (report / "report.md").read_text(encoding="utf-8")
