@@ -140,6 +140,19 @@ def test_ieee80211_encoding_tables(order: int) -> None:
         assert const.points[label] == expected, f"label {label} bits {b}"
 
 
+@pytest.mark.parametrize("order", sorted(IEEE_TABLES), ids=lambda o: f"{_id(o)}-gray-is-ieee80211-17.3.5.8")
+def test_gray_orientation_matches_the_ieee80211_tables(order: int) -> None:
+    """`gray` (binary-reflected Gray code of the level index, label 0 at the most negative level, I bits
+    first) reproduces the IEEE 802.11 17.3.5.8 tables (from memory): the two names give one mapping."""
+    k = bits_per_symbol(order)
+    const = named(order, "gray")
+    table = IEEE_TABLES[order]
+    for label, row in enumerate(label_bits(np.arange(order), k)):
+        b = tuple(map(int, row))
+        expected = complex(table[b], 0) if order == 2 else complex(table[b[: k // 2]], table[b[k // 2:]])
+        assert const.points[label] == expected, f"label {label} bits {b}"
+
+
 @pytest.mark.parametrize("order", ORDERS, ids=lambda o: f"{_id(o)}-ieee80211-kmod")
 def test_ieee80211_normalization_kmod(order: int) -> None:
     """IEEE 802.11 K_MOD (from memory): the normalized point is K_MOD times the table's integer point."""
