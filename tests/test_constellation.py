@@ -125,10 +125,15 @@ IEEE_KMOD = {2: 1.0, 4: 1 / math.sqrt(2), 16: 1 / math.sqrt(10), 64: 1 / math.sq
              256: 1 / math.sqrt(170), 1024: 1 / math.sqrt(682), 4096: 1 / math.sqrt(2730)}
 
 
+@pytest.mark.parametrize("labeling", ["ieee-802.11", "gray"])
 @pytest.mark.parametrize("order", sorted(IEEE_TABLES), ids=lambda o: f"{_id(o)}-ieee80211-17.3.5.8")
-def test_ieee80211_encoding_tables(order: int) -> None:
-    """IEEE 802.11 17.3.5.8 tables (from memory): first half of the bits on I, the rest on Q; 0 negative."""
-    const = named(order, "ieee-802.11")
+def test_ieee80211_encoding_tables(order: int, labeling: str) -> None:
+    """IEEE 802.11 17.3.5.8 tables (from memory): first half of the bits on I, the rest on Q; 0 negative.
+
+    `gray` (binary-reflected Gray code of the level index, label 0 at the most negative level, I bits
+    first) reproduces them too: the two names give one mapping at these orders.
+    """
+    const = named(order, labeling)
     k = bits_per_symbol(order)
     table = IEEE_TABLES[order]
     for label, row in enumerate(label_bits(np.arange(order), k)):
@@ -137,19 +142,6 @@ def test_ieee80211_encoding_tables(order: int) -> None:
             expected = complex(table[b], 0)
         else:
             expected = complex(table[b[: k // 2]], table[b[k // 2:]])
-        assert const.points[label] == expected, f"label {label} bits {b}"
-
-
-@pytest.mark.parametrize("order", sorted(IEEE_TABLES), ids=lambda o: f"{_id(o)}-gray-is-ieee80211-17.3.5.8")
-def test_gray_orientation_matches_the_ieee80211_tables(order: int) -> None:
-    """`gray` (binary-reflected Gray code of the level index, label 0 at the most negative level, I bits
-    first) reproduces the IEEE 802.11 17.3.5.8 tables (from memory): the two names give one mapping."""
-    k = bits_per_symbol(order)
-    const = named(order, "gray")
-    table = IEEE_TABLES[order]
-    for label, row in enumerate(label_bits(np.arange(order), k)):
-        b = tuple(map(int, row))
-        expected = complex(table[b], 0) if order == 2 else complex(table[b[: k // 2]], table[b[k // 2:]])
         assert const.points[label] == expected, f"label {label} bits {b}"
 
 
