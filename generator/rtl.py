@@ -103,6 +103,8 @@ class Step:
     name: str
     produces: dict[str, tuple[int, bool]]
     consumes: tuple[str, ...]
+    #: per-step data the template lays out (adder-tree nodes of a product step)
+    info: dict[str, Any] = field(default_factory=dict)
     #: filled by _pipeline: source name of every consumed signal, target name of every product
     inp: dict[str, str] = field(default_factory=dict)
     out: dict[str, str] = field(default_factory=dict)
@@ -270,7 +272,8 @@ def _output_stage(design: Any, mag_width: int) -> dict[str, Any]:
     pmax = (1 << pw) - 1
     lw = d.llr_width
     o: dict[str, Any] = {"pw": pw, "shift": sh, "rounding": d.rounding, "lw": lw,
-                         "max": vlit((1 << (lw - 1)) - 1, lw - 1, False)}
+                         "max": vlit((1 << (lw - 1)) - 1, lw - 1, False),
+                         "pmax": vlit((1 << (lw - 1)) - 1, lw, False), "nmax": vlit((1 << lw) - (1 << (lw - 1)) + 1, lw, False)}
     if design.scale_format:
         o["sw"] = design.scale_format.width
     if sh <= 0:
@@ -288,8 +291,19 @@ def _output_stage(design: Any, mag_width: int) -> dict[str, Any]:
         o["empty"] = sumw <= sh  # every product rounds to zero
         if not o["empty"]:
             o["vw"] = sumw - sh
+        # half-even: the added constant is 2^(sh-1) - 1 + p[sh], a mux of two constants by p[sh]
+        o["half_val"] = max(half - (1 if d.rounding == "half-even" else 0), 0)
+        o["half_odd"] = vlit(o["half_val"] + 1, sumw, False)
     o["sat"] = o["vw"] > lw - 1
     o["vext"] = (lw - 1) - o["vw"] if not o["sat"] else 0
+    if o["sat"] and o["mode"] != "left" and not o["empty"]:
+        # saturation compare in parallel with the rounding add: rsum >= 2^(lw-1+sh) <=> p >= thr
+        top = 1 << (lw - 1 + sh)
+        cw = pw + 1
+        o["cw"] = cw
+        # p >= thr is the carry out of p + (2^cw - thr): a constant add, no inverter in front
+        o["thr"] = vlit((1 << cw) - min(top - o["half_val"], (1 << cw) - 1), cw + 1, False)
+        o["thr_odd"] = vlit((1 << cw) - min(top - o["half_val"] - 1, (1 << cw) - 1), cw + 1, False)
     return o
 
 
@@ -333,23 +347,25 @@ def _demapper_context(design: Any) -> dict[str, Any]:
             ahw = bits_for_range(-((L - 1) << f), (L - 1) << f)[0]
             a.update(ahw=ahw, resw=rw, diffw=max(W, ahw) + 1)
             n_hat, e = decide(ad, y, f)
+            if L != 1 << m:
+                raise ValueError(f"axis of {L} levels with {m} bits: the decision slices need L = 2^m")
+            s_all = y + (L << f)
+            # decide without serial adders: the clamps are known from the input range
+            a["clamp_lo"] = bool(np.any(s_all < 0))
+            a["clamp_hi"] = bool(np.any((s_all >> (f + 1)) > L - 1))
+            if a["clamp_hi"] and not a["over"]:
+                raise ValueError("high clamp without overflow bits")
+            a["cl"] = vlit((L - 1) << f, a["diffw"], False)
+            dmask = (1 << a["diffw"]) - 1
+            a["mcl"] = vlit((-((L - 1) << f)) & dmask, a["diffw"], False)
+            hw = bits_for_range(ifmt.min_code - (L << f), ifmt.max_code - (L << f))[0]
+            a["hw"] = hw
+            a["mlc"] = vlit((-(L << f)) & ((1 << hw) - 1), hw, False)
             bits = []
             for j in range(m):
-                b: dict[str, Any] = {"j": j, "label_bit": ax.label_bits[j]}
+                b: dict[str, Any] = {"j": j, "label_bit": ax.label_bits[j], "id": f"{name}{j}"}
                 if alg == "maxlog":
-                    comp = ad.competitor[j]
-                    dnw = design.widths["competitor"][0]
-                    dn = comp[n_hat, (e < 0).astype(np.int64)]
-                    t = (dn << f) - e
-                    tw = bits_for_range(int(t.min()), int(t.max()))[0]
-                    xw = max(mw + 1, dnw, tw)
-                    txw = max(dnw + f, rw) + 1
-                    if ad.uses_sign[j]:
-                        cases = [(vlit((n << 1) | s, m + 1, False), vlit(int(comp[n, s]), dnw))
-                                 for n in range(L) for s in (0, 1)]
-                    else:
-                        cases = [(vlit(n, m, False), vlit(int(comp[n, 0]), dnw)) for n in range(L)]
-                    b.update(uses_sign=ad.uses_sign[j], dnw=dnw, tw=tw, xw=xw, txw=txw, cases=cases)
+                    b.update(_maxlog_bit(ad, name, j, n_hat, e, f, rw, mw))
                 elif alg == "folded":
                     b.update(inverted=ad.inverted[j], const=vlit((1 << (m - j)) << f, W + 1))
                 bits.append(b)
@@ -361,8 +377,7 @@ def _demapper_context(design: Any) -> dict[str, Any]:
         ctx["mw"] = mw
         names = [a["name"] for a in axes]
         if alg == "hard":
-            steps.append(Step("decide", {f"n_{n}": (a["m"], False) for n, a in zip(names, axes)},
-                              tuple(f"y_{n}" for n in names)))
+            steps += _decide_steps(axes, names, rw, f, with_residual=False)
             steps.append(Step("label", {"hard": (k, False)}, tuple(f"n_{n}" for n in names)))
         else:
             mags = {}
@@ -371,12 +386,7 @@ def _demapper_context(design: Any) -> dict[str, Any]:
                     mags[f"mag_{a['name']}{b['j']}"] = (mw, False)
                     mags[f"neg_{a['name']}{b['j']}"] = (1, False)
             if alg == "maxlog":
-                dec = {}
-                for a in axes:
-                    dec[f"n_{a['name']}"] = (a["m"], False)
-                    dec[f"e_{a['name']}"] = (rw, True)
-                steps.append(Step("decide", dec, tuple(f"y_{n}" for n in names)))
-                steps.append(Step("metric", mags, tuple(dec)))
+                steps += _maxlog_steps(axes, names, rw, mw, f)
             else:
                 steps.append(Step("fold", mags, tuple(f"y_{n}" for n in names)))
     else:
@@ -426,7 +436,13 @@ def _demapper_context(design: Any) -> dict[str, Any]:
             src = tuple(f"p_{n}" for n in ctx["llrs"])
         else:
             src = tuple(mag_names)
-        steps.append(Step("output", {f"llr_{n}": (lw, True) for n in ctx["llrs"]}, src + tuple(neg_names)))
+        rnd: dict[str, tuple[int, bool]] = {}
+        for n in ctx["llrs"]:
+            rnd[f"v_{n}"] = (lw - 1, False)
+            if ctx["out"]["sat"]:
+                rnd[f"ovf_{n}"] = (1, False)
+        steps.append(Step("round", rnd, src))
+        steps.append(Step("sign", {f"llr_{n}": (lw, True) for n in ctx["llrs"]}, tuple(rnd) + tuple(neg_names)))
         outputs = tuple(f"llr_{n}" for n in ctx["llrs"])
     else:
         outputs = ("hard",)
@@ -435,6 +451,191 @@ def _demapper_context(design: Any) -> dict[str, Any]:
     pipe = _pipeline(inputs, steps, outputs, _stages(design, "demapper", steps), carried)
     ctx.update(steps=steps, pipe=pipe, outputs=outputs)
     return ctx
+
+
+def _maxlog_bit(ad: Any, name: str, j: int, n_hat: np.ndarray, e: np.ndarray, f: int, rw: int, mw: int) -> dict[str, Any]:
+    """Competitor tables and the shift-add multiply of one axis bit: R = |dn| * u, u = |(dn << f) - e|.
+
+    u = (|dn| << f) - sign(dn) * e >= 0, and R = sum of u << i over the bits i of |dn|. Bits of
+    |dn| that are always 0 make no partial product; a bit that is always 1 takes u itself, the
+    others a gated copy w_i = (|dn| bit i) ? u : 0, computed as (g_i ? |dn| : 0) << f +- (g_i ? e : 0)
+    with the gates taken from the tables one step earlier (no gate in front of an adder).
+    Every width is the exact range over every input code (n_hat, e of the whole input range).
+    """
+    ax = ad.axis
+    L, m = ax.levels, ax.bits
+    ident = f"{name}{j}"
+    comp = ad.competitor[j]
+    table = comp if ad.uses_sign[j] else comp[:, :1]
+    adn_t = np.abs(table)
+    if np.any(adn_t == 0):
+        raise ValueError("a competitor offset of zero levels")
+    aw = max(int(adn_t.max()).bit_length(), 1)
+    or_bits = int(np.bitwise_or.reduce(adn_t.ravel()))
+    and_bits = int(np.bitwise_and.reduce(adn_t.ravel()))
+    pos_t = table > 0
+    dn = comp[n_hat, (e < 0).astype(np.int64)]
+    adn = np.abs(dn)
+    t = (dn << f) - e
+    u = np.where(dn > 0, t, -t)
+    if np.any(u < 0):
+        raise ValueError("max-log metric with a negative distance term")
+    uw = bits_for_range(0, int(u.max()))[0]
+    key_w = m + 1 if ad.uses_sign[j] else m
+    cols = (0, 1) if ad.uses_sign[j] else (0,)
+
+    def cases(fn, width: int) -> list[tuple[str, str]]:
+        out = []
+        for n in range(L):
+            for s in cols:
+                k_ = vlit((n << 1) | s, m + 1, False) if ad.uses_sign[j] else vlit(n, m, False)
+                out.append((k_, vlit(int(fn(int(comp[n, s]))), width, False)))
+        return out
+
+    def dshp(d: int) -> int:
+        """(|dn| << f) + (dn > 0): with ~e in place of -e - 1, u = dshp + (dn > 0 ? ~e : e)."""
+        return (abs(d) << f) + int(d > 0)
+
+    dp_t = np.vectorize(dshp)(table)
+    dpw = bits_for_range(0, int(dp_t.max()))[0]
+    leaves = []
+    for i in range(aw):
+        if not (or_bits >> i) & 1:
+            continue
+        gated = not (and_bits >> i) & 1
+        leaf: dict[str, Any] = {"i": i, "gated": gated, "src": f"w_{ident}_{i}" if gated else f"u_{ident}"}
+        if gated:
+            leaf["gate_cases"] = cases(lambda d, i=i: (abs(d) >> i) & 1, 1)
+            leaf["ga_cases"] = cases(lambda d, i=i: dshp(d) if (abs(d) >> i) & 1 else 0, dpw)
+        leaves.append(leaf)
+    need_u = any(not lf["gated"] for lf in leaves)
+    adn_var = len({int(v) for v in adn_t.ravel()}) > 1
+    pos_var = bool(pos_t.any() and not pos_t.all())
+    # adder tree over the partial products u << i, one register per level
+    vals = {("leaf", lf["i"]): ((adn >> lf["i"]) & 1) * (u << lf["i"]) for lf in leaves}
+    level: list[tuple] = [("leaf", lf["i"]) for lf in leaves]
+    tree: list[list[dict[str, Any]]] = []
+    while len(level) > 1:
+        ops, nxt = [], []
+        for x in range(0, len(level), 2):
+            args = level[x:x + 2]
+            node = f"acc_{ident}_{len(tree)}_{x // 2}"
+            v = sum(vals[a_] for a_ in args)
+            vals[("node", node)] = v
+            ops.append({"dst": node, "w": bits_for_range(0, int(np.max(v)))[0], "args": args, "root": False})
+            nxt.append(("node", node))
+        tree.append(ops)
+        level = nxt
+    out: dict[str, Any] = {
+        "uses_sign": ad.uses_sign[j], "key_w": key_w, "aw": aw, "uw": uw,
+        "xw": max(dpw, rw + 1) + 1, "dpw": dpw,
+        "dp_var": need_u and len({int(v) for v in dp_t.ravel()}) > 1, "dp_const_val": int(dp_t.ravel()[0]),
+        "dp_cases": cases(dshp, dpw),
+        "adn_var": adn_var,
+        "adn_const": vlit(int(adn_t.ravel()[0]), aw, False), "adn_const_val": int(adn_t.ravel()[0]),
+        "pos_var": pos_var, "pos_const": bool(pos_t.all()),
+        "adn_cases": cases(abs, aw), "pos_cases": cases(lambda d: int(d > 0), 1), "tree": tree,
+        "leaves": leaves, "leaf_by_i": {lf["i"]: lf for lf in leaves}, "depth": len(tree),
+        "need_u": need_u, "se": need_u and (pos_var or bool(pos_t.all())),
+        "pos_reg": pos_var and (need_u or any(lf["gated"] for lf in leaves)),
+    }
+    if tree:
+        tree[-1][0]["root"] = True
+        tree[-1][0]["w"] = mw
+    else:
+        if leaves[0]["gated"]:
+            raise ValueError("a single gated partial product")
+        out["single"] = leaves[0]["i"]
+    return out
+
+
+def _decide_steps(axes: list[dict[str, Any]], names: list[str], rw: int, f: int, with_residual: bool) -> list[Step]:
+    """range (adders of y and constants, side by side) and decide (the clamp muxes, no adder)."""
+    rng: dict[str, tuple[int, bool]] = {}
+    dec: dict[str, tuple[int, bool]] = {}
+    for a in axes:
+        n = a["name"]
+        if a["clamp_lo"]:
+            rng[f"lo_{n}"] = (1, False)
+        if a["clamp_hi"]:
+            rng[f"hs_{n}"] = (1, False)
+        rng[f"nm_{n}"] = (a["m"], False)
+        dec[f"n_{n}"] = (a["m"], False)
+        if with_residual:
+            rng[f"yl_{n}"] = (f + 1, False)
+            if a["clamp_lo"]:
+                rng[f"elo_{n}"] = (rw, False)
+            if a["clamp_hi"]:
+                rng[f"ehi_{n}"] = (rw, False)
+            dec[f"e_{n}"] = (rw, True)
+    return [Step("range", rng, tuple(f"y_{n}" for n in names)), Step("decide", dec, tuple(rng))]
+
+
+def _maxlog_steps(axes: list[dict[str, Any]], names: list[str], rw: int, mw: int, f: int) -> list[Step]:
+    """range, decide, competitor, select, residual, product/accumulate (one per adder-tree level).
+
+    Each is about one adder of the internal width or two LUT levels (see timing.step_delay).
+    """
+    steps = _decide_steps(axes, names, rw, f, with_residual=True)
+    dec = steps[-1].produces
+    comp: dict[str, tuple[int, bool]] = {}
+    for a in axes:
+        for b in a["bits"]:
+            if b["dp_var"]:
+                comp[f"dp_{b['id']}"] = (b["dpw"], False)
+            if b["pos_reg"]:
+                comp[f"pos_{b['id']}"] = (1, False)
+            for lf in b["leaves"]:
+                if lf["gated"]:
+                    comp[f"g_{b['id']}_{lf['i']}"] = (1, False)
+                    comp[f"ga_{b['id']}_{lf['i']}"] = (b["dpw"], False)
+            comp[f"neg_{b['id']}"] = (1, False)
+    steps.append(Step("competitor", comp, tuple(dec)))
+    sel: dict[str, tuple[int, bool]] = {}
+    sel_in: list[str] = []
+    for a in axes:
+        for b in a["bits"]:
+            if b["se"]:
+                sel[f"se_{b['id']}"] = (rw + 1, True)
+            for lf in b["leaves"]:
+                if lf["gated"]:
+                    sel[f"gs_{b['id']}_{lf['i']}"] = (rw + 1, True)
+                    sel_in.append(f"g_{b['id']}_{lf['i']}")
+            if b["pos_reg"]:
+                sel_in.append(f"pos_{b['id']}")
+    if sel:
+        steps.append(Step("select", sel, tuple(sel_in) + tuple(f"e_{n}" for n in names)))
+    res: dict[str, tuple[int, bool]] = {}
+    res_in: list[str] = [f"e_{a['name']}" for a in axes
+                         if any(b["need_u"] and not b["se"] for b in a["bits"])] + list(sel)
+    for a in axes:
+        for b in a["bits"]:
+            if "single" in b:
+                res[f"mag_{b['id']}"] = (mw, False)
+            elif b["need_u"]:
+                res[f"u_{b['id']}"] = (b["uw"], False)
+            for lf in b["leaves"]:
+                if lf["gated"]:
+                    res[f"w_{b['id']}_{lf['i']}"] = (b["uw"], False)
+                    res_in.append(f"ga_{b['id']}_{lf['i']}")
+            if b["dp_var"]:
+                res_in.append(f"dp_{b['id']}")
+    steps.append(Step("residual", res, tuple(res_in)))
+    depth = max((b["depth"] for a in axes for b in a["bits"]), default=0)
+    for lvl in range(depth):
+        prod: dict[str, tuple[int, bool]] = {}
+        cons: list[str] = []
+        for a in axes:
+            for b in a["bits"]:
+                if lvl >= b["depth"]:
+                    continue
+                for op in b["tree"][lvl]:
+                    prod[f"mag_{b['id']}" if op["root"] else op["dst"]] = (op["w"], False)
+                    for arg in op["args"]:
+                        cons.append(b["leaf_by_i"][arg[1]]["src"] if arg[0] == "leaf" else arg[1])
+        steps.append(Step("product" if lvl == 0 else "accumulate", prod, tuple(dict.fromkeys(cons)),
+                          info={"level": lvl}))
+    return steps
 
 
 def _tree(prefix: str, leaves: list[int]) -> dict[str, Any]:

@@ -1,7 +1,8 @@
 """Automatic pipelining: a delay model of the mapper and demapper steps on the iCE40 part.
 
 `interface.target_mhz > 0` makes the generator choose the register stages: each logical step
-of rtl.py (decide, metric, scale, output, ...) gets a delay from the widths it works on, the
+of rtl.py (range, decide, competitor, select, residual, product, accumulate, scale, round, sign,
+...) gets a delay from the widths it works on, the
 register plan of `rtl.place_registers` for s stages groups the steps into register-to-register
 segments, and the smallest s whose slowest segment meets the target wins. A target no plan
 meets is refused with the best Fmax the model predicts.
@@ -79,19 +80,36 @@ def step_delay(design: Any, role: str, step: str) -> float:
     m = max((ad.axis.bits for ad in design.axes), default=design.bits)
     mag = w.get("magnitude", (iw + 1, False))[0]
     res = w.get("residual", (iw + 1, False))[0]
+    if step == "range":
+        # y + (L << f), y - (L << f) and y +- ((L-1) << f): constant adders side by side
+        return _add(iw + 2)
     if step == "decide":
-        return _add(iw + 1) + _lut(1) + _add(res)
-    if step == "metric":
-        comp = w.get("competitor", (2, True))[0]
-        return _lut(_levels(m + 1)) + _add(res + 1) + _mul(comp, max(mag, res + 1))
+        # the clamp muxes of n_hat and e (no adder)
+        return _lut(2)
+    if step == "competitor":
+        # the |dn|, side and gate case tables of (n_hat, sign e)
+        return _lut(_levels(m + 1))
+    if step == "select":
+        # -sign(dn) * e and its gated copies: one LUT level
+        return _lut(1)
+    if step == "residual":
+        # u = (|dn| << f) - sign(dn) * e: one adder
+        return _add(res + m + 1)
+    if step in ("product", "accumulate"):
+        # one level of the adder tree over the partial products u << i
+        return _add(mag)
     if step == "fold":
         return m * (_add(iw + 1) + _lut(1))
     if step == "scale":
         sw = design.scale_format.width if design.scale_format else 1
         return _mul(sw, mag)
-    if step == "output":
+    if step == "round":
+        # the rounding add and the saturation compare (a constant add) side by side
         pw = w.get("product", (mag, False))[0]
-        return _add(pw + 1) + _lut(1) + _add(d.llr_width)
+        return _add(pw + 2)
+    if step == "sign":
+        # -v beside v, then one mux of v, -v and +-max
+        return _add(d.llr_width) + _lut(1)
     if step == "label":
         return _lut(_levels(m))
     if step == "distance":

@@ -36,7 +36,7 @@
 //        6 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^6 codes.
 // Output: 8 signed 6-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
 //         saturated symmetrically to +-31.
-// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 3 cycles, one symbol per clock.
+// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 9 cycles, one symbol per clock.
 module lvt_bh256_demapper (
   // clock and reset
   input  wire           aclk,
@@ -65,50 +65,103 @@ module lvt_bh256_demapper (
   wire                     in_tlast = s_axis_tlast;
 
 
-  // ---------------------------------------------------------------- step 1: decide
-  // I axis (16 levels): n = clamp((y + (L << 6)) >>> (6 + 1), 0, L - 1)
+  // ---------------------------------------------------------------- step 1: range
+  // I axis (16 levels): n = clamp((y + (L << 6)) >>> (6 + 1), 0, L - 1); the adders side by side
   wire [12:0] sum_i = {{1{in_y_i[11]}}, in_y_i} + 13'd1024;
-  wire [3:0] nhat_i = sum_i[12] ? 4'd0 :
-                        (|sum_i[11:11]) ? 4'd15 :
-                        sum_i[10:7];
+  wire [3:0] nm_i_0_next = sum_i[10:7];
+  wire lo_i_0_next = sum_i[12];
 
-  wire [3:0] n_i_0_next = nhat_i;
-  // residual e = y - (2n - (L-1)) * 2^6
-  wire [4:0] alev_i = { nhat_i, 1'b1 } - 5'd16;
-  wire [10:0] ahat_i = { alev_i, 6'd0 };
-  wire [12:0] diff_i = {{1{in_y_i[11]}}, in_y_i} - {{2{ahat_i[10]}}, ahat_i};
-  wire [11:0] e_i_0_next = diff_i[11:0];
-  // Q axis (16 levels): n = clamp((y + (L << 6)) >>> (6 + 1), 0, L - 1)
+  // y >= L << 6: the high clamp
+  wire [12:0] hsum_i = {{1{in_y_i[11]}}, in_y_i} + 13'd7168;
+  wire hs_i_0_next = hsum_i[12];
+
+  // residual inside the levels: the low 7 bits of y (those of the sum, L being even) minus 2^6;
+  // at a clamp y +- (L-1) * 2^6
+  wire [6:0] yl_i_0_next = in_y_i[6:0];
+  wire [12:0] elo_i = {{1{in_y_i[11]}}, in_y_i} + 13'd960;
+  wire [11:0] elo_i_0_next = elo_i[11:0];
+  wire [12:0] ehi_i = {{1{in_y_i[11]}}, in_y_i} + 13'd7232;
+  wire [11:0] ehi_i_0_next = ehi_i[11:0];
+  // Q axis (16 levels): n = clamp((y + (L << 6)) >>> (6 + 1), 0, L - 1); the adders side by side
   wire [12:0] sum_q = {{1{in_y_q[11]}}, in_y_q} + 13'd1024;
-  wire [3:0] nhat_q = sum_q[12] ? 4'd0 :
-                        (|sum_q[11:11]) ? 4'd15 :
-                        sum_q[10:7];
+  wire [3:0] nm_q_0_next = sum_q[10:7];
+  wire lo_q_0_next = sum_q[12];
 
-  wire [3:0] n_q_0_next = nhat_q;
-  // residual e = y - (2n - (L-1)) * 2^6
-  wire [4:0] alev_q = { nhat_q, 1'b1 } - 5'd16;
-  wire [10:0] ahat_q = { alev_q, 6'd0 };
-  wire [12:0] diff_q = {{1{in_y_q[11]}}, in_y_q} - {{2{ahat_q[10]}}, ahat_q};
-  wire [11:0] e_q_0_next = diff_q[11:0];
+  // y >= L << 6: the high clamp
+  wire [12:0] hsum_q = {{1{in_y_q[11]}}, in_y_q} + 13'd7168;
+  wire hs_q_0_next = hsum_q[12];
 
-  // register stage 0 (after step "decide")
+  // residual inside the levels: the low 7 bits of y (those of the sum, L being even) minus 2^6;
+  // at a clamp y +- (L-1) * 2^6
+  wire [6:0] yl_q_0_next = in_y_q[6:0];
+  wire [12:0] elo_q = {{1{in_y_q[11]}}, in_y_q} + 13'd960;
+  wire [11:0] elo_q_0_next = elo_q[11:0];
+  wire [12:0] ehi_q = {{1{in_y_q[11]}}, in_y_q} + 13'd7232;
+  wire [11:0] ehi_q_0_next = ehi_q[11:0];
+
+  // register stage 0 (after step "range")
   reg  tlast_s0_reg = 1'd0;
-  reg  [3:0] n_i_s0_reg = 4'd0;
-  reg  [11:0] e_i_s0_reg = 12'd0;
-  reg  [3:0] n_q_s0_reg = 4'd0;
-  reg  [11:0] e_q_s0_reg = 12'd0;
+  reg  lo_i_s0_reg = 1'd0;
+  reg  hs_i_s0_reg = 1'd0;
+  reg  [3:0] nm_i_s0_reg = 4'd0;
+  reg  [6:0] yl_i_s0_reg = 7'd0;
+  reg  [11:0] elo_i_s0_reg = 12'd0;
+  reg  [11:0] ehi_i_s0_reg = 12'd0;
+  reg  lo_q_s0_reg = 1'd0;
+  reg  hs_q_s0_reg = 1'd0;
+  reg  [3:0] nm_q_s0_reg = 4'd0;
+  reg  [6:0] yl_q_s0_reg = 7'd0;
+  reg  [11:0] elo_q_s0_reg = 12'd0;
+  reg  [11:0] ehi_q_s0_reg = 12'd0;
   always @(posedge aclk) begin
     if (ce_s0) begin
       tlast_s0_reg <= in_tlast;
-      n_i_s0_reg <= n_i_0_next;
-      e_i_s0_reg <= e_i_0_next;
-      n_q_s0_reg <= n_q_0_next;
-      e_q_s0_reg <= e_q_0_next;
+      lo_i_s0_reg <= lo_i_0_next;
+      hs_i_s0_reg <= hs_i_0_next;
+      nm_i_s0_reg <= nm_i_0_next;
+      yl_i_s0_reg <= yl_i_0_next;
+      elo_i_s0_reg <= elo_i_0_next;
+      ehi_i_s0_reg <= ehi_i_0_next;
+      lo_q_s0_reg <= lo_q_0_next;
+      hs_q_s0_reg <= hs_q_0_next;
+      nm_q_s0_reg <= nm_q_0_next;
+      yl_q_s0_reg <= yl_q_0_next;
+      elo_q_s0_reg <= elo_q_0_next;
+      ehi_q_s0_reg <= ehi_q_0_next;
     end
   end
 
 
-  // ---------------------------------------------------------------- step 2: metric
+  // ---------------------------------------------------------------- step 2: decide
+  // I axis: the clamp muxes
+  wire [3:0] n_i_1_next = lo_i_s0_reg ? 4'd0 : !hs_i_s0_reg ? 4'd15 : nm_i_s0_reg;
+  wire [6:0] emid_i = { !yl_i_s0_reg[6], yl_i_s0_reg[5:0] };
+  wire [11:0] emx_i = {{5{emid_i[6]}}, emid_i};
+  wire [11:0] e_i_1_next = lo_i_s0_reg ? elo_i_s0_reg : !hs_i_s0_reg ? ehi_i_s0_reg : emx_i;
+  // Q axis: the clamp muxes
+  wire [3:0] n_q_1_next = lo_q_s0_reg ? 4'd0 : !hs_q_s0_reg ? 4'd15 : nm_q_s0_reg;
+  wire [6:0] emid_q = { !yl_q_s0_reg[6], yl_q_s0_reg[5:0] };
+  wire [11:0] emx_q = {{5{emid_q[6]}}, emid_q};
+  wire [11:0] e_q_1_next = lo_q_s0_reg ? elo_q_s0_reg : !hs_q_s0_reg ? ehi_q_s0_reg : emx_q;
+
+  // register stage 1 (after step "decide")
+  reg  tlast_s1_reg = 1'd0;
+  reg  [3:0] n_i_s1_reg = 4'd0;
+  reg  [11:0] e_i_s1_reg = 12'd0;
+  reg  [3:0] n_q_s1_reg = 4'd0;
+  reg  [11:0] e_q_s1_reg = 12'd0;
+  always @(posedge aclk) begin
+    if (ce_s1) begin
+      tlast_s1_reg <= tlast_s0_reg;
+      n_i_s1_reg <= n_i_1_next;
+      e_i_s1_reg <= e_i_1_next;
+      n_q_s1_reg <= n_q_1_next;
+      e_q_s1_reg <= e_q_1_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 3: competitor
   // I axis: label of the decided level gives each LLR's sign
   function [3:0] label_i;
     input [3:0] n;
@@ -134,131 +187,618 @@ module lvt_bh256_demapper (
       endcase
     end
   endfunction
-  wire [3:0] lab_i = label_i(n_i_s0_reg);
-  // axis bit 0 (label bit b0): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_i0;
+  wire [3:0] lab_i = label_i(n_i_s1_reg);
+  // axis bit 0 (label bit b0): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  function right_i0;
     input [3:0] key;
     begin
-      competitor_i0 = 5'd0;
+      right_i0 = 1'd0;
       case (key)
-        4'd0: competitor_i0 = 5'sd8;
-        4'd1: competitor_i0 = 5'sd7;
-        4'd2: competitor_i0 = 5'sd6;
-        4'd3: competitor_i0 = 5'sd5;
-        4'd4: competitor_i0 = 5'sd4;
-        4'd5: competitor_i0 = 5'sd3;
-        4'd6: competitor_i0 = 5'sd2;
-        4'd7: competitor_i0 = 5'sd1;
-        4'd8: competitor_i0 = -5'sd1;
-        4'd9: competitor_i0 = -5'sd2;
-        4'd10: competitor_i0 = -5'sd3;
-        4'd11: competitor_i0 = -5'sd4;
-        4'd12: competitor_i0 = -5'sd5;
-        4'd13: competitor_i0 = -5'sd6;
-        4'd14: competitor_i0 = -5'sd7;
-        4'd15: competitor_i0 = -5'sd8;
+        4'd0: right_i0 = 1'd1;
+        4'd1: right_i0 = 1'd1;
+        4'd2: right_i0 = 1'd1;
+        4'd3: right_i0 = 1'd1;
+        4'd4: right_i0 = 1'd1;
+        4'd5: right_i0 = 1'd1;
+        4'd6: right_i0 = 1'd1;
+        4'd7: right_i0 = 1'd1;
+        4'd8: right_i0 = 1'd0;
+        4'd9: right_i0 = 1'd0;
+        4'd10: right_i0 = 1'd0;
+        4'd11: right_i0 = 1'd0;
+        4'd12: right_i0 = 1'd0;
+        4'd13: right_i0 = 1'd0;
+        4'd14: right_i0 = 1'd0;
+        4'd15: right_i0 = 1'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_i0 = competitor_i0(n_i_s0_reg);
-  wire [12:0] tfull_i0 = { {{2{dn_i0[4]}}, dn_i0}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
-  wire [11:0] t_i0 = tfull_i0[11:0];
-  wire [14:0] r_i0 = $signed({{10{dn_i0[4]}}, dn_i0}) * $signed({{3{t_i0[11]}}, t_i0});
-  wire [13:0] mag_i0_1_next = r_i0[13:0];
-  wire neg_i0_1_next = lab_i[3];
-  // axis bit 1 (label bit b2): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_i1;
+  wire pos_i0_2_next = right_i0(n_i_s1_reg);
+
+  function gate_i0_0;
     input [3:0] key;
     begin
-      competitor_i1 = 5'd0;
+      gate_i0_0 = 1'd0;
       case (key)
-        4'd0: competitor_i1 = 5'sd4;
-        4'd1: competitor_i1 = 5'sd3;
-        4'd2: competitor_i1 = 5'sd2;
-        4'd3: competitor_i1 = 5'sd1;
-        4'd4: competitor_i1 = -5'sd1;
-        4'd5: competitor_i1 = -5'sd2;
-        4'd6: competitor_i1 = -5'sd3;
-        4'd7: competitor_i1 = -5'sd4;
-        4'd8: competitor_i1 = 5'sd4;
-        4'd9: competitor_i1 = 5'sd3;
-        4'd10: competitor_i1 = 5'sd2;
-        4'd11: competitor_i1 = 5'sd1;
-        4'd12: competitor_i1 = -5'sd1;
-        4'd13: competitor_i1 = -5'sd2;
-        4'd14: competitor_i1 = -5'sd3;
-        4'd15: competitor_i1 = -5'sd4;
+        4'd0: gate_i0_0 = 1'd0;
+        4'd1: gate_i0_0 = 1'd1;
+        4'd2: gate_i0_0 = 1'd0;
+        4'd3: gate_i0_0 = 1'd1;
+        4'd4: gate_i0_0 = 1'd0;
+        4'd5: gate_i0_0 = 1'd1;
+        4'd6: gate_i0_0 = 1'd0;
+        4'd7: gate_i0_0 = 1'd1;
+        4'd8: gate_i0_0 = 1'd1;
+        4'd9: gate_i0_0 = 1'd0;
+        4'd10: gate_i0_0 = 1'd1;
+        4'd11: gate_i0_0 = 1'd0;
+        4'd12: gate_i0_0 = 1'd1;
+        4'd13: gate_i0_0 = 1'd0;
+        4'd14: gate_i0_0 = 1'd1;
+        4'd15: gate_i0_0 = 1'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_i1 = competitor_i1(n_i_s0_reg);
-  wire [12:0] tfull_i1 = { {{2{dn_i1[4]}}, dn_i1}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
-  wire [11:0] t_i1 = tfull_i1[11:0];
-  wire [14:0] r_i1 = $signed({{10{dn_i1[4]}}, dn_i1}) * $signed({{3{t_i1[11]}}, t_i1});
-  wire [13:0] mag_i1_1_next = r_i1[13:0];
-  wire neg_i1_1_next = lab_i[2];
-  // axis bit 2 (label bit b4): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_i2;
+  wire g_i0_0_2_next = gate_i0_0(n_i_s1_reg);
+
+  function [9:0] gated_i0_0;
     input [3:0] key;
     begin
-      competitor_i2 = 5'd0;
+      gated_i0_0 = 10'd0;
       case (key)
-        4'd0: competitor_i2 = 5'sd2;
-        4'd1: competitor_i2 = 5'sd1;
-        4'd2: competitor_i2 = -5'sd1;
-        4'd3: competitor_i2 = -5'sd2;
-        4'd4: competitor_i2 = 5'sd2;
-        4'd5: competitor_i2 = 5'sd1;
-        4'd6: competitor_i2 = -5'sd1;
-        4'd7: competitor_i2 = -5'sd2;
-        4'd8: competitor_i2 = 5'sd2;
-        4'd9: competitor_i2 = 5'sd1;
-        4'd10: competitor_i2 = -5'sd1;
-        4'd11: competitor_i2 = -5'sd2;
-        4'd12: competitor_i2 = 5'sd2;
-        4'd13: competitor_i2 = 5'sd1;
-        4'd14: competitor_i2 = -5'sd1;
-        4'd15: competitor_i2 = -5'sd2;
+        4'd0: gated_i0_0 = 10'd0;
+        4'd1: gated_i0_0 = 10'd449;
+        4'd2: gated_i0_0 = 10'd0;
+        4'd3: gated_i0_0 = 10'd321;
+        4'd4: gated_i0_0 = 10'd0;
+        4'd5: gated_i0_0 = 10'd193;
+        4'd6: gated_i0_0 = 10'd0;
+        4'd7: gated_i0_0 = 10'd65;
+        4'd8: gated_i0_0 = 10'd64;
+        4'd9: gated_i0_0 = 10'd0;
+        4'd10: gated_i0_0 = 10'd192;
+        4'd11: gated_i0_0 = 10'd0;
+        4'd12: gated_i0_0 = 10'd320;
+        4'd13: gated_i0_0 = 10'd0;
+        4'd14: gated_i0_0 = 10'd448;
+        4'd15: gated_i0_0 = 10'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_i2 = competitor_i2(n_i_s0_reg);
-  wire [12:0] tfull_i2 = { {{2{dn_i2[4]}}, dn_i2}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
-  wire [11:0] t_i2 = tfull_i2[11:0];
-  wire [14:0] r_i2 = $signed({{10{dn_i2[4]}}, dn_i2}) * $signed({{3{t_i2[11]}}, t_i2});
-  wire [13:0] mag_i2_1_next = r_i2[13:0];
-  wire neg_i2_1_next = lab_i[1];
-  // axis bit 3 (label bit b6): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_i3;
+  wire [9:0] ga_i0_0_2_next = gated_i0_0(n_i_s1_reg);
+
+  function gate_i0_1;
     input [3:0] key;
     begin
-      competitor_i3 = 5'd0;
+      gate_i0_1 = 1'd0;
       case (key)
-        4'd0: competitor_i3 = 5'sd1;
-        4'd1: competitor_i3 = -5'sd1;
-        4'd2: competitor_i3 = 5'sd1;
-        4'd3: competitor_i3 = -5'sd1;
-        4'd4: competitor_i3 = 5'sd1;
-        4'd5: competitor_i3 = -5'sd1;
-        4'd6: competitor_i3 = 5'sd1;
-        4'd7: competitor_i3 = -5'sd1;
-        4'd8: competitor_i3 = 5'sd1;
-        4'd9: competitor_i3 = -5'sd1;
-        4'd10: competitor_i3 = 5'sd1;
-        4'd11: competitor_i3 = -5'sd1;
-        4'd12: competitor_i3 = 5'sd1;
-        4'd13: competitor_i3 = -5'sd1;
-        4'd14: competitor_i3 = 5'sd1;
-        4'd15: competitor_i3 = -5'sd1;
+        4'd0: gate_i0_1 = 1'd0;
+        4'd1: gate_i0_1 = 1'd1;
+        4'd2: gate_i0_1 = 1'd1;
+        4'd3: gate_i0_1 = 1'd0;
+        4'd4: gate_i0_1 = 1'd0;
+        4'd5: gate_i0_1 = 1'd1;
+        4'd6: gate_i0_1 = 1'd1;
+        4'd7: gate_i0_1 = 1'd0;
+        4'd8: gate_i0_1 = 1'd0;
+        4'd9: gate_i0_1 = 1'd1;
+        4'd10: gate_i0_1 = 1'd1;
+        4'd11: gate_i0_1 = 1'd0;
+        4'd12: gate_i0_1 = 1'd0;
+        4'd13: gate_i0_1 = 1'd1;
+        4'd14: gate_i0_1 = 1'd1;
+        4'd15: gate_i0_1 = 1'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_i3 = competitor_i3(n_i_s0_reg);
-  wire [12:0] tfull_i3 = { {{2{dn_i3[4]}}, dn_i3}, 6'd0 } - {{1{e_i_s0_reg[11]}}, e_i_s0_reg};
-  wire [11:0] t_i3 = tfull_i3[11:0];
-  wire [14:0] r_i3 = $signed({{10{dn_i3[4]}}, dn_i3}) * $signed({{3{t_i3[11]}}, t_i3});
-  wire [13:0] mag_i3_1_next = r_i3[13:0];
-  wire neg_i3_1_next = lab_i[0];
+  wire g_i0_1_2_next = gate_i0_1(n_i_s1_reg);
+
+  function [9:0] gated_i0_1;
+    input [3:0] key;
+    begin
+      gated_i0_1 = 10'd0;
+      case (key)
+        4'd0: gated_i0_1 = 10'd0;
+        4'd1: gated_i0_1 = 10'd449;
+        4'd2: gated_i0_1 = 10'd385;
+        4'd3: gated_i0_1 = 10'd0;
+        4'd4: gated_i0_1 = 10'd0;
+        4'd5: gated_i0_1 = 10'd193;
+        4'd6: gated_i0_1 = 10'd129;
+        4'd7: gated_i0_1 = 10'd0;
+        4'd8: gated_i0_1 = 10'd0;
+        4'd9: gated_i0_1 = 10'd128;
+        4'd10: gated_i0_1 = 10'd192;
+        4'd11: gated_i0_1 = 10'd0;
+        4'd12: gated_i0_1 = 10'd0;
+        4'd13: gated_i0_1 = 10'd384;
+        4'd14: gated_i0_1 = 10'd448;
+        4'd15: gated_i0_1 = 10'd0;
+      endcase
+    end
+  endfunction
+  wire [9:0] ga_i0_1_2_next = gated_i0_1(n_i_s1_reg);
+
+  function gate_i0_2;
+    input [3:0] key;
+    begin
+      gate_i0_2 = 1'd0;
+      case (key)
+        4'd0: gate_i0_2 = 1'd0;
+        4'd1: gate_i0_2 = 1'd1;
+        4'd2: gate_i0_2 = 1'd1;
+        4'd3: gate_i0_2 = 1'd1;
+        4'd4: gate_i0_2 = 1'd1;
+        4'd5: gate_i0_2 = 1'd0;
+        4'd6: gate_i0_2 = 1'd0;
+        4'd7: gate_i0_2 = 1'd0;
+        4'd8: gate_i0_2 = 1'd0;
+        4'd9: gate_i0_2 = 1'd0;
+        4'd10: gate_i0_2 = 1'd0;
+        4'd11: gate_i0_2 = 1'd1;
+        4'd12: gate_i0_2 = 1'd1;
+        4'd13: gate_i0_2 = 1'd1;
+        4'd14: gate_i0_2 = 1'd1;
+        4'd15: gate_i0_2 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_i0_2_2_next = gate_i0_2(n_i_s1_reg);
+
+  function [9:0] gated_i0_2;
+    input [3:0] key;
+    begin
+      gated_i0_2 = 10'd0;
+      case (key)
+        4'd0: gated_i0_2 = 10'd0;
+        4'd1: gated_i0_2 = 10'd449;
+        4'd2: gated_i0_2 = 10'd385;
+        4'd3: gated_i0_2 = 10'd321;
+        4'd4: gated_i0_2 = 10'd257;
+        4'd5: gated_i0_2 = 10'd0;
+        4'd6: gated_i0_2 = 10'd0;
+        4'd7: gated_i0_2 = 10'd0;
+        4'd8: gated_i0_2 = 10'd0;
+        4'd9: gated_i0_2 = 10'd0;
+        4'd10: gated_i0_2 = 10'd0;
+        4'd11: gated_i0_2 = 10'd256;
+        4'd12: gated_i0_2 = 10'd320;
+        4'd13: gated_i0_2 = 10'd384;
+        4'd14: gated_i0_2 = 10'd448;
+        4'd15: gated_i0_2 = 10'd0;
+      endcase
+    end
+  endfunction
+  wire [9:0] ga_i0_2_2_next = gated_i0_2(n_i_s1_reg);
+
+  function gate_i0_3;
+    input [3:0] key;
+    begin
+      gate_i0_3 = 1'd0;
+      case (key)
+        4'd0: gate_i0_3 = 1'd1;
+        4'd1: gate_i0_3 = 1'd0;
+        4'd2: gate_i0_3 = 1'd0;
+        4'd3: gate_i0_3 = 1'd0;
+        4'd4: gate_i0_3 = 1'd0;
+        4'd5: gate_i0_3 = 1'd0;
+        4'd6: gate_i0_3 = 1'd0;
+        4'd7: gate_i0_3 = 1'd0;
+        4'd8: gate_i0_3 = 1'd0;
+        4'd9: gate_i0_3 = 1'd0;
+        4'd10: gate_i0_3 = 1'd0;
+        4'd11: gate_i0_3 = 1'd0;
+        4'd12: gate_i0_3 = 1'd0;
+        4'd13: gate_i0_3 = 1'd0;
+        4'd14: gate_i0_3 = 1'd0;
+        4'd15: gate_i0_3 = 1'd1;
+      endcase
+    end
+  endfunction
+  wire g_i0_3_2_next = gate_i0_3(n_i_s1_reg);
+
+  function [9:0] gated_i0_3;
+    input [3:0] key;
+    begin
+      gated_i0_3 = 10'd0;
+      case (key)
+        4'd0: gated_i0_3 = 10'd513;
+        4'd1: gated_i0_3 = 10'd0;
+        4'd2: gated_i0_3 = 10'd0;
+        4'd3: gated_i0_3 = 10'd0;
+        4'd4: gated_i0_3 = 10'd0;
+        4'd5: gated_i0_3 = 10'd0;
+        4'd6: gated_i0_3 = 10'd0;
+        4'd7: gated_i0_3 = 10'd0;
+        4'd8: gated_i0_3 = 10'd0;
+        4'd9: gated_i0_3 = 10'd0;
+        4'd10: gated_i0_3 = 10'd0;
+        4'd11: gated_i0_3 = 10'd0;
+        4'd12: gated_i0_3 = 10'd0;
+        4'd13: gated_i0_3 = 10'd0;
+        4'd14: gated_i0_3 = 10'd0;
+        4'd15: gated_i0_3 = 10'd512;
+      endcase
+    end
+  endfunction
+  wire [9:0] ga_i0_3_2_next = gated_i0_3(n_i_s1_reg);
+
+  wire neg_i0_2_next = lab_i[3];
+  // axis bit 1 (label bit b2): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  function right_i1;
+    input [3:0] key;
+    begin
+      right_i1 = 1'd0;
+      case (key)
+        4'd0: right_i1 = 1'd1;
+        4'd1: right_i1 = 1'd1;
+        4'd2: right_i1 = 1'd1;
+        4'd3: right_i1 = 1'd1;
+        4'd4: right_i1 = 1'd0;
+        4'd5: right_i1 = 1'd0;
+        4'd6: right_i1 = 1'd0;
+        4'd7: right_i1 = 1'd0;
+        4'd8: right_i1 = 1'd1;
+        4'd9: right_i1 = 1'd1;
+        4'd10: right_i1 = 1'd1;
+        4'd11: right_i1 = 1'd1;
+        4'd12: right_i1 = 1'd0;
+        4'd13: right_i1 = 1'd0;
+        4'd14: right_i1 = 1'd0;
+        4'd15: right_i1 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_i1_2_next = right_i1(n_i_s1_reg);
+
+  function gate_i1_0;
+    input [3:0] key;
+    begin
+      gate_i1_0 = 1'd0;
+      case (key)
+        4'd0: gate_i1_0 = 1'd0;
+        4'd1: gate_i1_0 = 1'd1;
+        4'd2: gate_i1_0 = 1'd0;
+        4'd3: gate_i1_0 = 1'd1;
+        4'd4: gate_i1_0 = 1'd1;
+        4'd5: gate_i1_0 = 1'd0;
+        4'd6: gate_i1_0 = 1'd1;
+        4'd7: gate_i1_0 = 1'd0;
+        4'd8: gate_i1_0 = 1'd0;
+        4'd9: gate_i1_0 = 1'd1;
+        4'd10: gate_i1_0 = 1'd0;
+        4'd11: gate_i1_0 = 1'd1;
+        4'd12: gate_i1_0 = 1'd1;
+        4'd13: gate_i1_0 = 1'd0;
+        4'd14: gate_i1_0 = 1'd1;
+        4'd15: gate_i1_0 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_i1_0_2_next = gate_i1_0(n_i_s1_reg);
+
+  function [8:0] gated_i1_0;
+    input [3:0] key;
+    begin
+      gated_i1_0 = 9'd0;
+      case (key)
+        4'd0: gated_i1_0 = 9'd0;
+        4'd1: gated_i1_0 = 9'd193;
+        4'd2: gated_i1_0 = 9'd0;
+        4'd3: gated_i1_0 = 9'd65;
+        4'd4: gated_i1_0 = 9'd64;
+        4'd5: gated_i1_0 = 9'd0;
+        4'd6: gated_i1_0 = 9'd192;
+        4'd7: gated_i1_0 = 9'd0;
+        4'd8: gated_i1_0 = 9'd0;
+        4'd9: gated_i1_0 = 9'd193;
+        4'd10: gated_i1_0 = 9'd0;
+        4'd11: gated_i1_0 = 9'd65;
+        4'd12: gated_i1_0 = 9'd64;
+        4'd13: gated_i1_0 = 9'd0;
+        4'd14: gated_i1_0 = 9'd192;
+        4'd15: gated_i1_0 = 9'd0;
+      endcase
+    end
+  endfunction
+  wire [8:0] ga_i1_0_2_next = gated_i1_0(n_i_s1_reg);
+
+  function gate_i1_1;
+    input [3:0] key;
+    begin
+      gate_i1_1 = 1'd0;
+      case (key)
+        4'd0: gate_i1_1 = 1'd0;
+        4'd1: gate_i1_1 = 1'd1;
+        4'd2: gate_i1_1 = 1'd1;
+        4'd3: gate_i1_1 = 1'd0;
+        4'd4: gate_i1_1 = 1'd0;
+        4'd5: gate_i1_1 = 1'd1;
+        4'd6: gate_i1_1 = 1'd1;
+        4'd7: gate_i1_1 = 1'd0;
+        4'd8: gate_i1_1 = 1'd0;
+        4'd9: gate_i1_1 = 1'd1;
+        4'd10: gate_i1_1 = 1'd1;
+        4'd11: gate_i1_1 = 1'd0;
+        4'd12: gate_i1_1 = 1'd0;
+        4'd13: gate_i1_1 = 1'd1;
+        4'd14: gate_i1_1 = 1'd1;
+        4'd15: gate_i1_1 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_i1_1_2_next = gate_i1_1(n_i_s1_reg);
+
+  function [8:0] gated_i1_1;
+    input [3:0] key;
+    begin
+      gated_i1_1 = 9'd0;
+      case (key)
+        4'd0: gated_i1_1 = 9'd0;
+        4'd1: gated_i1_1 = 9'd193;
+        4'd2: gated_i1_1 = 9'd129;
+        4'd3: gated_i1_1 = 9'd0;
+        4'd4: gated_i1_1 = 9'd0;
+        4'd5: gated_i1_1 = 9'd128;
+        4'd6: gated_i1_1 = 9'd192;
+        4'd7: gated_i1_1 = 9'd0;
+        4'd8: gated_i1_1 = 9'd0;
+        4'd9: gated_i1_1 = 9'd193;
+        4'd10: gated_i1_1 = 9'd129;
+        4'd11: gated_i1_1 = 9'd0;
+        4'd12: gated_i1_1 = 9'd0;
+        4'd13: gated_i1_1 = 9'd128;
+        4'd14: gated_i1_1 = 9'd192;
+        4'd15: gated_i1_1 = 9'd0;
+      endcase
+    end
+  endfunction
+  wire [8:0] ga_i1_1_2_next = gated_i1_1(n_i_s1_reg);
+
+  function gate_i1_2;
+    input [3:0] key;
+    begin
+      gate_i1_2 = 1'd0;
+      case (key)
+        4'd0: gate_i1_2 = 1'd1;
+        4'd1: gate_i1_2 = 1'd0;
+        4'd2: gate_i1_2 = 1'd0;
+        4'd3: gate_i1_2 = 1'd0;
+        4'd4: gate_i1_2 = 1'd0;
+        4'd5: gate_i1_2 = 1'd0;
+        4'd6: gate_i1_2 = 1'd0;
+        4'd7: gate_i1_2 = 1'd1;
+        4'd8: gate_i1_2 = 1'd1;
+        4'd9: gate_i1_2 = 1'd0;
+        4'd10: gate_i1_2 = 1'd0;
+        4'd11: gate_i1_2 = 1'd0;
+        4'd12: gate_i1_2 = 1'd0;
+        4'd13: gate_i1_2 = 1'd0;
+        4'd14: gate_i1_2 = 1'd0;
+        4'd15: gate_i1_2 = 1'd1;
+      endcase
+    end
+  endfunction
+  wire g_i1_2_2_next = gate_i1_2(n_i_s1_reg);
+
+  function [8:0] gated_i1_2;
+    input [3:0] key;
+    begin
+      gated_i1_2 = 9'd0;
+      case (key)
+        4'd0: gated_i1_2 = 9'd257;
+        4'd1: gated_i1_2 = 9'd0;
+        4'd2: gated_i1_2 = 9'd0;
+        4'd3: gated_i1_2 = 9'd0;
+        4'd4: gated_i1_2 = 9'd0;
+        4'd5: gated_i1_2 = 9'd0;
+        4'd6: gated_i1_2 = 9'd0;
+        4'd7: gated_i1_2 = 9'd256;
+        4'd8: gated_i1_2 = 9'd257;
+        4'd9: gated_i1_2 = 9'd0;
+        4'd10: gated_i1_2 = 9'd0;
+        4'd11: gated_i1_2 = 9'd0;
+        4'd12: gated_i1_2 = 9'd0;
+        4'd13: gated_i1_2 = 9'd0;
+        4'd14: gated_i1_2 = 9'd0;
+        4'd15: gated_i1_2 = 9'd256;
+      endcase
+    end
+  endfunction
+  wire [8:0] ga_i1_2_2_next = gated_i1_2(n_i_s1_reg);
+
+  wire neg_i1_2_next = lab_i[2];
+  // axis bit 2 (label bit b4): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  function right_i2;
+    input [3:0] key;
+    begin
+      right_i2 = 1'd0;
+      case (key)
+        4'd0: right_i2 = 1'd1;
+        4'd1: right_i2 = 1'd1;
+        4'd2: right_i2 = 1'd0;
+        4'd3: right_i2 = 1'd0;
+        4'd4: right_i2 = 1'd1;
+        4'd5: right_i2 = 1'd1;
+        4'd6: right_i2 = 1'd0;
+        4'd7: right_i2 = 1'd0;
+        4'd8: right_i2 = 1'd1;
+        4'd9: right_i2 = 1'd1;
+        4'd10: right_i2 = 1'd0;
+        4'd11: right_i2 = 1'd0;
+        4'd12: right_i2 = 1'd1;
+        4'd13: right_i2 = 1'd1;
+        4'd14: right_i2 = 1'd0;
+        4'd15: right_i2 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_i2_2_next = right_i2(n_i_s1_reg);
+
+  function gate_i2_0;
+    input [3:0] key;
+    begin
+      gate_i2_0 = 1'd0;
+      case (key)
+        4'd0: gate_i2_0 = 1'd0;
+        4'd1: gate_i2_0 = 1'd1;
+        4'd2: gate_i2_0 = 1'd1;
+        4'd3: gate_i2_0 = 1'd0;
+        4'd4: gate_i2_0 = 1'd0;
+        4'd5: gate_i2_0 = 1'd1;
+        4'd6: gate_i2_0 = 1'd1;
+        4'd7: gate_i2_0 = 1'd0;
+        4'd8: gate_i2_0 = 1'd0;
+        4'd9: gate_i2_0 = 1'd1;
+        4'd10: gate_i2_0 = 1'd1;
+        4'd11: gate_i2_0 = 1'd0;
+        4'd12: gate_i2_0 = 1'd0;
+        4'd13: gate_i2_0 = 1'd1;
+        4'd14: gate_i2_0 = 1'd1;
+        4'd15: gate_i2_0 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_i2_0_2_next = gate_i2_0(n_i_s1_reg);
+
+  function [7:0] gated_i2_0;
+    input [3:0] key;
+    begin
+      gated_i2_0 = 8'd0;
+      case (key)
+        4'd0: gated_i2_0 = 8'd0;
+        4'd1: gated_i2_0 = 8'd65;
+        4'd2: gated_i2_0 = 8'd64;
+        4'd3: gated_i2_0 = 8'd0;
+        4'd4: gated_i2_0 = 8'd0;
+        4'd5: gated_i2_0 = 8'd65;
+        4'd6: gated_i2_0 = 8'd64;
+        4'd7: gated_i2_0 = 8'd0;
+        4'd8: gated_i2_0 = 8'd0;
+        4'd9: gated_i2_0 = 8'd65;
+        4'd10: gated_i2_0 = 8'd64;
+        4'd11: gated_i2_0 = 8'd0;
+        4'd12: gated_i2_0 = 8'd0;
+        4'd13: gated_i2_0 = 8'd65;
+        4'd14: gated_i2_0 = 8'd64;
+        4'd15: gated_i2_0 = 8'd0;
+      endcase
+    end
+  endfunction
+  wire [7:0] ga_i2_0_2_next = gated_i2_0(n_i_s1_reg);
+
+  function gate_i2_1;
+    input [3:0] key;
+    begin
+      gate_i2_1 = 1'd0;
+      case (key)
+        4'd0: gate_i2_1 = 1'd1;
+        4'd1: gate_i2_1 = 1'd0;
+        4'd2: gate_i2_1 = 1'd0;
+        4'd3: gate_i2_1 = 1'd1;
+        4'd4: gate_i2_1 = 1'd1;
+        4'd5: gate_i2_1 = 1'd0;
+        4'd6: gate_i2_1 = 1'd0;
+        4'd7: gate_i2_1 = 1'd1;
+        4'd8: gate_i2_1 = 1'd1;
+        4'd9: gate_i2_1 = 1'd0;
+        4'd10: gate_i2_1 = 1'd0;
+        4'd11: gate_i2_1 = 1'd1;
+        4'd12: gate_i2_1 = 1'd1;
+        4'd13: gate_i2_1 = 1'd0;
+        4'd14: gate_i2_1 = 1'd0;
+        4'd15: gate_i2_1 = 1'd1;
+      endcase
+    end
+  endfunction
+  wire g_i2_1_2_next = gate_i2_1(n_i_s1_reg);
+
+  function [7:0] gated_i2_1;
+    input [3:0] key;
+    begin
+      gated_i2_1 = 8'd0;
+      case (key)
+        4'd0: gated_i2_1 = 8'd129;
+        4'd1: gated_i2_1 = 8'd0;
+        4'd2: gated_i2_1 = 8'd0;
+        4'd3: gated_i2_1 = 8'd128;
+        4'd4: gated_i2_1 = 8'd129;
+        4'd5: gated_i2_1 = 8'd0;
+        4'd6: gated_i2_1 = 8'd0;
+        4'd7: gated_i2_1 = 8'd128;
+        4'd8: gated_i2_1 = 8'd129;
+        4'd9: gated_i2_1 = 8'd0;
+        4'd10: gated_i2_1 = 8'd0;
+        4'd11: gated_i2_1 = 8'd128;
+        4'd12: gated_i2_1 = 8'd129;
+        4'd13: gated_i2_1 = 8'd0;
+        4'd14: gated_i2_1 = 8'd0;
+        4'd15: gated_i2_1 = 8'd128;
+      endcase
+    end
+  endfunction
+  wire [7:0] ga_i2_1_2_next = gated_i2_1(n_i_s1_reg);
+
+  wire neg_i2_2_next = lab_i[1];
+  // axis bit 3 (label bit b6): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes the value 1
+  // (|dn| << 6) + (dn > 0)
+  function [6:0] competitor_i3;
+    input [3:0] key;
+    begin
+      competitor_i3 = 7'd0;
+      case (key)
+        4'd0: competitor_i3 = 7'd65;
+        4'd1: competitor_i3 = 7'd64;
+        4'd2: competitor_i3 = 7'd65;
+        4'd3: competitor_i3 = 7'd64;
+        4'd4: competitor_i3 = 7'd65;
+        4'd5: competitor_i3 = 7'd64;
+        4'd6: competitor_i3 = 7'd65;
+        4'd7: competitor_i3 = 7'd64;
+        4'd8: competitor_i3 = 7'd65;
+        4'd9: competitor_i3 = 7'd64;
+        4'd10: competitor_i3 = 7'd65;
+        4'd11: competitor_i3 = 7'd64;
+        4'd12: competitor_i3 = 7'd65;
+        4'd13: competitor_i3 = 7'd64;
+        4'd14: competitor_i3 = 7'd65;
+        4'd15: competitor_i3 = 7'd64;
+      endcase
+    end
+  endfunction
+  wire [6:0] dp_i3_2_next = competitor_i3(n_i_s1_reg);
+
+  function right_i3;
+    input [3:0] key;
+    begin
+      right_i3 = 1'd0;
+      case (key)
+        4'd0: right_i3 = 1'd1;
+        4'd1: right_i3 = 1'd0;
+        4'd2: right_i3 = 1'd1;
+        4'd3: right_i3 = 1'd0;
+        4'd4: right_i3 = 1'd1;
+        4'd5: right_i3 = 1'd0;
+        4'd6: right_i3 = 1'd1;
+        4'd7: right_i3 = 1'd0;
+        4'd8: right_i3 = 1'd1;
+        4'd9: right_i3 = 1'd0;
+        4'd10: right_i3 = 1'd1;
+        4'd11: right_i3 = 1'd0;
+        4'd12: right_i3 = 1'd1;
+        4'd13: right_i3 = 1'd0;
+        4'd14: right_i3 = 1'd1;
+        4'd15: right_i3 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_i3_2_next = right_i3(n_i_s1_reg);
+
+  wire neg_i3_2_next = lab_i[0];
   // Q axis: label of the decided level gives each LLR's sign
   function [3:0] label_q;
     input [3:0] n;
@@ -284,242 +824,1315 @@ module lvt_bh256_demapper (
       endcase
     end
   endfunction
-  wire [3:0] lab_q = label_q(n_q_s0_reg);
-  // axis bit 0 (label bit b1): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_q0;
+  wire [3:0] lab_q = label_q(n_q_s1_reg);
+  // axis bit 0 (label bit b1): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  function right_q0;
     input [3:0] key;
     begin
-      competitor_q0 = 5'd0;
+      right_q0 = 1'd0;
       case (key)
-        4'd0: competitor_q0 = 5'sd8;
-        4'd1: competitor_q0 = 5'sd7;
-        4'd2: competitor_q0 = 5'sd6;
-        4'd3: competitor_q0 = 5'sd5;
-        4'd4: competitor_q0 = 5'sd4;
-        4'd5: competitor_q0 = 5'sd3;
-        4'd6: competitor_q0 = 5'sd2;
-        4'd7: competitor_q0 = 5'sd1;
-        4'd8: competitor_q0 = -5'sd1;
-        4'd9: competitor_q0 = -5'sd2;
-        4'd10: competitor_q0 = -5'sd3;
-        4'd11: competitor_q0 = -5'sd4;
-        4'd12: competitor_q0 = -5'sd5;
-        4'd13: competitor_q0 = -5'sd6;
-        4'd14: competitor_q0 = -5'sd7;
-        4'd15: competitor_q0 = -5'sd8;
+        4'd0: right_q0 = 1'd1;
+        4'd1: right_q0 = 1'd1;
+        4'd2: right_q0 = 1'd1;
+        4'd3: right_q0 = 1'd1;
+        4'd4: right_q0 = 1'd1;
+        4'd5: right_q0 = 1'd1;
+        4'd6: right_q0 = 1'd1;
+        4'd7: right_q0 = 1'd1;
+        4'd8: right_q0 = 1'd0;
+        4'd9: right_q0 = 1'd0;
+        4'd10: right_q0 = 1'd0;
+        4'd11: right_q0 = 1'd0;
+        4'd12: right_q0 = 1'd0;
+        4'd13: right_q0 = 1'd0;
+        4'd14: right_q0 = 1'd0;
+        4'd15: right_q0 = 1'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_q0 = competitor_q0(n_q_s0_reg);
-  wire [12:0] tfull_q0 = { {{2{dn_q0[4]}}, dn_q0}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
-  wire [11:0] t_q0 = tfull_q0[11:0];
-  wire [14:0] r_q0 = $signed({{10{dn_q0[4]}}, dn_q0}) * $signed({{3{t_q0[11]}}, t_q0});
-  wire [13:0] mag_q0_1_next = r_q0[13:0];
-  wire neg_q0_1_next = lab_q[3];
-  // axis bit 1 (label bit b3): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_q1;
+  wire pos_q0_2_next = right_q0(n_q_s1_reg);
+
+  function gate_q0_0;
     input [3:0] key;
     begin
-      competitor_q1 = 5'd0;
+      gate_q0_0 = 1'd0;
       case (key)
-        4'd0: competitor_q1 = 5'sd4;
-        4'd1: competitor_q1 = 5'sd3;
-        4'd2: competitor_q1 = 5'sd2;
-        4'd3: competitor_q1 = 5'sd1;
-        4'd4: competitor_q1 = -5'sd1;
-        4'd5: competitor_q1 = -5'sd2;
-        4'd6: competitor_q1 = -5'sd3;
-        4'd7: competitor_q1 = -5'sd4;
-        4'd8: competitor_q1 = 5'sd4;
-        4'd9: competitor_q1 = 5'sd3;
-        4'd10: competitor_q1 = 5'sd2;
-        4'd11: competitor_q1 = 5'sd1;
-        4'd12: competitor_q1 = -5'sd1;
-        4'd13: competitor_q1 = -5'sd2;
-        4'd14: competitor_q1 = -5'sd3;
-        4'd15: competitor_q1 = -5'sd4;
+        4'd0: gate_q0_0 = 1'd0;
+        4'd1: gate_q0_0 = 1'd1;
+        4'd2: gate_q0_0 = 1'd0;
+        4'd3: gate_q0_0 = 1'd1;
+        4'd4: gate_q0_0 = 1'd0;
+        4'd5: gate_q0_0 = 1'd1;
+        4'd6: gate_q0_0 = 1'd0;
+        4'd7: gate_q0_0 = 1'd1;
+        4'd8: gate_q0_0 = 1'd1;
+        4'd9: gate_q0_0 = 1'd0;
+        4'd10: gate_q0_0 = 1'd1;
+        4'd11: gate_q0_0 = 1'd0;
+        4'd12: gate_q0_0 = 1'd1;
+        4'd13: gate_q0_0 = 1'd0;
+        4'd14: gate_q0_0 = 1'd1;
+        4'd15: gate_q0_0 = 1'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_q1 = competitor_q1(n_q_s0_reg);
-  wire [12:0] tfull_q1 = { {{2{dn_q1[4]}}, dn_q1}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
-  wire [11:0] t_q1 = tfull_q1[11:0];
-  wire [14:0] r_q1 = $signed({{10{dn_q1[4]}}, dn_q1}) * $signed({{3{t_q1[11]}}, t_q1});
-  wire [13:0] mag_q1_1_next = r_q1[13:0];
-  wire neg_q1_1_next = lab_q[2];
-  // axis bit 2 (label bit b5): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_q2;
+  wire g_q0_0_2_next = gate_q0_0(n_q_s1_reg);
+
+  function [9:0] gated_q0_0;
     input [3:0] key;
     begin
-      competitor_q2 = 5'd0;
+      gated_q0_0 = 10'd0;
       case (key)
-        4'd0: competitor_q2 = 5'sd2;
-        4'd1: competitor_q2 = 5'sd1;
-        4'd2: competitor_q2 = -5'sd1;
-        4'd3: competitor_q2 = -5'sd2;
-        4'd4: competitor_q2 = 5'sd2;
-        4'd5: competitor_q2 = 5'sd1;
-        4'd6: competitor_q2 = -5'sd1;
-        4'd7: competitor_q2 = -5'sd2;
-        4'd8: competitor_q2 = 5'sd2;
-        4'd9: competitor_q2 = 5'sd1;
-        4'd10: competitor_q2 = -5'sd1;
-        4'd11: competitor_q2 = -5'sd2;
-        4'd12: competitor_q2 = 5'sd2;
-        4'd13: competitor_q2 = 5'sd1;
-        4'd14: competitor_q2 = -5'sd1;
-        4'd15: competitor_q2 = -5'sd2;
+        4'd0: gated_q0_0 = 10'd0;
+        4'd1: gated_q0_0 = 10'd449;
+        4'd2: gated_q0_0 = 10'd0;
+        4'd3: gated_q0_0 = 10'd321;
+        4'd4: gated_q0_0 = 10'd0;
+        4'd5: gated_q0_0 = 10'd193;
+        4'd6: gated_q0_0 = 10'd0;
+        4'd7: gated_q0_0 = 10'd65;
+        4'd8: gated_q0_0 = 10'd64;
+        4'd9: gated_q0_0 = 10'd0;
+        4'd10: gated_q0_0 = 10'd192;
+        4'd11: gated_q0_0 = 10'd0;
+        4'd12: gated_q0_0 = 10'd320;
+        4'd13: gated_q0_0 = 10'd0;
+        4'd14: gated_q0_0 = 10'd448;
+        4'd15: gated_q0_0 = 10'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_q2 = competitor_q2(n_q_s0_reg);
-  wire [12:0] tfull_q2 = { {{2{dn_q2[4]}}, dn_q2}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
-  wire [11:0] t_q2 = tfull_q2[11:0];
-  wire [14:0] r_q2 = $signed({{10{dn_q2[4]}}, dn_q2}) * $signed({{3{t_q2[11]}}, t_q2});
-  wire [13:0] mag_q2_1_next = r_q2[13:0];
-  wire neg_q2_1_next = lab_q[1];
-  // axis bit 3 (label bit b7): competitor offset dn (levels), R = dn * ((dn << 6) - e)
-  function [4:0] competitor_q3;
+  wire [9:0] ga_q0_0_2_next = gated_q0_0(n_q_s1_reg);
+
+  function gate_q0_1;
     input [3:0] key;
     begin
-      competitor_q3 = 5'd0;
+      gate_q0_1 = 1'd0;
       case (key)
-        4'd0: competitor_q3 = 5'sd1;
-        4'd1: competitor_q3 = -5'sd1;
-        4'd2: competitor_q3 = 5'sd1;
-        4'd3: competitor_q3 = -5'sd1;
-        4'd4: competitor_q3 = 5'sd1;
-        4'd5: competitor_q3 = -5'sd1;
-        4'd6: competitor_q3 = 5'sd1;
-        4'd7: competitor_q3 = -5'sd1;
-        4'd8: competitor_q3 = 5'sd1;
-        4'd9: competitor_q3 = -5'sd1;
-        4'd10: competitor_q3 = 5'sd1;
-        4'd11: competitor_q3 = -5'sd1;
-        4'd12: competitor_q3 = 5'sd1;
-        4'd13: competitor_q3 = -5'sd1;
-        4'd14: competitor_q3 = 5'sd1;
-        4'd15: competitor_q3 = -5'sd1;
+        4'd0: gate_q0_1 = 1'd0;
+        4'd1: gate_q0_1 = 1'd1;
+        4'd2: gate_q0_1 = 1'd1;
+        4'd3: gate_q0_1 = 1'd0;
+        4'd4: gate_q0_1 = 1'd0;
+        4'd5: gate_q0_1 = 1'd1;
+        4'd6: gate_q0_1 = 1'd1;
+        4'd7: gate_q0_1 = 1'd0;
+        4'd8: gate_q0_1 = 1'd0;
+        4'd9: gate_q0_1 = 1'd1;
+        4'd10: gate_q0_1 = 1'd1;
+        4'd11: gate_q0_1 = 1'd0;
+        4'd12: gate_q0_1 = 1'd0;
+        4'd13: gate_q0_1 = 1'd1;
+        4'd14: gate_q0_1 = 1'd1;
+        4'd15: gate_q0_1 = 1'd0;
       endcase
     end
   endfunction
-  wire [4:0] dn_q3 = competitor_q3(n_q_s0_reg);
-  wire [12:0] tfull_q3 = { {{2{dn_q3[4]}}, dn_q3}, 6'd0 } - {{1{e_q_s0_reg[11]}}, e_q_s0_reg};
-  wire [11:0] t_q3 = tfull_q3[11:0];
-  wire [14:0] r_q3 = $signed({{10{dn_q3[4]}}, dn_q3}) * $signed({{3{t_q3[11]}}, t_q3});
-  wire [13:0] mag_q3_1_next = r_q3[13:0];
-  wire neg_q3_1_next = lab_q[0];
+  wire g_q0_1_2_next = gate_q0_1(n_q_s1_reg);
 
-  // register stage 1 (after step "metric")
-  reg  tlast_s1_reg = 1'd0;
-  reg  [13:0] mag_i0_s1_reg = 14'd0;
-  reg  neg_i0_s1_reg = 1'd0;
-  reg  [13:0] mag_i1_s1_reg = 14'd0;
-  reg  neg_i1_s1_reg = 1'd0;
-  reg  [13:0] mag_i2_s1_reg = 14'd0;
-  reg  neg_i2_s1_reg = 1'd0;
-  reg  [13:0] mag_i3_s1_reg = 14'd0;
-  reg  neg_i3_s1_reg = 1'd0;
-  reg  [13:0] mag_q0_s1_reg = 14'd0;
-  reg  neg_q0_s1_reg = 1'd0;
-  reg  [13:0] mag_q1_s1_reg = 14'd0;
-  reg  neg_q1_s1_reg = 1'd0;
-  reg  [13:0] mag_q2_s1_reg = 14'd0;
-  reg  neg_q2_s1_reg = 1'd0;
-  reg  [13:0] mag_q3_s1_reg = 14'd0;
-  reg  neg_q3_s1_reg = 1'd0;
-  always @(posedge aclk) begin
-    if (ce_s1) begin
-      tlast_s1_reg <= tlast_s0_reg;
-      mag_i0_s1_reg <= mag_i0_1_next;
-      neg_i0_s1_reg <= neg_i0_1_next;
-      mag_i1_s1_reg <= mag_i1_1_next;
-      neg_i1_s1_reg <= neg_i1_1_next;
-      mag_i2_s1_reg <= mag_i2_1_next;
-      neg_i2_s1_reg <= neg_i2_1_next;
-      mag_i3_s1_reg <= mag_i3_1_next;
-      neg_i3_s1_reg <= neg_i3_1_next;
-      mag_q0_s1_reg <= mag_q0_1_next;
-      neg_q0_s1_reg <= neg_q0_1_next;
-      mag_q1_s1_reg <= mag_q1_1_next;
-      neg_q1_s1_reg <= neg_q1_1_next;
-      mag_q2_s1_reg <= mag_q2_1_next;
-      neg_q2_s1_reg <= neg_q2_1_next;
-      mag_q3_s1_reg <= mag_q3_1_next;
-      neg_q3_s1_reg <= neg_q3_1_next;
+  function [9:0] gated_q0_1;
+    input [3:0] key;
+    begin
+      gated_q0_1 = 10'd0;
+      case (key)
+        4'd0: gated_q0_1 = 10'd0;
+        4'd1: gated_q0_1 = 10'd449;
+        4'd2: gated_q0_1 = 10'd385;
+        4'd3: gated_q0_1 = 10'd0;
+        4'd4: gated_q0_1 = 10'd0;
+        4'd5: gated_q0_1 = 10'd193;
+        4'd6: gated_q0_1 = 10'd129;
+        4'd7: gated_q0_1 = 10'd0;
+        4'd8: gated_q0_1 = 10'd0;
+        4'd9: gated_q0_1 = 10'd128;
+        4'd10: gated_q0_1 = 10'd192;
+        4'd11: gated_q0_1 = 10'd0;
+        4'd12: gated_q0_1 = 10'd0;
+        4'd13: gated_q0_1 = 10'd384;
+        4'd14: gated_q0_1 = 10'd448;
+        4'd15: gated_q0_1 = 10'd0;
+      endcase
     end
-  end
+  endfunction
+  wire [9:0] ga_q0_1_2_next = gated_q0_1(n_q_s1_reg);
 
+  function gate_q0_2;
+    input [3:0] key;
+    begin
+      gate_q0_2 = 1'd0;
+      case (key)
+        4'd0: gate_q0_2 = 1'd0;
+        4'd1: gate_q0_2 = 1'd1;
+        4'd2: gate_q0_2 = 1'd1;
+        4'd3: gate_q0_2 = 1'd1;
+        4'd4: gate_q0_2 = 1'd1;
+        4'd5: gate_q0_2 = 1'd0;
+        4'd6: gate_q0_2 = 1'd0;
+        4'd7: gate_q0_2 = 1'd0;
+        4'd8: gate_q0_2 = 1'd0;
+        4'd9: gate_q0_2 = 1'd0;
+        4'd10: gate_q0_2 = 1'd0;
+        4'd11: gate_q0_2 = 1'd1;
+        4'd12: gate_q0_2 = 1'd1;
+        4'd13: gate_q0_2 = 1'd1;
+        4'd14: gate_q0_2 = 1'd1;
+        4'd15: gate_q0_2 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_q0_2_2_next = gate_q0_2(n_q_s1_reg);
 
-  // ---------------------------------------------------------------- step 3: output
-  // rounding shift by 2 (half-away), symmetric saturation to +-31, sign
-  wire [14:0] rsum_i0 = {1'd0, mag_i0_s1_reg} + 15'd2;
-  wire [12:0] v_i0 = rsum_i0[14:2];
+  function [9:0] gated_q0_2;
+    input [3:0] key;
+    begin
+      gated_q0_2 = 10'd0;
+      case (key)
+        4'd0: gated_q0_2 = 10'd0;
+        4'd1: gated_q0_2 = 10'd449;
+        4'd2: gated_q0_2 = 10'd385;
+        4'd3: gated_q0_2 = 10'd321;
+        4'd4: gated_q0_2 = 10'd257;
+        4'd5: gated_q0_2 = 10'd0;
+        4'd6: gated_q0_2 = 10'd0;
+        4'd7: gated_q0_2 = 10'd0;
+        4'd8: gated_q0_2 = 10'd0;
+        4'd9: gated_q0_2 = 10'd0;
+        4'd10: gated_q0_2 = 10'd0;
+        4'd11: gated_q0_2 = 10'd256;
+        4'd12: gated_q0_2 = 10'd320;
+        4'd13: gated_q0_2 = 10'd384;
+        4'd14: gated_q0_2 = 10'd448;
+        4'd15: gated_q0_2 = 10'd0;
+      endcase
+    end
+  endfunction
+  wire [9:0] ga_q0_2_2_next = gated_q0_2(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_i0 = (|v_i0[12:LLR_W-1]) ? 5'd31 : v_i0[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_i0_2_next = neg_i0_s1_reg ? 6'd0 - {1'b0, sat_i0} : {1'b0, sat_i0};
-  wire [14:0] rsum_i1 = {1'd0, mag_i1_s1_reg} + 15'd2;
-  wire [12:0] v_i1 = rsum_i1[14:2];
+  function gate_q0_3;
+    input [3:0] key;
+    begin
+      gate_q0_3 = 1'd0;
+      case (key)
+        4'd0: gate_q0_3 = 1'd1;
+        4'd1: gate_q0_3 = 1'd0;
+        4'd2: gate_q0_3 = 1'd0;
+        4'd3: gate_q0_3 = 1'd0;
+        4'd4: gate_q0_3 = 1'd0;
+        4'd5: gate_q0_3 = 1'd0;
+        4'd6: gate_q0_3 = 1'd0;
+        4'd7: gate_q0_3 = 1'd0;
+        4'd8: gate_q0_3 = 1'd0;
+        4'd9: gate_q0_3 = 1'd0;
+        4'd10: gate_q0_3 = 1'd0;
+        4'd11: gate_q0_3 = 1'd0;
+        4'd12: gate_q0_3 = 1'd0;
+        4'd13: gate_q0_3 = 1'd0;
+        4'd14: gate_q0_3 = 1'd0;
+        4'd15: gate_q0_3 = 1'd1;
+      endcase
+    end
+  endfunction
+  wire g_q0_3_2_next = gate_q0_3(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_i1 = (|v_i1[12:LLR_W-1]) ? 5'd31 : v_i1[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_i1_2_next = neg_i1_s1_reg ? 6'd0 - {1'b0, sat_i1} : {1'b0, sat_i1};
-  wire [14:0] rsum_i2 = {1'd0, mag_i2_s1_reg} + 15'd2;
-  wire [12:0] v_i2 = rsum_i2[14:2];
+  function [9:0] gated_q0_3;
+    input [3:0] key;
+    begin
+      gated_q0_3 = 10'd0;
+      case (key)
+        4'd0: gated_q0_3 = 10'd513;
+        4'd1: gated_q0_3 = 10'd0;
+        4'd2: gated_q0_3 = 10'd0;
+        4'd3: gated_q0_3 = 10'd0;
+        4'd4: gated_q0_3 = 10'd0;
+        4'd5: gated_q0_3 = 10'd0;
+        4'd6: gated_q0_3 = 10'd0;
+        4'd7: gated_q0_3 = 10'd0;
+        4'd8: gated_q0_3 = 10'd0;
+        4'd9: gated_q0_3 = 10'd0;
+        4'd10: gated_q0_3 = 10'd0;
+        4'd11: gated_q0_3 = 10'd0;
+        4'd12: gated_q0_3 = 10'd0;
+        4'd13: gated_q0_3 = 10'd0;
+        4'd14: gated_q0_3 = 10'd0;
+        4'd15: gated_q0_3 = 10'd512;
+      endcase
+    end
+  endfunction
+  wire [9:0] ga_q0_3_2_next = gated_q0_3(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_i2 = (|v_i2[12:LLR_W-1]) ? 5'd31 : v_i2[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_i2_2_next = neg_i2_s1_reg ? 6'd0 - {1'b0, sat_i2} : {1'b0, sat_i2};
-  wire [14:0] rsum_i3 = {1'd0, mag_i3_s1_reg} + 15'd2;
-  wire [12:0] v_i3 = rsum_i3[14:2];
+  wire neg_q0_2_next = lab_q[3];
+  // axis bit 1 (label bit b3): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  function right_q1;
+    input [3:0] key;
+    begin
+      right_q1 = 1'd0;
+      case (key)
+        4'd0: right_q1 = 1'd1;
+        4'd1: right_q1 = 1'd1;
+        4'd2: right_q1 = 1'd1;
+        4'd3: right_q1 = 1'd1;
+        4'd4: right_q1 = 1'd0;
+        4'd5: right_q1 = 1'd0;
+        4'd6: right_q1 = 1'd0;
+        4'd7: right_q1 = 1'd0;
+        4'd8: right_q1 = 1'd1;
+        4'd9: right_q1 = 1'd1;
+        4'd10: right_q1 = 1'd1;
+        4'd11: right_q1 = 1'd1;
+        4'd12: right_q1 = 1'd0;
+        4'd13: right_q1 = 1'd0;
+        4'd14: right_q1 = 1'd0;
+        4'd15: right_q1 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_q1_2_next = right_q1(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_i3 = (|v_i3[12:LLR_W-1]) ? 5'd31 : v_i3[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_i3_2_next = neg_i3_s1_reg ? 6'd0 - {1'b0, sat_i3} : {1'b0, sat_i3};
-  wire [14:0] rsum_q0 = {1'd0, mag_q0_s1_reg} + 15'd2;
-  wire [12:0] v_q0 = rsum_q0[14:2];
+  function gate_q1_0;
+    input [3:0] key;
+    begin
+      gate_q1_0 = 1'd0;
+      case (key)
+        4'd0: gate_q1_0 = 1'd0;
+        4'd1: gate_q1_0 = 1'd1;
+        4'd2: gate_q1_0 = 1'd0;
+        4'd3: gate_q1_0 = 1'd1;
+        4'd4: gate_q1_0 = 1'd1;
+        4'd5: gate_q1_0 = 1'd0;
+        4'd6: gate_q1_0 = 1'd1;
+        4'd7: gate_q1_0 = 1'd0;
+        4'd8: gate_q1_0 = 1'd0;
+        4'd9: gate_q1_0 = 1'd1;
+        4'd10: gate_q1_0 = 1'd0;
+        4'd11: gate_q1_0 = 1'd1;
+        4'd12: gate_q1_0 = 1'd1;
+        4'd13: gate_q1_0 = 1'd0;
+        4'd14: gate_q1_0 = 1'd1;
+        4'd15: gate_q1_0 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_q1_0_2_next = gate_q1_0(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_q0 = (|v_q0[12:LLR_W-1]) ? 5'd31 : v_q0[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_q0_2_next = neg_q0_s1_reg ? 6'd0 - {1'b0, sat_q0} : {1'b0, sat_q0};
-  wire [14:0] rsum_q1 = {1'd0, mag_q1_s1_reg} + 15'd2;
-  wire [12:0] v_q1 = rsum_q1[14:2];
+  function [8:0] gated_q1_0;
+    input [3:0] key;
+    begin
+      gated_q1_0 = 9'd0;
+      case (key)
+        4'd0: gated_q1_0 = 9'd0;
+        4'd1: gated_q1_0 = 9'd193;
+        4'd2: gated_q1_0 = 9'd0;
+        4'd3: gated_q1_0 = 9'd65;
+        4'd4: gated_q1_0 = 9'd64;
+        4'd5: gated_q1_0 = 9'd0;
+        4'd6: gated_q1_0 = 9'd192;
+        4'd7: gated_q1_0 = 9'd0;
+        4'd8: gated_q1_0 = 9'd0;
+        4'd9: gated_q1_0 = 9'd193;
+        4'd10: gated_q1_0 = 9'd0;
+        4'd11: gated_q1_0 = 9'd65;
+        4'd12: gated_q1_0 = 9'd64;
+        4'd13: gated_q1_0 = 9'd0;
+        4'd14: gated_q1_0 = 9'd192;
+        4'd15: gated_q1_0 = 9'd0;
+      endcase
+    end
+  endfunction
+  wire [8:0] ga_q1_0_2_next = gated_q1_0(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_q1 = (|v_q1[12:LLR_W-1]) ? 5'd31 : v_q1[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_q1_2_next = neg_q1_s1_reg ? 6'd0 - {1'b0, sat_q1} : {1'b0, sat_q1};
-  wire [14:0] rsum_q2 = {1'd0, mag_q2_s1_reg} + 15'd2;
-  wire [12:0] v_q2 = rsum_q2[14:2];
+  function gate_q1_1;
+    input [3:0] key;
+    begin
+      gate_q1_1 = 1'd0;
+      case (key)
+        4'd0: gate_q1_1 = 1'd0;
+        4'd1: gate_q1_1 = 1'd1;
+        4'd2: gate_q1_1 = 1'd1;
+        4'd3: gate_q1_1 = 1'd0;
+        4'd4: gate_q1_1 = 1'd0;
+        4'd5: gate_q1_1 = 1'd1;
+        4'd6: gate_q1_1 = 1'd1;
+        4'd7: gate_q1_1 = 1'd0;
+        4'd8: gate_q1_1 = 1'd0;
+        4'd9: gate_q1_1 = 1'd1;
+        4'd10: gate_q1_1 = 1'd1;
+        4'd11: gate_q1_1 = 1'd0;
+        4'd12: gate_q1_1 = 1'd0;
+        4'd13: gate_q1_1 = 1'd1;
+        4'd14: gate_q1_1 = 1'd1;
+        4'd15: gate_q1_1 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_q1_1_2_next = gate_q1_1(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_q2 = (|v_q2[12:LLR_W-1]) ? 5'd31 : v_q2[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_q2_2_next = neg_q2_s1_reg ? 6'd0 - {1'b0, sat_q2} : {1'b0, sat_q2};
-  wire [14:0] rsum_q3 = {1'd0, mag_q3_s1_reg} + 15'd2;
-  wire [12:0] v_q3 = rsum_q3[14:2];
+  function [8:0] gated_q1_1;
+    input [3:0] key;
+    begin
+      gated_q1_1 = 9'd0;
+      case (key)
+        4'd0: gated_q1_1 = 9'd0;
+        4'd1: gated_q1_1 = 9'd193;
+        4'd2: gated_q1_1 = 9'd129;
+        4'd3: gated_q1_1 = 9'd0;
+        4'd4: gated_q1_1 = 9'd0;
+        4'd5: gated_q1_1 = 9'd128;
+        4'd6: gated_q1_1 = 9'd192;
+        4'd7: gated_q1_1 = 9'd0;
+        4'd8: gated_q1_1 = 9'd0;
+        4'd9: gated_q1_1 = 9'd193;
+        4'd10: gated_q1_1 = 9'd129;
+        4'd11: gated_q1_1 = 9'd0;
+        4'd12: gated_q1_1 = 9'd0;
+        4'd13: gated_q1_1 = 9'd128;
+        4'd14: gated_q1_1 = 9'd192;
+        4'd15: gated_q1_1 = 9'd0;
+      endcase
+    end
+  endfunction
+  wire [8:0] ga_q1_1_2_next = gated_q1_1(n_q_s1_reg);
 
-  wire [LLR_W-2:0] sat_q3 = (|v_q3[12:LLR_W-1]) ? 5'd31 : v_q3[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_q3_2_next = neg_q3_s1_reg ? 6'd0 - {1'b0, sat_q3} : {1'b0, sat_q3};
+  function gate_q1_2;
+    input [3:0] key;
+    begin
+      gate_q1_2 = 1'd0;
+      case (key)
+        4'd0: gate_q1_2 = 1'd1;
+        4'd1: gate_q1_2 = 1'd0;
+        4'd2: gate_q1_2 = 1'd0;
+        4'd3: gate_q1_2 = 1'd0;
+        4'd4: gate_q1_2 = 1'd0;
+        4'd5: gate_q1_2 = 1'd0;
+        4'd6: gate_q1_2 = 1'd0;
+        4'd7: gate_q1_2 = 1'd1;
+        4'd8: gate_q1_2 = 1'd1;
+        4'd9: gate_q1_2 = 1'd0;
+        4'd10: gate_q1_2 = 1'd0;
+        4'd11: gate_q1_2 = 1'd0;
+        4'd12: gate_q1_2 = 1'd0;
+        4'd13: gate_q1_2 = 1'd0;
+        4'd14: gate_q1_2 = 1'd0;
+        4'd15: gate_q1_2 = 1'd1;
+      endcase
+    end
+  endfunction
+  wire g_q1_2_2_next = gate_q1_2(n_q_s1_reg);
 
-  // register stage 2 (after step "output")
+  function [8:0] gated_q1_2;
+    input [3:0] key;
+    begin
+      gated_q1_2 = 9'd0;
+      case (key)
+        4'd0: gated_q1_2 = 9'd257;
+        4'd1: gated_q1_2 = 9'd0;
+        4'd2: gated_q1_2 = 9'd0;
+        4'd3: gated_q1_2 = 9'd0;
+        4'd4: gated_q1_2 = 9'd0;
+        4'd5: gated_q1_2 = 9'd0;
+        4'd6: gated_q1_2 = 9'd0;
+        4'd7: gated_q1_2 = 9'd256;
+        4'd8: gated_q1_2 = 9'd257;
+        4'd9: gated_q1_2 = 9'd0;
+        4'd10: gated_q1_2 = 9'd0;
+        4'd11: gated_q1_2 = 9'd0;
+        4'd12: gated_q1_2 = 9'd0;
+        4'd13: gated_q1_2 = 9'd0;
+        4'd14: gated_q1_2 = 9'd0;
+        4'd15: gated_q1_2 = 9'd256;
+      endcase
+    end
+  endfunction
+  wire [8:0] ga_q1_2_2_next = gated_q1_2(n_q_s1_reg);
+
+  wire neg_q1_2_next = lab_q[2];
+  // axis bit 2 (label bit b5): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  function right_q2;
+    input [3:0] key;
+    begin
+      right_q2 = 1'd0;
+      case (key)
+        4'd0: right_q2 = 1'd1;
+        4'd1: right_q2 = 1'd1;
+        4'd2: right_q2 = 1'd0;
+        4'd3: right_q2 = 1'd0;
+        4'd4: right_q2 = 1'd1;
+        4'd5: right_q2 = 1'd1;
+        4'd6: right_q2 = 1'd0;
+        4'd7: right_q2 = 1'd0;
+        4'd8: right_q2 = 1'd1;
+        4'd9: right_q2 = 1'd1;
+        4'd10: right_q2 = 1'd0;
+        4'd11: right_q2 = 1'd0;
+        4'd12: right_q2 = 1'd1;
+        4'd13: right_q2 = 1'd1;
+        4'd14: right_q2 = 1'd0;
+        4'd15: right_q2 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_q2_2_next = right_q2(n_q_s1_reg);
+
+  function gate_q2_0;
+    input [3:0] key;
+    begin
+      gate_q2_0 = 1'd0;
+      case (key)
+        4'd0: gate_q2_0 = 1'd0;
+        4'd1: gate_q2_0 = 1'd1;
+        4'd2: gate_q2_0 = 1'd1;
+        4'd3: gate_q2_0 = 1'd0;
+        4'd4: gate_q2_0 = 1'd0;
+        4'd5: gate_q2_0 = 1'd1;
+        4'd6: gate_q2_0 = 1'd1;
+        4'd7: gate_q2_0 = 1'd0;
+        4'd8: gate_q2_0 = 1'd0;
+        4'd9: gate_q2_0 = 1'd1;
+        4'd10: gate_q2_0 = 1'd1;
+        4'd11: gate_q2_0 = 1'd0;
+        4'd12: gate_q2_0 = 1'd0;
+        4'd13: gate_q2_0 = 1'd1;
+        4'd14: gate_q2_0 = 1'd1;
+        4'd15: gate_q2_0 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire g_q2_0_2_next = gate_q2_0(n_q_s1_reg);
+
+  function [7:0] gated_q2_0;
+    input [3:0] key;
+    begin
+      gated_q2_0 = 8'd0;
+      case (key)
+        4'd0: gated_q2_0 = 8'd0;
+        4'd1: gated_q2_0 = 8'd65;
+        4'd2: gated_q2_0 = 8'd64;
+        4'd3: gated_q2_0 = 8'd0;
+        4'd4: gated_q2_0 = 8'd0;
+        4'd5: gated_q2_0 = 8'd65;
+        4'd6: gated_q2_0 = 8'd64;
+        4'd7: gated_q2_0 = 8'd0;
+        4'd8: gated_q2_0 = 8'd0;
+        4'd9: gated_q2_0 = 8'd65;
+        4'd10: gated_q2_0 = 8'd64;
+        4'd11: gated_q2_0 = 8'd0;
+        4'd12: gated_q2_0 = 8'd0;
+        4'd13: gated_q2_0 = 8'd65;
+        4'd14: gated_q2_0 = 8'd64;
+        4'd15: gated_q2_0 = 8'd0;
+      endcase
+    end
+  endfunction
+  wire [7:0] ga_q2_0_2_next = gated_q2_0(n_q_s1_reg);
+
+  function gate_q2_1;
+    input [3:0] key;
+    begin
+      gate_q2_1 = 1'd0;
+      case (key)
+        4'd0: gate_q2_1 = 1'd1;
+        4'd1: gate_q2_1 = 1'd0;
+        4'd2: gate_q2_1 = 1'd0;
+        4'd3: gate_q2_1 = 1'd1;
+        4'd4: gate_q2_1 = 1'd1;
+        4'd5: gate_q2_1 = 1'd0;
+        4'd6: gate_q2_1 = 1'd0;
+        4'd7: gate_q2_1 = 1'd1;
+        4'd8: gate_q2_1 = 1'd1;
+        4'd9: gate_q2_1 = 1'd0;
+        4'd10: gate_q2_1 = 1'd0;
+        4'd11: gate_q2_1 = 1'd1;
+        4'd12: gate_q2_1 = 1'd1;
+        4'd13: gate_q2_1 = 1'd0;
+        4'd14: gate_q2_1 = 1'd0;
+        4'd15: gate_q2_1 = 1'd1;
+      endcase
+    end
+  endfunction
+  wire g_q2_1_2_next = gate_q2_1(n_q_s1_reg);
+
+  function [7:0] gated_q2_1;
+    input [3:0] key;
+    begin
+      gated_q2_1 = 8'd0;
+      case (key)
+        4'd0: gated_q2_1 = 8'd129;
+        4'd1: gated_q2_1 = 8'd0;
+        4'd2: gated_q2_1 = 8'd0;
+        4'd3: gated_q2_1 = 8'd128;
+        4'd4: gated_q2_1 = 8'd129;
+        4'd5: gated_q2_1 = 8'd0;
+        4'd6: gated_q2_1 = 8'd0;
+        4'd7: gated_q2_1 = 8'd128;
+        4'd8: gated_q2_1 = 8'd129;
+        4'd9: gated_q2_1 = 8'd0;
+        4'd10: gated_q2_1 = 8'd0;
+        4'd11: gated_q2_1 = 8'd128;
+        4'd12: gated_q2_1 = 8'd129;
+        4'd13: gated_q2_1 = 8'd0;
+        4'd14: gated_q2_1 = 8'd0;
+        4'd15: gated_q2_1 = 8'd128;
+      endcase
+    end
+  endfunction
+  wire [7:0] ga_q2_1_2_next = gated_q2_1(n_q_s1_reg);
+
+  wire neg_q2_2_next = lab_q[1];
+  // axis bit 3 (label bit b7): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes the value 1
+  // (|dn| << 6) + (dn > 0)
+  function [6:0] competitor_q3;
+    input [3:0] key;
+    begin
+      competitor_q3 = 7'd0;
+      case (key)
+        4'd0: competitor_q3 = 7'd65;
+        4'd1: competitor_q3 = 7'd64;
+        4'd2: competitor_q3 = 7'd65;
+        4'd3: competitor_q3 = 7'd64;
+        4'd4: competitor_q3 = 7'd65;
+        4'd5: competitor_q3 = 7'd64;
+        4'd6: competitor_q3 = 7'd65;
+        4'd7: competitor_q3 = 7'd64;
+        4'd8: competitor_q3 = 7'd65;
+        4'd9: competitor_q3 = 7'd64;
+        4'd10: competitor_q3 = 7'd65;
+        4'd11: competitor_q3 = 7'd64;
+        4'd12: competitor_q3 = 7'd65;
+        4'd13: competitor_q3 = 7'd64;
+        4'd14: competitor_q3 = 7'd65;
+        4'd15: competitor_q3 = 7'd64;
+      endcase
+    end
+  endfunction
+  wire [6:0] dp_q3_2_next = competitor_q3(n_q_s1_reg);
+
+  function right_q3;
+    input [3:0] key;
+    begin
+      right_q3 = 1'd0;
+      case (key)
+        4'd0: right_q3 = 1'd1;
+        4'd1: right_q3 = 1'd0;
+        4'd2: right_q3 = 1'd1;
+        4'd3: right_q3 = 1'd0;
+        4'd4: right_q3 = 1'd1;
+        4'd5: right_q3 = 1'd0;
+        4'd6: right_q3 = 1'd1;
+        4'd7: right_q3 = 1'd0;
+        4'd8: right_q3 = 1'd1;
+        4'd9: right_q3 = 1'd0;
+        4'd10: right_q3 = 1'd1;
+        4'd11: right_q3 = 1'd0;
+        4'd12: right_q3 = 1'd1;
+        4'd13: right_q3 = 1'd0;
+        4'd14: right_q3 = 1'd1;
+        4'd15: right_q3 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_q3_2_next = right_q3(n_q_s1_reg);
+
+  wire neg_q3_2_next = lab_q[0];
+
+  // register stage 2 (after step "competitor")
   reg  tlast_s2_reg = 1'd0;
-  reg  [5:0] llr_i0_s2_reg = 6'd0;
-  reg  [5:0] llr_i1_s2_reg = 6'd0;
-  reg  [5:0] llr_i2_s2_reg = 6'd0;
-  reg  [5:0] llr_i3_s2_reg = 6'd0;
-  reg  [5:0] llr_q0_s2_reg = 6'd0;
-  reg  [5:0] llr_q1_s2_reg = 6'd0;
-  reg  [5:0] llr_q2_s2_reg = 6'd0;
-  reg  [5:0] llr_q3_s2_reg = 6'd0;
+  reg  [11:0] e_i_s2_reg = 12'd0;
+  reg  [11:0] e_q_s2_reg = 12'd0;
+  reg  pos_i0_s2_reg = 1'd0;
+  reg  g_i0_0_s2_reg = 1'd0;
+  reg  [9:0] ga_i0_0_s2_reg = 10'd0;
+  reg  g_i0_1_s2_reg = 1'd0;
+  reg  [9:0] ga_i0_1_s2_reg = 10'd0;
+  reg  g_i0_2_s2_reg = 1'd0;
+  reg  [9:0] ga_i0_2_s2_reg = 10'd0;
+  reg  g_i0_3_s2_reg = 1'd0;
+  reg  [9:0] ga_i0_3_s2_reg = 10'd0;
+  reg  neg_i0_s2_reg = 1'd0;
+  reg  pos_i1_s2_reg = 1'd0;
+  reg  g_i1_0_s2_reg = 1'd0;
+  reg  [8:0] ga_i1_0_s2_reg = 9'd0;
+  reg  g_i1_1_s2_reg = 1'd0;
+  reg  [8:0] ga_i1_1_s2_reg = 9'd0;
+  reg  g_i1_2_s2_reg = 1'd0;
+  reg  [8:0] ga_i1_2_s2_reg = 9'd0;
+  reg  neg_i1_s2_reg = 1'd0;
+  reg  pos_i2_s2_reg = 1'd0;
+  reg  g_i2_0_s2_reg = 1'd0;
+  reg  [7:0] ga_i2_0_s2_reg = 8'd0;
+  reg  g_i2_1_s2_reg = 1'd0;
+  reg  [7:0] ga_i2_1_s2_reg = 8'd0;
+  reg  neg_i2_s2_reg = 1'd0;
+  reg  [6:0] dp_i3_s2_reg = 7'd0;
+  reg  pos_i3_s2_reg = 1'd0;
+  reg  neg_i3_s2_reg = 1'd0;
+  reg  pos_q0_s2_reg = 1'd0;
+  reg  g_q0_0_s2_reg = 1'd0;
+  reg  [9:0] ga_q0_0_s2_reg = 10'd0;
+  reg  g_q0_1_s2_reg = 1'd0;
+  reg  [9:0] ga_q0_1_s2_reg = 10'd0;
+  reg  g_q0_2_s2_reg = 1'd0;
+  reg  [9:0] ga_q0_2_s2_reg = 10'd0;
+  reg  g_q0_3_s2_reg = 1'd0;
+  reg  [9:0] ga_q0_3_s2_reg = 10'd0;
+  reg  neg_q0_s2_reg = 1'd0;
+  reg  pos_q1_s2_reg = 1'd0;
+  reg  g_q1_0_s2_reg = 1'd0;
+  reg  [8:0] ga_q1_0_s2_reg = 9'd0;
+  reg  g_q1_1_s2_reg = 1'd0;
+  reg  [8:0] ga_q1_1_s2_reg = 9'd0;
+  reg  g_q1_2_s2_reg = 1'd0;
+  reg  [8:0] ga_q1_2_s2_reg = 9'd0;
+  reg  neg_q1_s2_reg = 1'd0;
+  reg  pos_q2_s2_reg = 1'd0;
+  reg  g_q2_0_s2_reg = 1'd0;
+  reg  [7:0] ga_q2_0_s2_reg = 8'd0;
+  reg  g_q2_1_s2_reg = 1'd0;
+  reg  [7:0] ga_q2_1_s2_reg = 8'd0;
+  reg  neg_q2_s2_reg = 1'd0;
+  reg  [6:0] dp_q3_s2_reg = 7'd0;
+  reg  pos_q3_s2_reg = 1'd0;
+  reg  neg_q3_s2_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
       tlast_s2_reg <= tlast_s1_reg;
-      llr_i0_s2_reg <= llr_i0_2_next;
-      llr_i1_s2_reg <= llr_i1_2_next;
-      llr_i2_s2_reg <= llr_i2_2_next;
-      llr_i3_s2_reg <= llr_i3_2_next;
-      llr_q0_s2_reg <= llr_q0_2_next;
-      llr_q1_s2_reg <= llr_q1_2_next;
-      llr_q2_s2_reg <= llr_q2_2_next;
-      llr_q3_s2_reg <= llr_q3_2_next;
+      e_i_s2_reg <= e_i_s1_reg;
+      e_q_s2_reg <= e_q_s1_reg;
+      pos_i0_s2_reg <= pos_i0_2_next;
+      g_i0_0_s2_reg <= g_i0_0_2_next;
+      ga_i0_0_s2_reg <= ga_i0_0_2_next;
+      g_i0_1_s2_reg <= g_i0_1_2_next;
+      ga_i0_1_s2_reg <= ga_i0_1_2_next;
+      g_i0_2_s2_reg <= g_i0_2_2_next;
+      ga_i0_2_s2_reg <= ga_i0_2_2_next;
+      g_i0_3_s2_reg <= g_i0_3_2_next;
+      ga_i0_3_s2_reg <= ga_i0_3_2_next;
+      neg_i0_s2_reg <= neg_i0_2_next;
+      pos_i1_s2_reg <= pos_i1_2_next;
+      g_i1_0_s2_reg <= g_i1_0_2_next;
+      ga_i1_0_s2_reg <= ga_i1_0_2_next;
+      g_i1_1_s2_reg <= g_i1_1_2_next;
+      ga_i1_1_s2_reg <= ga_i1_1_2_next;
+      g_i1_2_s2_reg <= g_i1_2_2_next;
+      ga_i1_2_s2_reg <= ga_i1_2_2_next;
+      neg_i1_s2_reg <= neg_i1_2_next;
+      pos_i2_s2_reg <= pos_i2_2_next;
+      g_i2_0_s2_reg <= g_i2_0_2_next;
+      ga_i2_0_s2_reg <= ga_i2_0_2_next;
+      g_i2_1_s2_reg <= g_i2_1_2_next;
+      ga_i2_1_s2_reg <= ga_i2_1_2_next;
+      neg_i2_s2_reg <= neg_i2_2_next;
+      dp_i3_s2_reg <= dp_i3_2_next;
+      pos_i3_s2_reg <= pos_i3_2_next;
+      neg_i3_s2_reg <= neg_i3_2_next;
+      pos_q0_s2_reg <= pos_q0_2_next;
+      g_q0_0_s2_reg <= g_q0_0_2_next;
+      ga_q0_0_s2_reg <= ga_q0_0_2_next;
+      g_q0_1_s2_reg <= g_q0_1_2_next;
+      ga_q0_1_s2_reg <= ga_q0_1_2_next;
+      g_q0_2_s2_reg <= g_q0_2_2_next;
+      ga_q0_2_s2_reg <= ga_q0_2_2_next;
+      g_q0_3_s2_reg <= g_q0_3_2_next;
+      ga_q0_3_s2_reg <= ga_q0_3_2_next;
+      neg_q0_s2_reg <= neg_q0_2_next;
+      pos_q1_s2_reg <= pos_q1_2_next;
+      g_q1_0_s2_reg <= g_q1_0_2_next;
+      ga_q1_0_s2_reg <= ga_q1_0_2_next;
+      g_q1_1_s2_reg <= g_q1_1_2_next;
+      ga_q1_1_s2_reg <= ga_q1_1_2_next;
+      g_q1_2_s2_reg <= g_q1_2_2_next;
+      ga_q1_2_s2_reg <= ga_q1_2_2_next;
+      neg_q1_s2_reg <= neg_q1_2_next;
+      pos_q2_s2_reg <= pos_q2_2_next;
+      g_q2_0_s2_reg <= g_q2_0_2_next;
+      ga_q2_0_s2_reg <= ga_q2_0_2_next;
+      g_q2_1_s2_reg <= g_q2_1_2_next;
+      ga_q2_1_s2_reg <= ga_q2_1_2_next;
+      neg_q2_s2_reg <= neg_q2_2_next;
+      dp_q3_s2_reg <= dp_q3_2_next;
+      pos_q3_s2_reg <= pos_q3_2_next;
+      neg_q3_s2_reg <= neg_q3_2_next;
     end
   end
 
 
-  assign m_axis_tdata = { llr_i0_s2_reg, llr_q0_s2_reg, llr_i1_s2_reg, llr_q1_s2_reg, llr_i2_s2_reg, llr_q2_s2_reg, llr_i3_s2_reg, llr_q3_s2_reg };
+  // ---------------------------------------------------------------- step 4: select
+  wire [12:0] gs_i0_0_3_next = g_i0_0_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i0_1_3_next = g_i0_1_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i0_2_3_next = g_i0_2_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i0_3_3_next = g_i0_3_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i1_0_3_next = g_i1_0_s2_reg ? (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i1_1_3_next = g_i1_1_s2_reg ? (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i1_2_3_next = g_i1_2_s2_reg ? (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i2_0_3_next = g_i2_0_s2_reg ? (pos_i2_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  wire [12:0] gs_i2_1_3_next = g_i2_1_s2_reg ? (pos_i2_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  // axis bit 3: dn > 0 ? ~e : e (the +1 of -e sits in the table's (|dn| << 6) + 1)
+  wire [12:0] se_i3_3_next = (pos_i3_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [12:0] gs_q0_0_3_next = g_q0_0_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q0_1_3_next = g_q0_1_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q0_2_3_next = g_q0_2_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q0_3_3_next = g_q0_3_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q1_0_3_next = g_q1_0_s2_reg ? (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q1_1_3_next = g_q1_1_s2_reg ? (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q1_2_3_next = g_q1_2_s2_reg ? (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q2_0_3_next = g_q2_0_s2_reg ? (pos_q2_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  wire [12:0] gs_q2_1_3_next = g_q2_1_s2_reg ? (pos_q2_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  // axis bit 3: dn > 0 ? ~e : e (the +1 of -e sits in the table's (|dn| << 6) + 1)
+  wire [12:0] se_q3_3_next = (pos_q3_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+
+  // register stage 3 (after step "select")
+  reg  tlast_s3_reg = 1'd0;
+  reg  [9:0] ga_i0_0_s3_reg = 10'd0;
+  reg  [9:0] ga_i0_1_s3_reg = 10'd0;
+  reg  [9:0] ga_i0_2_s3_reg = 10'd0;
+  reg  [9:0] ga_i0_3_s3_reg = 10'd0;
+  reg  neg_i0_s3_reg = 1'd0;
+  reg  [8:0] ga_i1_0_s3_reg = 9'd0;
+  reg  [8:0] ga_i1_1_s3_reg = 9'd0;
+  reg  [8:0] ga_i1_2_s3_reg = 9'd0;
+  reg  neg_i1_s3_reg = 1'd0;
+  reg  [7:0] ga_i2_0_s3_reg = 8'd0;
+  reg  [7:0] ga_i2_1_s3_reg = 8'd0;
+  reg  neg_i2_s3_reg = 1'd0;
+  reg  [6:0] dp_i3_s3_reg = 7'd0;
+  reg  neg_i3_s3_reg = 1'd0;
+  reg  [9:0] ga_q0_0_s3_reg = 10'd0;
+  reg  [9:0] ga_q0_1_s3_reg = 10'd0;
+  reg  [9:0] ga_q0_2_s3_reg = 10'd0;
+  reg  [9:0] ga_q0_3_s3_reg = 10'd0;
+  reg  neg_q0_s3_reg = 1'd0;
+  reg  [8:0] ga_q1_0_s3_reg = 9'd0;
+  reg  [8:0] ga_q1_1_s3_reg = 9'd0;
+  reg  [8:0] ga_q1_2_s3_reg = 9'd0;
+  reg  neg_q1_s3_reg = 1'd0;
+  reg  [7:0] ga_q2_0_s3_reg = 8'd0;
+  reg  [7:0] ga_q2_1_s3_reg = 8'd0;
+  reg  neg_q2_s3_reg = 1'd0;
+  reg  [6:0] dp_q3_s3_reg = 7'd0;
+  reg  neg_q3_s3_reg = 1'd0;
+  reg  [12:0] gs_i0_0_s3_reg = 13'd0;
+  reg  [12:0] gs_i0_1_s3_reg = 13'd0;
+  reg  [12:0] gs_i0_2_s3_reg = 13'd0;
+  reg  [12:0] gs_i0_3_s3_reg = 13'd0;
+  reg  [12:0] gs_i1_0_s3_reg = 13'd0;
+  reg  [12:0] gs_i1_1_s3_reg = 13'd0;
+  reg  [12:0] gs_i1_2_s3_reg = 13'd0;
+  reg  [12:0] gs_i2_0_s3_reg = 13'd0;
+  reg  [12:0] gs_i2_1_s3_reg = 13'd0;
+  reg  [12:0] se_i3_s3_reg = 13'd0;
+  reg  [12:0] gs_q0_0_s3_reg = 13'd0;
+  reg  [12:0] gs_q0_1_s3_reg = 13'd0;
+  reg  [12:0] gs_q0_2_s3_reg = 13'd0;
+  reg  [12:0] gs_q0_3_s3_reg = 13'd0;
+  reg  [12:0] gs_q1_0_s3_reg = 13'd0;
+  reg  [12:0] gs_q1_1_s3_reg = 13'd0;
+  reg  [12:0] gs_q1_2_s3_reg = 13'd0;
+  reg  [12:0] gs_q2_0_s3_reg = 13'd0;
+  reg  [12:0] gs_q2_1_s3_reg = 13'd0;
+  reg  [12:0] se_q3_s3_reg = 13'd0;
+  always @(posedge aclk) begin
+    if (ce_s3) begin
+      tlast_s3_reg <= tlast_s2_reg;
+      ga_i0_0_s3_reg <= ga_i0_0_s2_reg;
+      ga_i0_1_s3_reg <= ga_i0_1_s2_reg;
+      ga_i0_2_s3_reg <= ga_i0_2_s2_reg;
+      ga_i0_3_s3_reg <= ga_i0_3_s2_reg;
+      neg_i0_s3_reg <= neg_i0_s2_reg;
+      ga_i1_0_s3_reg <= ga_i1_0_s2_reg;
+      ga_i1_1_s3_reg <= ga_i1_1_s2_reg;
+      ga_i1_2_s3_reg <= ga_i1_2_s2_reg;
+      neg_i1_s3_reg <= neg_i1_s2_reg;
+      ga_i2_0_s3_reg <= ga_i2_0_s2_reg;
+      ga_i2_1_s3_reg <= ga_i2_1_s2_reg;
+      neg_i2_s3_reg <= neg_i2_s2_reg;
+      dp_i3_s3_reg <= dp_i3_s2_reg;
+      neg_i3_s3_reg <= neg_i3_s2_reg;
+      ga_q0_0_s3_reg <= ga_q0_0_s2_reg;
+      ga_q0_1_s3_reg <= ga_q0_1_s2_reg;
+      ga_q0_2_s3_reg <= ga_q0_2_s2_reg;
+      ga_q0_3_s3_reg <= ga_q0_3_s2_reg;
+      neg_q0_s3_reg <= neg_q0_s2_reg;
+      ga_q1_0_s3_reg <= ga_q1_0_s2_reg;
+      ga_q1_1_s3_reg <= ga_q1_1_s2_reg;
+      ga_q1_2_s3_reg <= ga_q1_2_s2_reg;
+      neg_q1_s3_reg <= neg_q1_s2_reg;
+      ga_q2_0_s3_reg <= ga_q2_0_s2_reg;
+      ga_q2_1_s3_reg <= ga_q2_1_s2_reg;
+      neg_q2_s3_reg <= neg_q2_s2_reg;
+      dp_q3_s3_reg <= dp_q3_s2_reg;
+      neg_q3_s3_reg <= neg_q3_s2_reg;
+      gs_i0_0_s3_reg <= gs_i0_0_3_next;
+      gs_i0_1_s3_reg <= gs_i0_1_3_next;
+      gs_i0_2_s3_reg <= gs_i0_2_3_next;
+      gs_i0_3_s3_reg <= gs_i0_3_3_next;
+      gs_i1_0_s3_reg <= gs_i1_0_3_next;
+      gs_i1_1_s3_reg <= gs_i1_1_3_next;
+      gs_i1_2_s3_reg <= gs_i1_2_3_next;
+      gs_i2_0_s3_reg <= gs_i2_0_3_next;
+      gs_i2_1_s3_reg <= gs_i2_1_3_next;
+      se_i3_s3_reg <= se_i3_3_next;
+      gs_q0_0_s3_reg <= gs_q0_0_3_next;
+      gs_q0_1_s3_reg <= gs_q0_1_3_next;
+      gs_q0_2_s3_reg <= gs_q0_2_3_next;
+      gs_q0_3_s3_reg <= gs_q0_3_3_next;
+      gs_q1_0_s3_reg <= gs_q1_0_3_next;
+      gs_q1_1_s3_reg <= gs_q1_1_3_next;
+      gs_q1_2_s3_reg <= gs_q1_2_3_next;
+      gs_q2_0_s3_reg <= gs_q2_0_3_next;
+      gs_q2_1_s3_reg <= gs_q2_1_3_next;
+      se_q3_s3_reg <= se_q3_3_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 5: residual
+  // gated copy: w = (|dn| bit 0) ? u : 0
+  wire [13:0] wx_i0_0 = {4'd0, ga_i0_0_s3_reg} + {{1{gs_i0_0_s3_reg[12]}}, gs_i0_0_s3_reg};
+  wire [10:0] w_i0_0_4_next = wx_i0_0[10:0];
+  // gated copy: w = (|dn| bit 1) ? u : 0
+  wire [13:0] wx_i0_1 = {4'd0, ga_i0_1_s3_reg} + {{1{gs_i0_1_s3_reg[12]}}, gs_i0_1_s3_reg};
+  wire [10:0] w_i0_1_4_next = wx_i0_1[10:0];
+  // gated copy: w = (|dn| bit 2) ? u : 0
+  wire [13:0] wx_i0_2 = {4'd0, ga_i0_2_s3_reg} + {{1{gs_i0_2_s3_reg[12]}}, gs_i0_2_s3_reg};
+  wire [10:0] w_i0_2_4_next = wx_i0_2[10:0];
+  // gated copy: w = (|dn| bit 3) ? u : 0
+  wire [13:0] wx_i0_3 = {4'd0, ga_i0_3_s3_reg} + {{1{gs_i0_3_s3_reg[12]}}, gs_i0_3_s3_reg};
+  wire [10:0] w_i0_3_4_next = wx_i0_3[10:0];
+  // gated copy: w = (|dn| bit 0) ? u : 0
+  wire [13:0] wx_i1_0 = {5'd0, ga_i1_0_s3_reg} + {{1{gs_i1_0_s3_reg[12]}}, gs_i1_0_s3_reg};
+  wire [10:0] w_i1_0_4_next = wx_i1_0[10:0];
+  // gated copy: w = (|dn| bit 1) ? u : 0
+  wire [13:0] wx_i1_1 = {5'd0, ga_i1_1_s3_reg} + {{1{gs_i1_1_s3_reg[12]}}, gs_i1_1_s3_reg};
+  wire [10:0] w_i1_1_4_next = wx_i1_1[10:0];
+  // gated copy: w = (|dn| bit 2) ? u : 0
+  wire [13:0] wx_i1_2 = {5'd0, ga_i1_2_s3_reg} + {{1{gs_i1_2_s3_reg[12]}}, gs_i1_2_s3_reg};
+  wire [10:0] w_i1_2_4_next = wx_i1_2[10:0];
+  // gated copy: w = (|dn| bit 0) ? u : 0
+  wire [13:0] wx_i2_0 = {6'd0, ga_i2_0_s3_reg} + {{1{gs_i2_0_s3_reg[12]}}, gs_i2_0_s3_reg};
+  wire [10:0] w_i2_0_4_next = wx_i2_0[10:0];
+  // gated copy: w = (|dn| bit 1) ? u : 0
+  wire [13:0] wx_i2_1 = {6'd0, ga_i2_1_s3_reg} + {{1{gs_i2_1_s3_reg[12]}}, gs_i2_1_s3_reg};
+  wire [10:0] w_i2_1_4_next = wx_i2_1[10:0];
+  // axis bit 3: u = |(dn << 6) - e| = ((|dn| << 6) + (dn > 0)) + (dn > 0 ? ~e : e) >= 0
+  wire [13:0] ux_i3 = {7'd0, dp_i3_s3_reg} + {{1{se_i3_s3_reg[12]}}, se_i3_s3_reg};
+  // |dn| = 1: R = u << 0, no multiply
+  wire [13:0] rx_i3 = ux_i3;
+  wire [13:0] mag_i3_4_next = rx_i3[13:0];
+  // gated copy: w = (|dn| bit 0) ? u : 0
+  wire [13:0] wx_q0_0 = {4'd0, ga_q0_0_s3_reg} + {{1{gs_q0_0_s3_reg[12]}}, gs_q0_0_s3_reg};
+  wire [10:0] w_q0_0_4_next = wx_q0_0[10:0];
+  // gated copy: w = (|dn| bit 1) ? u : 0
+  wire [13:0] wx_q0_1 = {4'd0, ga_q0_1_s3_reg} + {{1{gs_q0_1_s3_reg[12]}}, gs_q0_1_s3_reg};
+  wire [10:0] w_q0_1_4_next = wx_q0_1[10:0];
+  // gated copy: w = (|dn| bit 2) ? u : 0
+  wire [13:0] wx_q0_2 = {4'd0, ga_q0_2_s3_reg} + {{1{gs_q0_2_s3_reg[12]}}, gs_q0_2_s3_reg};
+  wire [10:0] w_q0_2_4_next = wx_q0_2[10:0];
+  // gated copy: w = (|dn| bit 3) ? u : 0
+  wire [13:0] wx_q0_3 = {4'd0, ga_q0_3_s3_reg} + {{1{gs_q0_3_s3_reg[12]}}, gs_q0_3_s3_reg};
+  wire [10:0] w_q0_3_4_next = wx_q0_3[10:0];
+  // gated copy: w = (|dn| bit 0) ? u : 0
+  wire [13:0] wx_q1_0 = {5'd0, ga_q1_0_s3_reg} + {{1{gs_q1_0_s3_reg[12]}}, gs_q1_0_s3_reg};
+  wire [10:0] w_q1_0_4_next = wx_q1_0[10:0];
+  // gated copy: w = (|dn| bit 1) ? u : 0
+  wire [13:0] wx_q1_1 = {5'd0, ga_q1_1_s3_reg} + {{1{gs_q1_1_s3_reg[12]}}, gs_q1_1_s3_reg};
+  wire [10:0] w_q1_1_4_next = wx_q1_1[10:0];
+  // gated copy: w = (|dn| bit 2) ? u : 0
+  wire [13:0] wx_q1_2 = {5'd0, ga_q1_2_s3_reg} + {{1{gs_q1_2_s3_reg[12]}}, gs_q1_2_s3_reg};
+  wire [10:0] w_q1_2_4_next = wx_q1_2[10:0];
+  // gated copy: w = (|dn| bit 0) ? u : 0
+  wire [13:0] wx_q2_0 = {6'd0, ga_q2_0_s3_reg} + {{1{gs_q2_0_s3_reg[12]}}, gs_q2_0_s3_reg};
+  wire [10:0] w_q2_0_4_next = wx_q2_0[10:0];
+  // gated copy: w = (|dn| bit 1) ? u : 0
+  wire [13:0] wx_q2_1 = {6'd0, ga_q2_1_s3_reg} + {{1{gs_q2_1_s3_reg[12]}}, gs_q2_1_s3_reg};
+  wire [10:0] w_q2_1_4_next = wx_q2_1[10:0];
+  // axis bit 3: u = |(dn << 6) - e| = ((|dn| << 6) + (dn > 0)) + (dn > 0 ? ~e : e) >= 0
+  wire [13:0] ux_q3 = {7'd0, dp_q3_s3_reg} + {{1{se_q3_s3_reg[12]}}, se_q3_s3_reg};
+  // |dn| = 1: R = u << 0, no multiply
+  wire [13:0] rx_q3 = ux_q3;
+  wire [13:0] mag_q3_4_next = rx_q3[13:0];
+
+  // register stage 4 (after step "residual")
+  reg  tlast_s4_reg = 1'd0;
+  reg  neg_i0_s4_reg = 1'd0;
+  reg  neg_i1_s4_reg = 1'd0;
+  reg  neg_i2_s4_reg = 1'd0;
+  reg  neg_i3_s4_reg = 1'd0;
+  reg  neg_q0_s4_reg = 1'd0;
+  reg  neg_q1_s4_reg = 1'd0;
+  reg  neg_q2_s4_reg = 1'd0;
+  reg  neg_q3_s4_reg = 1'd0;
+  reg  [10:0] w_i0_0_s4_reg = 11'd0;
+  reg  [10:0] w_i0_1_s4_reg = 11'd0;
+  reg  [10:0] w_i0_2_s4_reg = 11'd0;
+  reg  [10:0] w_i0_3_s4_reg = 11'd0;
+  reg  [10:0] w_i1_0_s4_reg = 11'd0;
+  reg  [10:0] w_i1_1_s4_reg = 11'd0;
+  reg  [10:0] w_i1_2_s4_reg = 11'd0;
+  reg  [10:0] w_i2_0_s4_reg = 11'd0;
+  reg  [10:0] w_i2_1_s4_reg = 11'd0;
+  reg  [13:0] mag_i3_s4_reg = 14'd0;
+  reg  [10:0] w_q0_0_s4_reg = 11'd0;
+  reg  [10:0] w_q0_1_s4_reg = 11'd0;
+  reg  [10:0] w_q0_2_s4_reg = 11'd0;
+  reg  [10:0] w_q0_3_s4_reg = 11'd0;
+  reg  [10:0] w_q1_0_s4_reg = 11'd0;
+  reg  [10:0] w_q1_1_s4_reg = 11'd0;
+  reg  [10:0] w_q1_2_s4_reg = 11'd0;
+  reg  [10:0] w_q2_0_s4_reg = 11'd0;
+  reg  [10:0] w_q2_1_s4_reg = 11'd0;
+  reg  [13:0] mag_q3_s4_reg = 14'd0;
+  always @(posedge aclk) begin
+    if (ce_s4) begin
+      tlast_s4_reg <= tlast_s3_reg;
+      neg_i0_s4_reg <= neg_i0_s3_reg;
+      neg_i1_s4_reg <= neg_i1_s3_reg;
+      neg_i2_s4_reg <= neg_i2_s3_reg;
+      neg_i3_s4_reg <= neg_i3_s3_reg;
+      neg_q0_s4_reg <= neg_q0_s3_reg;
+      neg_q1_s4_reg <= neg_q1_s3_reg;
+      neg_q2_s4_reg <= neg_q2_s3_reg;
+      neg_q3_s4_reg <= neg_q3_s3_reg;
+      w_i0_0_s4_reg <= w_i0_0_4_next;
+      w_i0_1_s4_reg <= w_i0_1_4_next;
+      w_i0_2_s4_reg <= w_i0_2_4_next;
+      w_i0_3_s4_reg <= w_i0_3_4_next;
+      w_i1_0_s4_reg <= w_i1_0_4_next;
+      w_i1_1_s4_reg <= w_i1_1_4_next;
+      w_i1_2_s4_reg <= w_i1_2_4_next;
+      w_i2_0_s4_reg <= w_i2_0_4_next;
+      w_i2_1_s4_reg <= w_i2_1_4_next;
+      mag_i3_s4_reg <= mag_i3_4_next;
+      w_q0_0_s4_reg <= w_q0_0_4_next;
+      w_q0_1_s4_reg <= w_q0_1_4_next;
+      w_q0_2_s4_reg <= w_q0_2_4_next;
+      w_q0_3_s4_reg <= w_q0_3_4_next;
+      w_q1_0_s4_reg <= w_q1_0_4_next;
+      w_q1_1_s4_reg <= w_q1_1_4_next;
+      w_q1_2_s4_reg <= w_q1_2_4_next;
+      w_q2_0_s4_reg <= w_q2_0_4_next;
+      w_q2_1_s4_reg <= w_q2_1_4_next;
+      mag_q3_s4_reg <= mag_q3_4_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 6: product
+  // axis bit 0: R = |dn| * u, the sum of u << i over the bits i of |dn| that can be 1 (gated copies w)
+  wire [10:0] pp_i0_0 = w_i0_0_s4_reg;
+  wire [11:0] pp_i0_1 = { w_i0_1_s4_reg, 1'd0 };
+
+  wire [10:0] acc_i0_0_0_5_next = pp_i0_0 + pp_i0_1[10:0];
+  wire [12:0] pp_i0_2 = { w_i0_2_s4_reg, 2'd0 };
+  wire [13:0] pp_i0_3 = { w_i0_3_s4_reg, 3'd0 };
+  wire [13:0] acc_i0_0_1_5_next = {1'd0, pp_i0_2} + pp_i0_3;
+  // axis bit 1: R = |dn| * u, the sum of u << i over the bits i of |dn| that can be 1 (gated copies w)
+  wire [10:0] pp_i1_0 = w_i1_0_s4_reg;
+
+  wire [11:0] pp_i1_1 = { w_i1_1_s4_reg, 1'd0 };
+
+  wire [9:0] acc_i1_0_0_5_next = pp_i1_0[9:0] + pp_i1_1[9:0];
+  wire [12:0] pp_i1_2 = { w_i1_2_s4_reg, 2'd0 };
+  wire [12:0] acc_i1_0_1_5_next = pp_i1_2;
+  // axis bit 2: R = |dn| * u, the sum of u << i over the bits i of |dn| that can be 1 (gated copies w)
+  wire [10:0] pp_i2_0 = w_i2_0_s4_reg;
+  wire [11:0] pp_i2_1 = { w_i2_1_s4_reg, 1'd0 };
+  wire [13:0] mag_i2_5_next = {3'd0, pp_i2_0} + {2'd0, pp_i2_1};
+  // axis bit 0: R = |dn| * u, the sum of u << i over the bits i of |dn| that can be 1 (gated copies w)
+  wire [10:0] pp_q0_0 = w_q0_0_s4_reg;
+  wire [11:0] pp_q0_1 = { w_q0_1_s4_reg, 1'd0 };
+
+  wire [10:0] acc_q0_0_0_5_next = pp_q0_0 + pp_q0_1[10:0];
+  wire [12:0] pp_q0_2 = { w_q0_2_s4_reg, 2'd0 };
+  wire [13:0] pp_q0_3 = { w_q0_3_s4_reg, 3'd0 };
+  wire [13:0] acc_q0_0_1_5_next = {1'd0, pp_q0_2} + pp_q0_3;
+  // axis bit 1: R = |dn| * u, the sum of u << i over the bits i of |dn| that can be 1 (gated copies w)
+  wire [10:0] pp_q1_0 = w_q1_0_s4_reg;
+
+  wire [11:0] pp_q1_1 = { w_q1_1_s4_reg, 1'd0 };
+
+  wire [9:0] acc_q1_0_0_5_next = pp_q1_0[9:0] + pp_q1_1[9:0];
+  wire [12:0] pp_q1_2 = { w_q1_2_s4_reg, 2'd0 };
+  wire [12:0] acc_q1_0_1_5_next = pp_q1_2;
+  // axis bit 2: R = |dn| * u, the sum of u << i over the bits i of |dn| that can be 1 (gated copies w)
+  wire [10:0] pp_q2_0 = w_q2_0_s4_reg;
+  wire [11:0] pp_q2_1 = { w_q2_1_s4_reg, 1'd0 };
+  wire [13:0] mag_q2_5_next = {3'd0, pp_q2_0} + {2'd0, pp_q2_1};
+
+  // register stage 5 (after step "product")
+  reg  tlast_s5_reg = 1'd0;
+  reg  neg_i0_s5_reg = 1'd0;
+  reg  neg_i1_s5_reg = 1'd0;
+  reg  neg_i2_s5_reg = 1'd0;
+  reg  neg_i3_s5_reg = 1'd0;
+  reg  neg_q0_s5_reg = 1'd0;
+  reg  neg_q1_s5_reg = 1'd0;
+  reg  neg_q2_s5_reg = 1'd0;
+  reg  neg_q3_s5_reg = 1'd0;
+  reg  [13:0] mag_i3_s5_reg = 14'd0;
+  reg  [13:0] mag_q3_s5_reg = 14'd0;
+  reg  [10:0] acc_i0_0_0_s5_reg = 11'd0;
+  reg  [13:0] acc_i0_0_1_s5_reg = 14'd0;
+  reg  [9:0] acc_i1_0_0_s5_reg = 10'd0;
+  reg  [12:0] acc_i1_0_1_s5_reg = 13'd0;
+  reg  [13:0] mag_i2_s5_reg = 14'd0;
+  reg  [10:0] acc_q0_0_0_s5_reg = 11'd0;
+  reg  [13:0] acc_q0_0_1_s5_reg = 14'd0;
+  reg  [9:0] acc_q1_0_0_s5_reg = 10'd0;
+  reg  [12:0] acc_q1_0_1_s5_reg = 13'd0;
+  reg  [13:0] mag_q2_s5_reg = 14'd0;
+  always @(posedge aclk) begin
+    if (ce_s5) begin
+      tlast_s5_reg <= tlast_s4_reg;
+      neg_i0_s5_reg <= neg_i0_s4_reg;
+      neg_i1_s5_reg <= neg_i1_s4_reg;
+      neg_i2_s5_reg <= neg_i2_s4_reg;
+      neg_i3_s5_reg <= neg_i3_s4_reg;
+      neg_q0_s5_reg <= neg_q0_s4_reg;
+      neg_q1_s5_reg <= neg_q1_s4_reg;
+      neg_q2_s5_reg <= neg_q2_s4_reg;
+      neg_q3_s5_reg <= neg_q3_s4_reg;
+      mag_i3_s5_reg <= mag_i3_s4_reg;
+      mag_q3_s5_reg <= mag_q3_s4_reg;
+      acc_i0_0_0_s5_reg <= acc_i0_0_0_5_next;
+      acc_i0_0_1_s5_reg <= acc_i0_0_1_5_next;
+      acc_i1_0_0_s5_reg <= acc_i1_0_0_5_next;
+      acc_i1_0_1_s5_reg <= acc_i1_0_1_5_next;
+      mag_i2_s5_reg <= mag_i2_5_next;
+      acc_q0_0_0_s5_reg <= acc_q0_0_0_5_next;
+      acc_q0_0_1_s5_reg <= acc_q0_0_1_5_next;
+      acc_q1_0_0_s5_reg <= acc_q1_0_0_5_next;
+      acc_q1_0_1_s5_reg <= acc_q1_0_1_5_next;
+      mag_q2_s5_reg <= mag_q2_5_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 7: accumulate
+  wire [13:0] mag_i0_6_next = {3'd0, acc_i0_0_0_s5_reg} + acc_i0_0_1_s5_reg;
+  wire [13:0] mag_i1_6_next = {4'd0, acc_i1_0_0_s5_reg} + {1'd0, acc_i1_0_1_s5_reg};
+  wire [13:0] mag_q0_6_next = {3'd0, acc_q0_0_0_s5_reg} + acc_q0_0_1_s5_reg;
+  wire [13:0] mag_q1_6_next = {4'd0, acc_q1_0_0_s5_reg} + {1'd0, acc_q1_0_1_s5_reg};
+
+  // register stage 6 (after step "accumulate")
+  reg  tlast_s6_reg = 1'd0;
+  reg  neg_i0_s6_reg = 1'd0;
+  reg  neg_i1_s6_reg = 1'd0;
+  reg  neg_i2_s6_reg = 1'd0;
+  reg  neg_i3_s6_reg = 1'd0;
+  reg  neg_q0_s6_reg = 1'd0;
+  reg  neg_q1_s6_reg = 1'd0;
+  reg  neg_q2_s6_reg = 1'd0;
+  reg  neg_q3_s6_reg = 1'd0;
+  reg  [13:0] mag_i3_s6_reg = 14'd0;
+  reg  [13:0] mag_q3_s6_reg = 14'd0;
+  reg  [13:0] mag_i2_s6_reg = 14'd0;
+  reg  [13:0] mag_q2_s6_reg = 14'd0;
+  reg  [13:0] mag_i0_s6_reg = 14'd0;
+  reg  [13:0] mag_i1_s6_reg = 14'd0;
+  reg  [13:0] mag_q0_s6_reg = 14'd0;
+  reg  [13:0] mag_q1_s6_reg = 14'd0;
+  always @(posedge aclk) begin
+    if (ce_s6) begin
+      tlast_s6_reg <= tlast_s5_reg;
+      neg_i0_s6_reg <= neg_i0_s5_reg;
+      neg_i1_s6_reg <= neg_i1_s5_reg;
+      neg_i2_s6_reg <= neg_i2_s5_reg;
+      neg_i3_s6_reg <= neg_i3_s5_reg;
+      neg_q0_s6_reg <= neg_q0_s5_reg;
+      neg_q1_s6_reg <= neg_q1_s5_reg;
+      neg_q2_s6_reg <= neg_q2_s5_reg;
+      neg_q3_s6_reg <= neg_q3_s5_reg;
+      mag_i3_s6_reg <= mag_i3_s5_reg;
+      mag_q3_s6_reg <= mag_q3_s5_reg;
+      mag_i2_s6_reg <= mag_i2_s5_reg;
+      mag_q2_s6_reg <= mag_q2_s5_reg;
+      mag_i0_s6_reg <= mag_i0_6_next;
+      mag_i1_s6_reg <= mag_i1_6_next;
+      mag_q0_s6_reg <= mag_q0_6_next;
+      mag_q1_s6_reg <= mag_q1_6_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 8: round
+  // rounding shift by 2 (half-away); the saturation compare runs beside the add, the mux after it
+  wire [14:0] rsum_i3 = {1'd0, mag_i3_s6_reg} + 15'd2;
+  wire [12:0] v_i3 = rsum_i3[14:2];
+
+  wire [LLR_W-2:0] v_i3_7_next = v_i3[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_i3 = {2'd0, mag_i3_s6_reg} + 16'd32642;
+  wire ovf_i3_7_next = oc_i3[15];
+
+  wire [14:0] rsum_q3 = {1'd0, mag_q3_s6_reg} + 15'd2;
+  wire [12:0] v_q3 = rsum_q3[14:2];
+
+  wire [LLR_W-2:0] v_q3_7_next = v_q3[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_q3 = {2'd0, mag_q3_s6_reg} + 16'd32642;
+  wire ovf_q3_7_next = oc_q3[15];
+
+  wire [14:0] rsum_i2 = {1'd0, mag_i2_s6_reg} + 15'd2;
+  wire [12:0] v_i2 = rsum_i2[14:2];
+
+  wire [LLR_W-2:0] v_i2_7_next = v_i2[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_i2 = {2'd0, mag_i2_s6_reg} + 16'd32642;
+  wire ovf_i2_7_next = oc_i2[15];
+
+  wire [14:0] rsum_q2 = {1'd0, mag_q2_s6_reg} + 15'd2;
+  wire [12:0] v_q2 = rsum_q2[14:2];
+
+  wire [LLR_W-2:0] v_q2_7_next = v_q2[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_q2 = {2'd0, mag_q2_s6_reg} + 16'd32642;
+  wire ovf_q2_7_next = oc_q2[15];
+
+  wire [14:0] rsum_i0 = {1'd0, mag_i0_s6_reg} + 15'd2;
+  wire [12:0] v_i0 = rsum_i0[14:2];
+
+  wire [LLR_W-2:0] v_i0_7_next = v_i0[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_i0 = {2'd0, mag_i0_s6_reg} + 16'd32642;
+  wire ovf_i0_7_next = oc_i0[15];
+
+  wire [14:0] rsum_i1 = {1'd0, mag_i1_s6_reg} + 15'd2;
+  wire [12:0] v_i1 = rsum_i1[14:2];
+
+  wire [LLR_W-2:0] v_i1_7_next = v_i1[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_i1 = {2'd0, mag_i1_s6_reg} + 16'd32642;
+  wire ovf_i1_7_next = oc_i1[15];
+
+  wire [14:0] rsum_q0 = {1'd0, mag_q0_s6_reg} + 15'd2;
+  wire [12:0] v_q0 = rsum_q0[14:2];
+
+  wire [LLR_W-2:0] v_q0_7_next = v_q0[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_q0 = {2'd0, mag_q0_s6_reg} + 16'd32642;
+  wire ovf_q0_7_next = oc_q0[15];
+
+  wire [14:0] rsum_q1 = {1'd0, mag_q1_s6_reg} + 15'd2;
+  wire [12:0] v_q1 = rsum_q1[14:2];
+
+  wire [LLR_W-2:0] v_q1_7_next = v_q1[LLR_W-2:0];
+
+  // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
+  wire [15:0] oc_q1 = {2'd0, mag_q1_s6_reg} + 16'd32642;
+  wire ovf_q1_7_next = oc_q1[15];
+
+
+  // register stage 7 (after step "round")
+  reg  tlast_s7_reg = 1'd0;
+  reg  neg_i0_s7_reg = 1'd0;
+  reg  neg_i1_s7_reg = 1'd0;
+  reg  neg_i2_s7_reg = 1'd0;
+  reg  neg_i3_s7_reg = 1'd0;
+  reg  neg_q0_s7_reg = 1'd0;
+  reg  neg_q1_s7_reg = 1'd0;
+  reg  neg_q2_s7_reg = 1'd0;
+  reg  neg_q3_s7_reg = 1'd0;
+  reg  [4:0] v_i3_s7_reg = 5'd0;
+  reg  ovf_i3_s7_reg = 1'd0;
+  reg  [4:0] v_q3_s7_reg = 5'd0;
+  reg  ovf_q3_s7_reg = 1'd0;
+  reg  [4:0] v_i2_s7_reg = 5'd0;
+  reg  ovf_i2_s7_reg = 1'd0;
+  reg  [4:0] v_q2_s7_reg = 5'd0;
+  reg  ovf_q2_s7_reg = 1'd0;
+  reg  [4:0] v_i0_s7_reg = 5'd0;
+  reg  ovf_i0_s7_reg = 1'd0;
+  reg  [4:0] v_i1_s7_reg = 5'd0;
+  reg  ovf_i1_s7_reg = 1'd0;
+  reg  [4:0] v_q0_s7_reg = 5'd0;
+  reg  ovf_q0_s7_reg = 1'd0;
+  reg  [4:0] v_q1_s7_reg = 5'd0;
+  reg  ovf_q1_s7_reg = 1'd0;
+  always @(posedge aclk) begin
+    if (ce_s7) begin
+      tlast_s7_reg <= tlast_s6_reg;
+      neg_i0_s7_reg <= neg_i0_s6_reg;
+      neg_i1_s7_reg <= neg_i1_s6_reg;
+      neg_i2_s7_reg <= neg_i2_s6_reg;
+      neg_i3_s7_reg <= neg_i3_s6_reg;
+      neg_q0_s7_reg <= neg_q0_s6_reg;
+      neg_q1_s7_reg <= neg_q1_s6_reg;
+      neg_q2_s7_reg <= neg_q2_s6_reg;
+      neg_q3_s7_reg <= neg_q3_s6_reg;
+      v_i3_s7_reg <= v_i3_7_next;
+      ovf_i3_s7_reg <= ovf_i3_7_next;
+      v_q3_s7_reg <= v_q3_7_next;
+      ovf_q3_s7_reg <= ovf_q3_7_next;
+      v_i2_s7_reg <= v_i2_7_next;
+      ovf_i2_s7_reg <= ovf_i2_7_next;
+      v_q2_s7_reg <= v_q2_7_next;
+      ovf_q2_s7_reg <= ovf_q2_7_next;
+      v_i0_s7_reg <= v_i0_7_next;
+      ovf_i0_s7_reg <= ovf_i0_7_next;
+      v_i1_s7_reg <= v_i1_7_next;
+      ovf_i1_s7_reg <= ovf_i1_7_next;
+      v_q0_s7_reg <= v_q0_7_next;
+      ovf_q0_s7_reg <= ovf_q0_7_next;
+      v_q1_s7_reg <= v_q1_7_next;
+      ovf_q1_s7_reg <= ovf_q1_7_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 9: sign
+  // symmetric saturation to +-31 and the sign of the decided level's label bit: -v beside v, one mux
+  wire [LLR_W-1:0] negv_i3 = 6'd0 - {1'b0, v_i3_s7_reg};
+  wire [LLR_W-1:0] llr_i3_8_next = ovf_i3_s7_reg ? (neg_i3_s7_reg ? 6'd33 : 6'd31) : (neg_i3_s7_reg ? negv_i3 : {1'b0, v_i3_s7_reg});
+  wire [LLR_W-1:0] negv_q3 = 6'd0 - {1'b0, v_q3_s7_reg};
+  wire [LLR_W-1:0] llr_q3_8_next = ovf_q3_s7_reg ? (neg_q3_s7_reg ? 6'd33 : 6'd31) : (neg_q3_s7_reg ? negv_q3 : {1'b0, v_q3_s7_reg});
+  wire [LLR_W-1:0] negv_i2 = 6'd0 - {1'b0, v_i2_s7_reg};
+  wire [LLR_W-1:0] llr_i2_8_next = ovf_i2_s7_reg ? (neg_i2_s7_reg ? 6'd33 : 6'd31) : (neg_i2_s7_reg ? negv_i2 : {1'b0, v_i2_s7_reg});
+  wire [LLR_W-1:0] negv_q2 = 6'd0 - {1'b0, v_q2_s7_reg};
+  wire [LLR_W-1:0] llr_q2_8_next = ovf_q2_s7_reg ? (neg_q2_s7_reg ? 6'd33 : 6'd31) : (neg_q2_s7_reg ? negv_q2 : {1'b0, v_q2_s7_reg});
+  wire [LLR_W-1:0] negv_i0 = 6'd0 - {1'b0, v_i0_s7_reg};
+  wire [LLR_W-1:0] llr_i0_8_next = ovf_i0_s7_reg ? (neg_i0_s7_reg ? 6'd33 : 6'd31) : (neg_i0_s7_reg ? negv_i0 : {1'b0, v_i0_s7_reg});
+  wire [LLR_W-1:0] negv_i1 = 6'd0 - {1'b0, v_i1_s7_reg};
+  wire [LLR_W-1:0] llr_i1_8_next = ovf_i1_s7_reg ? (neg_i1_s7_reg ? 6'd33 : 6'd31) : (neg_i1_s7_reg ? negv_i1 : {1'b0, v_i1_s7_reg});
+  wire [LLR_W-1:0] negv_q0 = 6'd0 - {1'b0, v_q0_s7_reg};
+  wire [LLR_W-1:0] llr_q0_8_next = ovf_q0_s7_reg ? (neg_q0_s7_reg ? 6'd33 : 6'd31) : (neg_q0_s7_reg ? negv_q0 : {1'b0, v_q0_s7_reg});
+  wire [LLR_W-1:0] negv_q1 = 6'd0 - {1'b0, v_q1_s7_reg};
+  wire [LLR_W-1:0] llr_q1_8_next = ovf_q1_s7_reg ? (neg_q1_s7_reg ? 6'd33 : 6'd31) : (neg_q1_s7_reg ? negv_q1 : {1'b0, v_q1_s7_reg});
+
+  // register stage 8 (after step "sign")
+  reg  tlast_s8_reg = 1'd0;
+  reg  [5:0] llr_i3_s8_reg = 6'd0;
+  reg  [5:0] llr_q3_s8_reg = 6'd0;
+  reg  [5:0] llr_i2_s8_reg = 6'd0;
+  reg  [5:0] llr_q2_s8_reg = 6'd0;
+  reg  [5:0] llr_i0_s8_reg = 6'd0;
+  reg  [5:0] llr_i1_s8_reg = 6'd0;
+  reg  [5:0] llr_q0_s8_reg = 6'd0;
+  reg  [5:0] llr_q1_s8_reg = 6'd0;
+  always @(posedge aclk) begin
+    if (ce_s8) begin
+      tlast_s8_reg <= tlast_s7_reg;
+      llr_i3_s8_reg <= llr_i3_8_next;
+      llr_q3_s8_reg <= llr_q3_8_next;
+      llr_i2_s8_reg <= llr_i2_8_next;
+      llr_q2_s8_reg <= llr_q2_8_next;
+      llr_i0_s8_reg <= llr_i0_8_next;
+      llr_i1_s8_reg <= llr_i1_8_next;
+      llr_q0_s8_reg <= llr_q0_8_next;
+      llr_q1_s8_reg <= llr_q1_8_next;
+    end
+  end
+
+
+  assign m_axis_tdata = { llr_i0_s8_reg, llr_q0_s8_reg, llr_i1_s8_reg, llr_q1_s8_reg, llr_i2_s8_reg, llr_q2_s8_reg, llr_i3_s8_reg, llr_q3_s8_reg };
 
   // ---------------------------------------------------------------- stream control
   // Stage s loads when it is empty or when the stage after it loads, so the pipeline
@@ -527,29 +2140,53 @@ module lvt_bh256_demapper (
   reg  valid_s0_reg = 1'b0;
   reg  valid_s1_reg = 1'b0;
   reg  valid_s2_reg = 1'b0;
+  reg  valid_s3_reg = 1'b0;
+  reg  valid_s4_reg = 1'b0;
+  reg  valid_s5_reg = 1'b0;
+  reg  valid_s6_reg = 1'b0;
+  reg  valid_s7_reg = 1'b0;
+  reg  valid_s8_reg = 1'b0;
   wire ce_s0 = !valid_s0_reg || ce_s1;
   wire ce_s1 = !valid_s1_reg || ce_s2;
-  wire ce_s2 = !valid_s2_reg || m_axis_tready;
+  wire ce_s2 = !valid_s2_reg || ce_s3;
+  wire ce_s3 = !valid_s3_reg || ce_s4;
+  wire ce_s4 = !valid_s4_reg || ce_s5;
+  wire ce_s5 = !valid_s5_reg || ce_s6;
+  wire ce_s6 = !valid_s6_reg || ce_s7;
+  wire ce_s7 = !valid_s7_reg || ce_s8;
+  wire ce_s8 = !valid_s8_reg || m_axis_tready;
 
   always @(posedge aclk) begin
     if (ce_s0) valid_s0_reg <= in_tvalid;
     if (ce_s1) valid_s1_reg <= valid_s0_reg;
     if (ce_s2) valid_s2_reg <= valid_s1_reg;
+    if (ce_s3) valid_s3_reg <= valid_s2_reg;
+    if (ce_s4) valid_s4_reg <= valid_s3_reg;
+    if (ce_s5) valid_s5_reg <= valid_s4_reg;
+    if (ce_s6) valid_s6_reg <= valid_s5_reg;
+    if (ce_s7) valid_s7_reg <= valid_s6_reg;
+    if (ce_s8) valid_s8_reg <= valid_s7_reg;
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) begin
       valid_s0_reg <= 1'b0;
       valid_s1_reg <= 1'b0;
       valid_s2_reg <= 1'b0;
+      valid_s3_reg <= 1'b0;
+      valid_s4_reg <= 1'b0;
+      valid_s5_reg <= 1'b0;
+      valid_s6_reg <= 1'b0;
+      valid_s7_reg <= 1'b0;
+      valid_s8_reg <= 1'b0;
     end
   end
 
   assign s_axis_tready = ce_s0;
-  assign m_axis_tvalid = valid_s2_reg;
-  assign m_axis_tlast  = tlast_s2_reg;
+  assign m_axis_tvalid = valid_s8_reg;
+  assign m_axis_tlast  = tlast_s8_reg;
 
 
   // bits that are provably constant (ranges checked by the generator) or not needed
-  wire unused_bits = ^{ sum_i[6:0], diff_i[12:12], sum_q[6:0], diff_q[12:12], tfull_i0[12:12], r_i0[14:14], tfull_i1[12:12], r_i1[14:14], tfull_i2[12:12], r_i2[14:14], tfull_i3[12:12], r_i3[14:14], tfull_q0[12:12], r_q0[14:14], tfull_q1[12:12], r_q1[14:14], tfull_q2[12:12], r_q2[14:14], tfull_q3[12:12], r_q3[14:14], rsum_i0[1:0], rsum_i1[1:0], rsum_i2[1:0], rsum_i3[1:0], rsum_q0[1:0], rsum_q1[1:0], rsum_q2[1:0], rsum_q3[1:0] };
+  wire unused_bits = ^{ sum_i[11:11], sum_i[6:0], hsum_i[11:0], elo_i[12:12], ehi_i[12:12], sum_q[11:11], sum_q[6:0], hsum_q[11:0], elo_q[12:12], ehi_q[12:12], wx_i0_0[13:11], wx_i0_1[13:11], wx_i0_2[13:11], wx_i0_3[13:11], wx_i1_0[13:11], wx_i1_1[13:11], wx_i1_2[13:11], wx_i2_0[13:11], wx_i2_1[13:11], wx_q0_0[13:11], wx_q0_1[13:11], wx_q0_2[13:11], wx_q0_3[13:11], wx_q1_0[13:11], wx_q1_1[13:11], wx_q1_2[13:11], wx_q2_0[13:11], wx_q2_1[13:11], pp_i0_1[11:11], pp_i1_0[10:10], pp_i1_1[11:10], pp_q0_1[11:11], pp_q1_0[10:10], pp_q1_1[11:10], rsum_i3[1:0], v_i3[12:LLR_W-1], oc_i3[14:0], rsum_q3[1:0], v_q3[12:LLR_W-1], oc_q3[14:0], rsum_i2[1:0], v_i2[12:LLR_W-1], oc_i2[14:0], rsum_q2[1:0], v_q2[12:LLR_W-1], oc_q2[14:0], rsum_i0[1:0], v_i0[12:LLR_W-1], oc_i0[14:0], rsum_i1[1:0], v_i1[12:LLR_W-1], oc_i1[14:0], rsum_q0[1:0], v_q0[12:LLR_W-1], oc_q0[14:0], rsum_q1[1:0], v_q1[12:LLR_W-1], oc_q1[14:0] };
 
 
 endmodule

@@ -36,7 +36,7 @@
 //        4 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^4 codes.
 // Output: 4 signed 6-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
 //         saturated symmetrically to +-31.
-// Architecture: 2-D search over every point; latency 3 cycles, one symbol per clock.
+// Architecture: 2-D search over every point; latency 4 cycles, one symbol per clock.
 module lvt_spur16_demapper (
   // clock and reset
   input  wire           aclk,
@@ -276,47 +276,107 @@ module lvt_spur16_demapper (
   end
 
 
-  // ---------------------------------------------------------------- step 3: output
-  // rounding shift by 9 (half-away), symmetric saturation to +-31, sign
+  // ---------------------------------------------------------------- step 3: round
+  // rounding shift by 9 (half-away); the saturation compare runs beside the add, the mux after it
   wire [20:0] rsum_0 = {1'd0, mag_0_s1_reg} + 21'd256;
   wire [11:0] v_0 = rsum_0[20:9];
 
-  wire [LLR_W-2:0] sat_0 = (|v_0[11:LLR_W-1]) ? 5'd31 : v_0[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_0_2_next = neg_0_s1_reg ? 6'd0 - {1'b0, sat_0} : {1'b0, sat_0};
+  wire [LLR_W-2:0] v_0_2_next = v_0[LLR_W-2:0];
+
+  // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
+  wire [21:0] oc_0 = {2'd0, mag_0_s1_reg} + 22'd2081024;
+  wire ovf_0_2_next = oc_0[21];
+
   wire [20:0] rsum_1 = {1'd0, mag_1_s1_reg} + 21'd256;
   wire [11:0] v_1 = rsum_1[20:9];
 
-  wire [LLR_W-2:0] sat_1 = (|v_1[11:LLR_W-1]) ? 5'd31 : v_1[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_1_2_next = neg_1_s1_reg ? 6'd0 - {1'b0, sat_1} : {1'b0, sat_1};
+  wire [LLR_W-2:0] v_1_2_next = v_1[LLR_W-2:0];
+
+  // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
+  wire [21:0] oc_1 = {2'd0, mag_1_s1_reg} + 22'd2081024;
+  wire ovf_1_2_next = oc_1[21];
+
   wire [20:0] rsum_2 = {1'd0, mag_2_s1_reg} + 21'd256;
   wire [11:0] v_2 = rsum_2[20:9];
 
-  wire [LLR_W-2:0] sat_2 = (|v_2[11:LLR_W-1]) ? 5'd31 : v_2[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_2_2_next = neg_2_s1_reg ? 6'd0 - {1'b0, sat_2} : {1'b0, sat_2};
+  wire [LLR_W-2:0] v_2_2_next = v_2[LLR_W-2:0];
+
+  // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
+  wire [21:0] oc_2 = {2'd0, mag_2_s1_reg} + 22'd2081024;
+  wire ovf_2_2_next = oc_2[21];
+
   wire [20:0] rsum_3 = {1'd0, mag_3_s1_reg} + 21'd256;
   wire [11:0] v_3 = rsum_3[20:9];
 
-  wire [LLR_W-2:0] sat_3 = (|v_3[11:LLR_W-1]) ? 5'd31 : v_3[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_3_2_next = neg_3_s1_reg ? 6'd0 - {1'b0, sat_3} : {1'b0, sat_3};
+  wire [LLR_W-2:0] v_3_2_next = v_3[LLR_W-2:0];
 
-  // register stage 2 (after step "output")
+  // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
+  wire [21:0] oc_3 = {2'd0, mag_3_s1_reg} + 22'd2081024;
+  wire ovf_3_2_next = oc_3[21];
+
+
+  // register stage 2 (after step "round")
   reg  tlast_s2_reg = 1'd0;
-  reg  [5:0] llr_0_s2_reg = 6'd0;
-  reg  [5:0] llr_1_s2_reg = 6'd0;
-  reg  [5:0] llr_2_s2_reg = 6'd0;
-  reg  [5:0] llr_3_s2_reg = 6'd0;
+  reg  neg_0_s2_reg = 1'd0;
+  reg  neg_1_s2_reg = 1'd0;
+  reg  neg_2_s2_reg = 1'd0;
+  reg  neg_3_s2_reg = 1'd0;
+  reg  [4:0] v_0_s2_reg = 5'd0;
+  reg  ovf_0_s2_reg = 1'd0;
+  reg  [4:0] v_1_s2_reg = 5'd0;
+  reg  ovf_1_s2_reg = 1'd0;
+  reg  [4:0] v_2_s2_reg = 5'd0;
+  reg  ovf_2_s2_reg = 1'd0;
+  reg  [4:0] v_3_s2_reg = 5'd0;
+  reg  ovf_3_s2_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
       tlast_s2_reg <= tlast_s1_reg;
-      llr_0_s2_reg <= llr_0_2_next;
-      llr_1_s2_reg <= llr_1_2_next;
-      llr_2_s2_reg <= llr_2_2_next;
-      llr_3_s2_reg <= llr_3_2_next;
+      neg_0_s2_reg <= neg_0_s1_reg;
+      neg_1_s2_reg <= neg_1_s1_reg;
+      neg_2_s2_reg <= neg_2_s1_reg;
+      neg_3_s2_reg <= neg_3_s1_reg;
+      v_0_s2_reg <= v_0_2_next;
+      ovf_0_s2_reg <= ovf_0_2_next;
+      v_1_s2_reg <= v_1_2_next;
+      ovf_1_s2_reg <= ovf_1_2_next;
+      v_2_s2_reg <= v_2_2_next;
+      ovf_2_s2_reg <= ovf_2_2_next;
+      v_3_s2_reg <= v_3_2_next;
+      ovf_3_s2_reg <= ovf_3_2_next;
     end
   end
 
 
-  assign m_axis_tdata = { llr_0_s2_reg, llr_1_s2_reg, llr_2_s2_reg, llr_3_s2_reg };
+  // ---------------------------------------------------------------- step 4: sign
+  // symmetric saturation to +-31 and the sign of the decided level's label bit: -v beside v, one mux
+  wire [LLR_W-1:0] negv_0 = 6'd0 - {1'b0, v_0_s2_reg};
+  wire [LLR_W-1:0] llr_0_3_next = ovf_0_s2_reg ? (neg_0_s2_reg ? 6'd33 : 6'd31) : (neg_0_s2_reg ? negv_0 : {1'b0, v_0_s2_reg});
+  wire [LLR_W-1:0] negv_1 = 6'd0 - {1'b0, v_1_s2_reg};
+  wire [LLR_W-1:0] llr_1_3_next = ovf_1_s2_reg ? (neg_1_s2_reg ? 6'd33 : 6'd31) : (neg_1_s2_reg ? negv_1 : {1'b0, v_1_s2_reg});
+  wire [LLR_W-1:0] negv_2 = 6'd0 - {1'b0, v_2_s2_reg};
+  wire [LLR_W-1:0] llr_2_3_next = ovf_2_s2_reg ? (neg_2_s2_reg ? 6'd33 : 6'd31) : (neg_2_s2_reg ? negv_2 : {1'b0, v_2_s2_reg});
+  wire [LLR_W-1:0] negv_3 = 6'd0 - {1'b0, v_3_s2_reg};
+  wire [LLR_W-1:0] llr_3_3_next = ovf_3_s2_reg ? (neg_3_s2_reg ? 6'd33 : 6'd31) : (neg_3_s2_reg ? negv_3 : {1'b0, v_3_s2_reg});
+
+  // register stage 3 (after step "sign")
+  reg  tlast_s3_reg = 1'd0;
+  reg  [5:0] llr_0_s3_reg = 6'd0;
+  reg  [5:0] llr_1_s3_reg = 6'd0;
+  reg  [5:0] llr_2_s3_reg = 6'd0;
+  reg  [5:0] llr_3_s3_reg = 6'd0;
+  always @(posedge aclk) begin
+    if (ce_s3) begin
+      tlast_s3_reg <= tlast_s2_reg;
+      llr_0_s3_reg <= llr_0_3_next;
+      llr_1_s3_reg <= llr_1_3_next;
+      llr_2_s3_reg <= llr_2_3_next;
+      llr_3_s3_reg <= llr_3_3_next;
+    end
+  end
+
+
+  assign m_axis_tdata = { llr_0_s3_reg, llr_1_s3_reg, llr_2_s3_reg, llr_3_s3_reg };
 
   // ---------------------------------------------------------------- stream control
   // Stage s loads when it is empty or when the stage after it loads, so the pipeline
@@ -324,29 +384,33 @@ module lvt_spur16_demapper (
   reg  valid_s0_reg = 1'b0;
   reg  valid_s1_reg = 1'b0;
   reg  valid_s2_reg = 1'b0;
+  reg  valid_s3_reg = 1'b0;
   wire ce_s0 = !valid_s0_reg || ce_s1;
   wire ce_s1 = !valid_s1_reg || ce_s2;
-  wire ce_s2 = !valid_s2_reg || m_axis_tready;
+  wire ce_s2 = !valid_s2_reg || ce_s3;
+  wire ce_s3 = !valid_s3_reg || m_axis_tready;
 
   always @(posedge aclk) begin
     if (ce_s0) valid_s0_reg <= in_tvalid;
     if (ce_s1) valid_s1_reg <= valid_s0_reg;
     if (ce_s2) valid_s2_reg <= valid_s1_reg;
+    if (ce_s3) valid_s3_reg <= valid_s2_reg;
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) begin
       valid_s0_reg <= 1'b0;
       valid_s1_reg <= 1'b0;
       valid_s2_reg <= 1'b0;
+      valid_s3_reg <= 1'b0;
     end
   end
 
   assign s_axis_tready = ce_s0;
-  assign m_axis_tvalid = valid_s2_reg;
-  assign m_axis_tlast  = tlast_s2_reg;
+  assign m_axis_tvalid = valid_s3_reg;
+  assign m_axis_tlast  = tlast_s3_reg;
 
 
   // bits that are provably constant (ranges checked by the generator) or not needed
-  wire unused_bits = ^{ dd_0[21:20], dd_1[21:20], dd_2[21:20], dd_3[21:20], dd_4[21:20], dd_5[21:20], dd_6[21:20], dd_7[21:20], dd_8[21:20], dd_9[21:20], dd_10[21:20], dd_11[21:20], dd_12[21:20], dd_13[21:20], dd_14[21:20], dd_15[21:20], dabs_0[20:20], dabs_1[20:20], dabs_2[20:20], dabs_3[20:20], rsum_0[8:0], rsum_1[8:0], rsum_2[8:0], rsum_3[8:0] };
+  wire unused_bits = ^{ dd_0[21:20], dd_1[21:20], dd_2[21:20], dd_3[21:20], dd_4[21:20], dd_5[21:20], dd_6[21:20], dd_7[21:20], dd_8[21:20], dd_9[21:20], dd_10[21:20], dd_11[21:20], dd_12[21:20], dd_13[21:20], dd_14[21:20], dd_15[21:20], dabs_0[20:20], dabs_1[20:20], dabs_2[20:20], dabs_3[20:20], rsum_0[8:0], v_0[11:LLR_W-1], oc_0[20:0], rsum_1[8:0], v_1[11:LLR_W-1], oc_1[20:0], rsum_2[8:0], v_2[11:LLR_W-1], oc_2[20:0], rsum_3[8:0], v_3[11:LLR_W-1], oc_3[20:0] };
 
 
 endmodule

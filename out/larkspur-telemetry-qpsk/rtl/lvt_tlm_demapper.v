@@ -36,7 +36,7 @@
 //        4 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^4 codes.
 // Output: 2 signed 5-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
 //         saturated symmetrically to +-15.
-// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 4 cycles, one symbol per clock.
+// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 8 cycles, one symbol per clock.
 module lvt_tlm_demapper (
   // clock and reset
   input  wire           aclk,
@@ -66,52 +66,107 @@ module lvt_tlm_demapper (
   wire                     in_tlast = s_axis_tlast;
 
 
-  // ---------------------------------------------------------------- step 1: decide
-  // I axis (2 levels): n = clamp((y + (L << 4)) >>> (4 + 1), 0, L - 1)
+  // ---------------------------------------------------------------- step 1: range
+  // I axis (2 levels): n = clamp((y + (L << 4)) >>> (4 + 1), 0, L - 1); the adders side by side
   wire [8:0] sum_i = {{1{in_y_i[7]}}, in_y_i} + 9'd32;
-  wire [0:0] nhat_i = sum_i[8] ? 1'd0 :
-                        (|sum_i[7:6]) ? 1'd1 :
-                        sum_i[5:5];
+  wire [0:0] nm_i_0_next = sum_i[5:5];
+  wire lo_i_0_next = sum_i[8];
 
-  wire [0:0] n_i_0_next = nhat_i;
-  // residual e = y - (2n - (L-1)) * 2^4
-  wire [1:0] alev_i = { nhat_i, 1'b1 } - 2'd2;
-  wire [5:0] ahat_i = { alev_i, 4'd0 };
-  wire [8:0] diff_i = {{1{in_y_i[7]}}, in_y_i} - {{3{ahat_i[5]}}, ahat_i};
-  wire [7:0] e_i_0_next = diff_i[7:0];
-  // Q axis (2 levels): n = clamp((y + (L << 4)) >>> (4 + 1), 0, L - 1)
+  // y >= L << 4: the high clamp
+  wire [8:0] hsum_i = {{1{in_y_i[7]}}, in_y_i} + 9'd480;
+  wire hs_i_0_next = hsum_i[8];
+
+  // residual inside the levels: the low 5 bits of y (those of the sum, L being even) minus 2^4;
+  // at a clamp y +- (L-1) * 2^4
+  wire [4:0] yl_i_0_next = in_y_i[4:0];
+  wire [8:0] elo_i = {{1{in_y_i[7]}}, in_y_i} + 9'd16;
+  wire [7:0] elo_i_0_next = elo_i[7:0];
+  wire [8:0] ehi_i = {{1{in_y_i[7]}}, in_y_i} + 9'd496;
+  wire [7:0] ehi_i_0_next = ehi_i[7:0];
+  // Q axis (2 levels): n = clamp((y + (L << 4)) >>> (4 + 1), 0, L - 1); the adders side by side
   wire [8:0] sum_q = {{1{in_y_q[7]}}, in_y_q} + 9'd32;
-  wire [0:0] nhat_q = sum_q[8] ? 1'd0 :
-                        (|sum_q[7:6]) ? 1'd1 :
-                        sum_q[5:5];
+  wire [0:0] nm_q_0_next = sum_q[5:5];
+  wire lo_q_0_next = sum_q[8];
 
-  wire [0:0] n_q_0_next = nhat_q;
-  // residual e = y - (2n - (L-1)) * 2^4
-  wire [1:0] alev_q = { nhat_q, 1'b1 } - 2'd2;
-  wire [5:0] ahat_q = { alev_q, 4'd0 };
-  wire [8:0] diff_q = {{1{in_y_q[7]}}, in_y_q} - {{3{ahat_q[5]}}, ahat_q};
-  wire [7:0] e_q_0_next = diff_q[7:0];
+  // y >= L << 4: the high clamp
+  wire [8:0] hsum_q = {{1{in_y_q[7]}}, in_y_q} + 9'd480;
+  wire hs_q_0_next = hsum_q[8];
 
-  // register stage 0 (after step "decide")
+  // residual inside the levels: the low 5 bits of y (those of the sum, L being even) minus 2^4;
+  // at a clamp y +- (L-1) * 2^4
+  wire [4:0] yl_q_0_next = in_y_q[4:0];
+  wire [8:0] elo_q = {{1{in_y_q[7]}}, in_y_q} + 9'd16;
+  wire [7:0] elo_q_0_next = elo_q[7:0];
+  wire [8:0] ehi_q = {{1{in_y_q[7]}}, in_y_q} + 9'd496;
+  wire [7:0] ehi_q_0_next = ehi_q[7:0];
+
+  // register stage 0 (after step "range")
   reg  [5:0] scale_s0_reg = 6'd0;
   reg  tlast_s0_reg = 1'd0;
-  reg  n_i_s0_reg = 1'd0;
-  reg  [7:0] e_i_s0_reg = 8'd0;
-  reg  n_q_s0_reg = 1'd0;
-  reg  [7:0] e_q_s0_reg = 8'd0;
+  reg  lo_i_s0_reg = 1'd0;
+  reg  hs_i_s0_reg = 1'd0;
+  reg  nm_i_s0_reg = 1'd0;
+  reg  [4:0] yl_i_s0_reg = 5'd0;
+  reg  [7:0] elo_i_s0_reg = 8'd0;
+  reg  [7:0] ehi_i_s0_reg = 8'd0;
+  reg  lo_q_s0_reg = 1'd0;
+  reg  hs_q_s0_reg = 1'd0;
+  reg  nm_q_s0_reg = 1'd0;
+  reg  [4:0] yl_q_s0_reg = 5'd0;
+  reg  [7:0] elo_q_s0_reg = 8'd0;
+  reg  [7:0] ehi_q_s0_reg = 8'd0;
   always @(posedge aclk) begin
     if (ce_s0) begin
       scale_s0_reg <= in_scale;
       tlast_s0_reg <= in_tlast;
-      n_i_s0_reg <= n_i_0_next;
-      e_i_s0_reg <= e_i_0_next;
-      n_q_s0_reg <= n_q_0_next;
-      e_q_s0_reg <= e_q_0_next;
+      lo_i_s0_reg <= lo_i_0_next;
+      hs_i_s0_reg <= hs_i_0_next;
+      nm_i_s0_reg <= nm_i_0_next;
+      yl_i_s0_reg <= yl_i_0_next;
+      elo_i_s0_reg <= elo_i_0_next;
+      ehi_i_s0_reg <= ehi_i_0_next;
+      lo_q_s0_reg <= lo_q_0_next;
+      hs_q_s0_reg <= hs_q_0_next;
+      nm_q_s0_reg <= nm_q_0_next;
+      yl_q_s0_reg <= yl_q_0_next;
+      elo_q_s0_reg <= elo_q_0_next;
+      ehi_q_s0_reg <= ehi_q_0_next;
     end
   end
 
 
-  // ---------------------------------------------------------------- step 2: metric
+  // ---------------------------------------------------------------- step 2: decide
+  // I axis: the clamp muxes
+  wire [0:0] n_i_1_next = lo_i_s0_reg ? 1'd0 : !hs_i_s0_reg ? 1'd1 : nm_i_s0_reg;
+  wire [4:0] emid_i = { !yl_i_s0_reg[4], yl_i_s0_reg[3:0] };
+  wire [7:0] emx_i = {{3{emid_i[4]}}, emid_i};
+  wire [7:0] e_i_1_next = lo_i_s0_reg ? elo_i_s0_reg : !hs_i_s0_reg ? ehi_i_s0_reg : emx_i;
+  // Q axis: the clamp muxes
+  wire [0:0] n_q_1_next = lo_q_s0_reg ? 1'd0 : !hs_q_s0_reg ? 1'd1 : nm_q_s0_reg;
+  wire [4:0] emid_q = { !yl_q_s0_reg[4], yl_q_s0_reg[3:0] };
+  wire [7:0] emx_q = {{3{emid_q[4]}}, emid_q};
+  wire [7:0] e_q_1_next = lo_q_s0_reg ? elo_q_s0_reg : !hs_q_s0_reg ? ehi_q_s0_reg : emx_q;
+
+  // register stage 1 (after step "decide")
+  reg  [5:0] scale_s1_reg = 6'd0;
+  reg  tlast_s1_reg = 1'd0;
+  reg  n_i_s1_reg = 1'd0;
+  reg  [7:0] e_i_s1_reg = 8'd0;
+  reg  n_q_s1_reg = 1'd0;
+  reg  [7:0] e_q_s1_reg = 8'd0;
+  always @(posedge aclk) begin
+    if (ce_s1) begin
+      scale_s1_reg <= scale_s0_reg;
+      tlast_s1_reg <= tlast_s0_reg;
+      n_i_s1_reg <= n_i_1_next;
+      e_i_s1_reg <= e_i_1_next;
+      n_q_s1_reg <= n_q_1_next;
+      e_q_s1_reg <= e_q_1_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 3: competitor
   // I axis: label of the decided level gives each LLR's sign
   function [0:0] label_i;
     input [0:0] n;
@@ -123,24 +178,35 @@ module lvt_tlm_demapper (
       endcase
     end
   endfunction
-  wire [0:0] lab_i = label_i(n_i_s0_reg);
-  // axis bit 0 (label bit b0): competitor offset dn (levels), R = dn * ((dn << 4) - e)
-  function [1:0] competitor_i0;
+  wire [0:0] lab_i = label_i(n_i_s1_reg);
+  // axis bit 0 (label bit b0): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes the value 1
+  // (|dn| << 4) + (dn > 0)
+  function [4:0] competitor_i0;
     input [0:0] key;
     begin
-      competitor_i0 = 2'd0;
+      competitor_i0 = 5'd0;
       case (key)
-        1'd0: competitor_i0 = 2'sd1;
-        1'd1: competitor_i0 = -2'sd1;
+        1'd0: competitor_i0 = 5'd17;
+        1'd1: competitor_i0 = 5'd16;
       endcase
     end
   endfunction
-  wire [1:0] dn_i0 = competitor_i0(n_i_s0_reg);
-  wire [8:0] tfull_i0 = { {{3{dn_i0[1]}}, dn_i0}, 4'd0 } - {{1{e_i_s0_reg[7]}}, e_i_s0_reg};
-  wire [8:0] t_i0 = tfull_i0[8:0];
-  wire [8:0] r_i0 = $signed({{7{dn_i0[1]}}, dn_i0}) * $signed(t_i0);
-  wire [7:0] mag_i0_1_next = r_i0[7:0];
-  wire neg_i0_1_next = lab_i[0];
+  wire [4:0] dp_i0_2_next = competitor_i0(n_i_s1_reg);
+
+  function right_i0;
+    input [0:0] key;
+    begin
+      right_i0 = 1'd0;
+      case (key)
+        1'd0: right_i0 = 1'd1;
+        1'd1: right_i0 = 1'd0;
+      endcase
+    end
+  endfunction
+  wire pos_i0_2_next = right_i0(n_i_s1_reg);
+
+  wire neg_i0_2_next = lab_i[0];
   // Q axis: label of the decided level gives each LLR's sign
   function [0:0] label_q;
     input [0:0] n;
@@ -152,93 +218,214 @@ module lvt_tlm_demapper (
       endcase
     end
   endfunction
-  wire [0:0] lab_q = label_q(n_q_s0_reg);
-  // axis bit 0 (label bit b1): competitor offset dn (levels), R = dn * ((dn << 4) - e)
-  function [1:0] competitor_q0;
+  wire [0:0] lab_q = label_q(n_q_s1_reg);
+  // axis bit 0 (label bit b1): nearest competitor dn levels away: |dn|, its side, the gates
+  // of the partial products u << i (bit i of |dn|); |dn| takes the value 1
+  // (|dn| << 4) + (dn > 0)
+  function [4:0] competitor_q0;
     input [0:0] key;
     begin
-      competitor_q0 = 2'd0;
+      competitor_q0 = 5'd0;
       case (key)
-        1'd0: competitor_q0 = 2'sd1;
-        1'd1: competitor_q0 = -2'sd1;
+        1'd0: competitor_q0 = 5'd17;
+        1'd1: competitor_q0 = 5'd16;
       endcase
     end
   endfunction
-  wire [1:0] dn_q0 = competitor_q0(n_q_s0_reg);
-  wire [8:0] tfull_q0 = { {{3{dn_q0[1]}}, dn_q0}, 4'd0 } - {{1{e_q_s0_reg[7]}}, e_q_s0_reg};
-  wire [8:0] t_q0 = tfull_q0[8:0];
-  wire [8:0] r_q0 = $signed({{7{dn_q0[1]}}, dn_q0}) * $signed(t_q0);
-  wire [7:0] mag_q0_1_next = r_q0[7:0];
-  wire neg_q0_1_next = lab_q[0];
+  wire [4:0] dp_q0_2_next = competitor_q0(n_q_s1_reg);
 
-  // register stage 1 (after step "metric")
-  reg  [5:0] scale_s1_reg = 6'd0;
-  reg  tlast_s1_reg = 1'd0;
-  reg  [7:0] mag_i0_s1_reg = 8'd0;
-  reg  neg_i0_s1_reg = 1'd0;
-  reg  [7:0] mag_q0_s1_reg = 8'd0;
-  reg  neg_q0_s1_reg = 1'd0;
-  always @(posedge aclk) begin
-    if (ce_s1) begin
-      scale_s1_reg <= scale_s0_reg;
-      tlast_s1_reg <= tlast_s0_reg;
-      mag_i0_s1_reg <= mag_i0_1_next;
-      neg_i0_s1_reg <= neg_i0_1_next;
-      mag_q0_s1_reg <= mag_q0_1_next;
-      neg_q0_s1_reg <= neg_q0_1_next;
+  function right_q0;
+    input [0:0] key;
+    begin
+      right_q0 = 1'd0;
+      case (key)
+        1'd0: right_q0 = 1'd1;
+        1'd1: right_q0 = 1'd0;
+      endcase
     end
-  end
+  endfunction
+  wire pos_q0_2_next = right_q0(n_q_s1_reg);
 
+  wire neg_q0_2_next = lab_q[0];
 
-  // ---------------------------------------------------------------- step 3: scale
-  // reliability scale: one multiply per LLR, P = |metric| * S
-  wire [12:0] p_i0_2_next = {5'd0, mag_i0_s1_reg} * {7'd0, scale_s1_reg};
-  wire [12:0] p_q0_2_next = {5'd0, mag_q0_s1_reg} * {7'd0, scale_s1_reg};
-
-  // register stage 2 (after step "scale")
+  // register stage 2 (after step "competitor")
+  reg  [5:0] scale_s2_reg = 6'd0;
   reg  tlast_s2_reg = 1'd0;
+  reg  [7:0] e_i_s2_reg = 8'd0;
+  reg  [7:0] e_q_s2_reg = 8'd0;
+  reg  [4:0] dp_i0_s2_reg = 5'd0;
+  reg  pos_i0_s2_reg = 1'd0;
   reg  neg_i0_s2_reg = 1'd0;
+  reg  [4:0] dp_q0_s2_reg = 5'd0;
+  reg  pos_q0_s2_reg = 1'd0;
   reg  neg_q0_s2_reg = 1'd0;
-  reg  [12:0] p_i0_s2_reg = 13'd0;
-  reg  [12:0] p_q0_s2_reg = 13'd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
+      scale_s2_reg <= scale_s1_reg;
       tlast_s2_reg <= tlast_s1_reg;
-      neg_i0_s2_reg <= neg_i0_s1_reg;
-      neg_q0_s2_reg <= neg_q0_s1_reg;
-      p_i0_s2_reg <= p_i0_2_next;
-      p_q0_s2_reg <= p_q0_2_next;
+      e_i_s2_reg <= e_i_s1_reg;
+      e_q_s2_reg <= e_q_s1_reg;
+      dp_i0_s2_reg <= dp_i0_2_next;
+      pos_i0_s2_reg <= pos_i0_2_next;
+      neg_i0_s2_reg <= neg_i0_2_next;
+      dp_q0_s2_reg <= dp_q0_2_next;
+      pos_q0_s2_reg <= pos_q0_2_next;
+      neg_q0_s2_reg <= neg_q0_2_next;
     end
   end
 
 
-  // ---------------------------------------------------------------- step 4: output
-  // rounding shift by 7 (half-even), symmetric saturation to +-15, sign
-  wire [13:0] rsum_i0 = {1'd0, p_i0_s2_reg} + 14'd63 + {13'd0, p_i0_s2_reg[7]};
-  wire [6:0] v_i0 = rsum_i0[13:7];
+  // ---------------------------------------------------------------- step 4: select
+  // axis bit 0: dn > 0 ? ~e : e (the +1 of -e sits in the table's (|dn| << 4) + 1)
+  wire [8:0] se_i0_3_next = (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[7]}}, e_i_s2_reg} : {{1{e_i_s2_reg[7]}}, e_i_s2_reg});
+  // axis bit 0: dn > 0 ? ~e : e (the +1 of -e sits in the table's (|dn| << 4) + 1)
+  wire [8:0] se_q0_3_next = (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[7]}}, e_q_s2_reg} : {{1{e_q_s2_reg[7]}}, e_q_s2_reg});
 
-  wire [LLR_W-2:0] sat_i0 = (|v_i0[6:LLR_W-1]) ? 4'd15 : v_i0[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_i0_3_next = neg_i0_s2_reg ? 5'd0 - {1'b0, sat_i0} : {1'b0, sat_i0};
-  wire [13:0] rsum_q0 = {1'd0, p_q0_s2_reg} + 14'd63 + {13'd0, p_q0_s2_reg[7]};
-  wire [6:0] v_q0 = rsum_q0[13:7];
-
-  wire [LLR_W-2:0] sat_q0 = (|v_q0[6:LLR_W-1]) ? 4'd15 : v_q0[LLR_W-2:0];
-  wire [LLR_W-1:0] llr_q0_3_next = neg_q0_s2_reg ? 5'd0 - {1'b0, sat_q0} : {1'b0, sat_q0};
-
-  // register stage 3 (after step "output")
+  // register stage 3 (after step "select")
+  reg  [5:0] scale_s3_reg = 6'd0;
   reg  tlast_s3_reg = 1'd0;
-  reg  [4:0] llr_i0_s3_reg = 5'd0;
-  reg  [4:0] llr_q0_s3_reg = 5'd0;
+  reg  [4:0] dp_i0_s3_reg = 5'd0;
+  reg  neg_i0_s3_reg = 1'd0;
+  reg  [4:0] dp_q0_s3_reg = 5'd0;
+  reg  neg_q0_s3_reg = 1'd0;
+  reg  [8:0] se_i0_s3_reg = 9'd0;
+  reg  [8:0] se_q0_s3_reg = 9'd0;
   always @(posedge aclk) begin
     if (ce_s3) begin
+      scale_s3_reg <= scale_s2_reg;
       tlast_s3_reg <= tlast_s2_reg;
-      llr_i0_s3_reg <= llr_i0_3_next;
-      llr_q0_s3_reg <= llr_q0_3_next;
+      dp_i0_s3_reg <= dp_i0_s2_reg;
+      neg_i0_s3_reg <= neg_i0_s2_reg;
+      dp_q0_s3_reg <= dp_q0_s2_reg;
+      neg_q0_s3_reg <= neg_q0_s2_reg;
+      se_i0_s3_reg <= se_i0_3_next;
+      se_q0_s3_reg <= se_q0_3_next;
     end
   end
 
 
-  assign m_axis_tdata = { llr_i0_s3_reg, llr_q0_s3_reg };
+  // ---------------------------------------------------------------- step 5: residual
+  // axis bit 0: u = |(dn << 4) - e| = ((|dn| << 4) + (dn > 0)) + (dn > 0 ? ~e : e) >= 0
+  wire [9:0] ux_i0 = {5'd0, dp_i0_s3_reg} + {{1{se_i0_s3_reg[8]}}, se_i0_s3_reg};
+  // |dn| = 1: R = u << 0, no multiply
+  wire [9:0] rx_i0 = ux_i0;
+  wire [7:0] mag_i0_4_next = rx_i0[7:0];
+  // axis bit 0: u = |(dn << 4) - e| = ((|dn| << 4) + (dn > 0)) + (dn > 0 ? ~e : e) >= 0
+  wire [9:0] ux_q0 = {5'd0, dp_q0_s3_reg} + {{1{se_q0_s3_reg[8]}}, se_q0_s3_reg};
+  // |dn| = 1: R = u << 0, no multiply
+  wire [9:0] rx_q0 = ux_q0;
+  wire [7:0] mag_q0_4_next = rx_q0[7:0];
+
+  // register stage 4 (after step "residual")
+  reg  [5:0] scale_s4_reg = 6'd0;
+  reg  tlast_s4_reg = 1'd0;
+  reg  neg_i0_s4_reg = 1'd0;
+  reg  neg_q0_s4_reg = 1'd0;
+  reg  [7:0] mag_i0_s4_reg = 8'd0;
+  reg  [7:0] mag_q0_s4_reg = 8'd0;
+  always @(posedge aclk) begin
+    if (ce_s4) begin
+      scale_s4_reg <= scale_s3_reg;
+      tlast_s4_reg <= tlast_s3_reg;
+      neg_i0_s4_reg <= neg_i0_s3_reg;
+      neg_q0_s4_reg <= neg_q0_s3_reg;
+      mag_i0_s4_reg <= mag_i0_4_next;
+      mag_q0_s4_reg <= mag_q0_4_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 6: scale
+  // reliability scale: one multiply per LLR, P = |metric| * S
+  wire [12:0] p_i0_5_next = {5'd0, mag_i0_s4_reg} * {7'd0, scale_s4_reg};
+  wire [12:0] p_q0_5_next = {5'd0, mag_q0_s4_reg} * {7'd0, scale_s4_reg};
+
+  // register stage 5 (after step "scale")
+  reg  tlast_s5_reg = 1'd0;
+  reg  neg_i0_s5_reg = 1'd0;
+  reg  neg_q0_s5_reg = 1'd0;
+  reg  [12:0] p_i0_s5_reg = 13'd0;
+  reg  [12:0] p_q0_s5_reg = 13'd0;
+  always @(posedge aclk) begin
+    if (ce_s5) begin
+      tlast_s5_reg <= tlast_s4_reg;
+      neg_i0_s5_reg <= neg_i0_s4_reg;
+      neg_q0_s5_reg <= neg_q0_s4_reg;
+      p_i0_s5_reg <= p_i0_5_next;
+      p_q0_s5_reg <= p_q0_5_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 7: round
+  // rounding shift by 7 (half-even); the saturation compare runs beside the add, the mux after it
+  wire [13:0] rhalf_i0 = p_i0_s5_reg[7] ? 14'd64 : 14'd63;
+  wire [13:0] rsum_i0 = {1'd0, p_i0_s5_reg} + rhalf_i0;
+  wire [6:0] v_i0 = rsum_i0[13:7];
+
+  wire [LLR_W-2:0] v_i0_6_next = v_i0[LLR_W-2:0];
+
+  // saturation: p >= 2^11 - (rounding constant), the carry out of a constant add
+  wire [14:0] oc_i0 = {2'd0, p_i0_s5_reg} + 15'd14399;
+  wire [14:0] od_i0 = {2'd0, p_i0_s5_reg} + 15'd14400;
+  wire ovf_i0_6_next = p_i0_s5_reg[7] ? od_i0[14] : oc_i0[14];
+
+
+  wire [13:0] rhalf_q0 = p_q0_s5_reg[7] ? 14'd64 : 14'd63;
+  wire [13:0] rsum_q0 = {1'd0, p_q0_s5_reg} + rhalf_q0;
+  wire [6:0] v_q0 = rsum_q0[13:7];
+
+  wire [LLR_W-2:0] v_q0_6_next = v_q0[LLR_W-2:0];
+
+  // saturation: p >= 2^11 - (rounding constant), the carry out of a constant add
+  wire [14:0] oc_q0 = {2'd0, p_q0_s5_reg} + 15'd14399;
+  wire [14:0] od_q0 = {2'd0, p_q0_s5_reg} + 15'd14400;
+  wire ovf_q0_6_next = p_q0_s5_reg[7] ? od_q0[14] : oc_q0[14];
+
+
+
+  // register stage 6 (after step "round")
+  reg  tlast_s6_reg = 1'd0;
+  reg  neg_i0_s6_reg = 1'd0;
+  reg  neg_q0_s6_reg = 1'd0;
+  reg  [3:0] v_i0_s6_reg = 4'd0;
+  reg  ovf_i0_s6_reg = 1'd0;
+  reg  [3:0] v_q0_s6_reg = 4'd0;
+  reg  ovf_q0_s6_reg = 1'd0;
+  always @(posedge aclk) begin
+    if (ce_s6) begin
+      tlast_s6_reg <= tlast_s5_reg;
+      neg_i0_s6_reg <= neg_i0_s5_reg;
+      neg_q0_s6_reg <= neg_q0_s5_reg;
+      v_i0_s6_reg <= v_i0_6_next;
+      ovf_i0_s6_reg <= ovf_i0_6_next;
+      v_q0_s6_reg <= v_q0_6_next;
+      ovf_q0_s6_reg <= ovf_q0_6_next;
+    end
+  end
+
+
+  // ---------------------------------------------------------------- step 8: sign
+  // symmetric saturation to +-15 and the sign of the decided level's label bit: -v beside v, one mux
+  wire [LLR_W-1:0] negv_i0 = 5'd0 - {1'b0, v_i0_s6_reg};
+  wire [LLR_W-1:0] llr_i0_7_next = ovf_i0_s6_reg ? (neg_i0_s6_reg ? 5'd17 : 5'd15) : (neg_i0_s6_reg ? negv_i0 : {1'b0, v_i0_s6_reg});
+  wire [LLR_W-1:0] negv_q0 = 5'd0 - {1'b0, v_q0_s6_reg};
+  wire [LLR_W-1:0] llr_q0_7_next = ovf_q0_s6_reg ? (neg_q0_s6_reg ? 5'd17 : 5'd15) : (neg_q0_s6_reg ? negv_q0 : {1'b0, v_q0_s6_reg});
+
+  // register stage 7 (after step "sign")
+  reg  tlast_s7_reg = 1'd0;
+  reg  [4:0] llr_i0_s7_reg = 5'd0;
+  reg  [4:0] llr_q0_s7_reg = 5'd0;
+  always @(posedge aclk) begin
+    if (ce_s7) begin
+      tlast_s7_reg <= tlast_s6_reg;
+      llr_i0_s7_reg <= llr_i0_7_next;
+      llr_q0_s7_reg <= llr_q0_7_next;
+    end
+  end
+
+
+  assign m_axis_tdata = { llr_i0_s7_reg, llr_q0_s7_reg };
 
   // ---------------------------------------------------------------- stream control
   // Stage s loads when it is empty or when the stage after it loads, so the pipeline
@@ -247,32 +434,48 @@ module lvt_tlm_demapper (
   reg  valid_s1_reg = 1'b0;
   reg  valid_s2_reg = 1'b0;
   reg  valid_s3_reg = 1'b0;
+  reg  valid_s4_reg = 1'b0;
+  reg  valid_s5_reg = 1'b0;
+  reg  valid_s6_reg = 1'b0;
+  reg  valid_s7_reg = 1'b0;
   wire ce_s0 = !valid_s0_reg || ce_s1;
   wire ce_s1 = !valid_s1_reg || ce_s2;
   wire ce_s2 = !valid_s2_reg || ce_s3;
-  wire ce_s3 = !valid_s3_reg || m_axis_tready;
+  wire ce_s3 = !valid_s3_reg || ce_s4;
+  wire ce_s4 = !valid_s4_reg || ce_s5;
+  wire ce_s5 = !valid_s5_reg || ce_s6;
+  wire ce_s6 = !valid_s6_reg || ce_s7;
+  wire ce_s7 = !valid_s7_reg || m_axis_tready;
 
   always @(posedge aclk) begin
     if (ce_s0) valid_s0_reg <= in_tvalid;
     if (ce_s1) valid_s1_reg <= valid_s0_reg;
     if (ce_s2) valid_s2_reg <= valid_s1_reg;
     if (ce_s3) valid_s3_reg <= valid_s2_reg;
+    if (ce_s4) valid_s4_reg <= valid_s3_reg;
+    if (ce_s5) valid_s5_reg <= valid_s4_reg;
+    if (ce_s6) valid_s6_reg <= valid_s5_reg;
+    if (ce_s7) valid_s7_reg <= valid_s6_reg;
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) begin
       valid_s0_reg <= 1'b0;
       valid_s1_reg <= 1'b0;
       valid_s2_reg <= 1'b0;
       valid_s3_reg <= 1'b0;
+      valid_s4_reg <= 1'b0;
+      valid_s5_reg <= 1'b0;
+      valid_s6_reg <= 1'b0;
+      valid_s7_reg <= 1'b0;
     end
   end
 
   assign s_axis_tready = ce_s0;
-  assign m_axis_tvalid = valid_s3_reg;
-  assign m_axis_tlast  = tlast_s3_reg;
+  assign m_axis_tvalid = valid_s7_reg;
+  assign m_axis_tlast  = tlast_s7_reg;
 
 
   // bits that are provably constant (ranges checked by the generator) or not needed
-  wire unused_bits = ^{ sum_i[4:0], diff_i[8:8], sum_q[4:0], diff_q[8:8], r_i0[8:8], r_q0[8:8], rsum_i0[6:0], rsum_q0[6:0] };
+  wire unused_bits = ^{ sum_i[7:6], sum_i[4:0], hsum_i[7:0], elo_i[8:8], ehi_i[8:8], sum_q[7:6], sum_q[4:0], hsum_q[7:0], elo_q[8:8], ehi_q[8:8], rx_i0[9:8], rx_q0[9:8], rsum_i0[6:0], v_i0[6:LLR_W-1], od_i0[13:0], oc_i0[13:0], rsum_q0[6:0], v_q0[6:LLR_W-1], od_q0[13:0], oc_q0[13:0] };
 
 
 endmodule
