@@ -273,7 +273,7 @@ def _output_stage(design: Any, mag_width: int) -> dict[str, Any]:
     lw = d.llr_width
     o: dict[str, Any] = {"pw": pw, "shift": sh, "rounding": d.rounding, "lw": lw,
                          "max": vlit((1 << (lw - 1)) - 1, lw - 1, False),
-                         "pmax": vlit((1 << (lw - 1)) - 1, lw, False), "nmax": vlit((1 << lw) - (1 << (lw - 1)) + 1, lw, False)}
+                         }
     if design.scale_format:
         o["sw"] = design.scale_format.width
     if sh <= 0:
@@ -438,10 +438,8 @@ def _demapper_context(design: Any) -> dict[str, Any]:
             src = tuple(mag_names)
         rnd: dict[str, tuple[int, bool]] = {}
         for n in ctx["llrs"]:
-            rnd[f"v_{n}"] = (lw - 1, False)
-            if ctx["out"]["sat"]:
-                rnd[f"ovf_{n}"] = (1, False)
-        steps.append(Step("round", rnd, src))
+            rnd[f"x_{n}"] = (lw, False)
+        steps.append(Step("round", rnd, src + tuple(neg_names)))
         steps.append(Step("sign", {f"llr_{n}": (lw, True) for n in ctx["llrs"]}, tuple(rnd) + tuple(neg_names)))
         outputs = tuple(f"llr_{n}" for n in ctx["llrs"])
     else:

@@ -1961,75 +1961,91 @@ module lvt_bh256_demapper (
   wire [14:0] rsum_i3 = {1'd0, mag_i3_s6_reg} + 15'd2;
   wire [12:0] v_i3 = rsum_i3[14:2];
 
-  wire [LLR_W-2:0] v_i3_7_next = v_i3[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i3 = {2'd0, mag_i3_s6_reg} + 16'd32642;
-  wire ovf_i3_7_next = oc_i3[15];
+  wire ovf_i3 = oc_i3[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_i3 = ovf_i3 ? 5'd31 : v_i3[LLR_W-2:0];
+  wire [LLR_W-1:0] x_i3_7_next = {1'b0, s_i3} ^ {LLR_W{ neg_i3_s6_reg }};
   wire [14:0] rsum_q3 = {1'd0, mag_q3_s6_reg} + 15'd2;
   wire [12:0] v_q3 = rsum_q3[14:2];
 
-  wire [LLR_W-2:0] v_q3_7_next = v_q3[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q3 = {2'd0, mag_q3_s6_reg} + 16'd32642;
-  wire ovf_q3_7_next = oc_q3[15];
+  wire ovf_q3 = oc_q3[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_q3 = ovf_q3 ? 5'd31 : v_q3[LLR_W-2:0];
+  wire [LLR_W-1:0] x_q3_7_next = {1'b0, s_q3} ^ {LLR_W{ neg_q3_s6_reg }};
   wire [14:0] rsum_i2 = {1'd0, mag_i2_s6_reg} + 15'd2;
   wire [12:0] v_i2 = rsum_i2[14:2];
 
-  wire [LLR_W-2:0] v_i2_7_next = v_i2[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i2 = {2'd0, mag_i2_s6_reg} + 16'd32642;
-  wire ovf_i2_7_next = oc_i2[15];
+  wire ovf_i2 = oc_i2[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_i2 = ovf_i2 ? 5'd31 : v_i2[LLR_W-2:0];
+  wire [LLR_W-1:0] x_i2_7_next = {1'b0, s_i2} ^ {LLR_W{ neg_i2_s6_reg }};
   wire [14:0] rsum_q2 = {1'd0, mag_q2_s6_reg} + 15'd2;
   wire [12:0] v_q2 = rsum_q2[14:2];
 
-  wire [LLR_W-2:0] v_q2_7_next = v_q2[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q2 = {2'd0, mag_q2_s6_reg} + 16'd32642;
-  wire ovf_q2_7_next = oc_q2[15];
+  wire ovf_q2 = oc_q2[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_q2 = ovf_q2 ? 5'd31 : v_q2[LLR_W-2:0];
+  wire [LLR_W-1:0] x_q2_7_next = {1'b0, s_q2} ^ {LLR_W{ neg_q2_s6_reg }};
   wire [14:0] rsum_i0 = {1'd0, mag_i0_s6_reg} + 15'd2;
   wire [12:0] v_i0 = rsum_i0[14:2];
 
-  wire [LLR_W-2:0] v_i0_7_next = v_i0[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i0 = {2'd0, mag_i0_s6_reg} + 16'd32642;
-  wire ovf_i0_7_next = oc_i0[15];
+  wire ovf_i0 = oc_i0[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_i0 = ovf_i0 ? 5'd31 : v_i0[LLR_W-2:0];
+  wire [LLR_W-1:0] x_i0_7_next = {1'b0, s_i0} ^ {LLR_W{ neg_i0_s6_reg }};
   wire [14:0] rsum_i1 = {1'd0, mag_i1_s6_reg} + 15'd2;
   wire [12:0] v_i1 = rsum_i1[14:2];
 
-  wire [LLR_W-2:0] v_i1_7_next = v_i1[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i1 = {2'd0, mag_i1_s6_reg} + 16'd32642;
-  wire ovf_i1_7_next = oc_i1[15];
+  wire ovf_i1 = oc_i1[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_i1 = ovf_i1 ? 5'd31 : v_i1[LLR_W-2:0];
+  wire [LLR_W-1:0] x_i1_7_next = {1'b0, s_i1} ^ {LLR_W{ neg_i1_s6_reg }};
   wire [14:0] rsum_q0 = {1'd0, mag_q0_s6_reg} + 15'd2;
   wire [12:0] v_q0 = rsum_q0[14:2];
 
-  wire [LLR_W-2:0] v_q0_7_next = v_q0[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q0 = {2'd0, mag_q0_s6_reg} + 16'd32642;
-  wire ovf_q0_7_next = oc_q0[15];
+  wire ovf_q0 = oc_q0[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_q0 = ovf_q0 ? 5'd31 : v_q0[LLR_W-2:0];
+  wire [LLR_W-1:0] x_q0_7_next = {1'b0, s_q0} ^ {LLR_W{ neg_q0_s6_reg }};
   wire [14:0] rsum_q1 = {1'd0, mag_q1_s6_reg} + 15'd2;
   wire [12:0] v_q1 = rsum_q1[14:2];
 
-  wire [LLR_W-2:0] v_q1_7_next = v_q1[LLR_W-2:0];
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q1 = {2'd0, mag_q1_s6_reg} + 16'd32642;
-  wire ovf_q1_7_next = oc_q1[15];
+  wire ovf_q1 = oc_q1[15];
 
+  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
+  wire [LLR_W-2:0] s_q1 = ovf_q1 ? 5'd31 : v_q1[LLR_W-2:0];
+  wire [LLR_W-1:0] x_q1_7_next = {1'b0, s_q1} ^ {LLR_W{ neg_q1_s6_reg }};
 
   // register stage 7 (after step "round")
   reg  tlast_s7_reg = 1'd0;
@@ -2041,22 +2057,14 @@ module lvt_bh256_demapper (
   reg  neg_q1_s7_reg = 1'd0;
   reg  neg_q2_s7_reg = 1'd0;
   reg  neg_q3_s7_reg = 1'd0;
-  reg  [4:0] v_i3_s7_reg = 5'd0;
-  reg  ovf_i3_s7_reg = 1'd0;
-  reg  [4:0] v_q3_s7_reg = 5'd0;
-  reg  ovf_q3_s7_reg = 1'd0;
-  reg  [4:0] v_i2_s7_reg = 5'd0;
-  reg  ovf_i2_s7_reg = 1'd0;
-  reg  [4:0] v_q2_s7_reg = 5'd0;
-  reg  ovf_q2_s7_reg = 1'd0;
-  reg  [4:0] v_i0_s7_reg = 5'd0;
-  reg  ovf_i0_s7_reg = 1'd0;
-  reg  [4:0] v_i1_s7_reg = 5'd0;
-  reg  ovf_i1_s7_reg = 1'd0;
-  reg  [4:0] v_q0_s7_reg = 5'd0;
-  reg  ovf_q0_s7_reg = 1'd0;
-  reg  [4:0] v_q1_s7_reg = 5'd0;
-  reg  ovf_q1_s7_reg = 1'd0;
+  reg  [5:0] x_i3_s7_reg = 6'd0;
+  reg  [5:0] x_q3_s7_reg = 6'd0;
+  reg  [5:0] x_i2_s7_reg = 6'd0;
+  reg  [5:0] x_q2_s7_reg = 6'd0;
+  reg  [5:0] x_i0_s7_reg = 6'd0;
+  reg  [5:0] x_i1_s7_reg = 6'd0;
+  reg  [5:0] x_q0_s7_reg = 6'd0;
+  reg  [5:0] x_q1_s7_reg = 6'd0;
   always @(posedge aclk) begin
     if (ce_s7) begin
       tlast_s7_reg <= tlast_s6_reg;
@@ -2068,44 +2076,28 @@ module lvt_bh256_demapper (
       neg_q1_s7_reg <= neg_q1_s6_reg;
       neg_q2_s7_reg <= neg_q2_s6_reg;
       neg_q3_s7_reg <= neg_q3_s6_reg;
-      v_i3_s7_reg <= v_i3_7_next;
-      ovf_i3_s7_reg <= ovf_i3_7_next;
-      v_q3_s7_reg <= v_q3_7_next;
-      ovf_q3_s7_reg <= ovf_q3_7_next;
-      v_i2_s7_reg <= v_i2_7_next;
-      ovf_i2_s7_reg <= ovf_i2_7_next;
-      v_q2_s7_reg <= v_q2_7_next;
-      ovf_q2_s7_reg <= ovf_q2_7_next;
-      v_i0_s7_reg <= v_i0_7_next;
-      ovf_i0_s7_reg <= ovf_i0_7_next;
-      v_i1_s7_reg <= v_i1_7_next;
-      ovf_i1_s7_reg <= ovf_i1_7_next;
-      v_q0_s7_reg <= v_q0_7_next;
-      ovf_q0_s7_reg <= ovf_q0_7_next;
-      v_q1_s7_reg <= v_q1_7_next;
-      ovf_q1_s7_reg <= ovf_q1_7_next;
+      x_i3_s7_reg <= x_i3_7_next;
+      x_q3_s7_reg <= x_q3_7_next;
+      x_i2_s7_reg <= x_i2_7_next;
+      x_q2_s7_reg <= x_q2_7_next;
+      x_i0_s7_reg <= x_i0_7_next;
+      x_i1_s7_reg <= x_i1_7_next;
+      x_q0_s7_reg <= x_q0_7_next;
+      x_q1_s7_reg <= x_q1_7_next;
     end
   end
 
 
   // ---------------------------------------------------------------- step 9: sign
-  // symmetric saturation to +-31 and the sign of the decided level's label bit: -v beside v, one mux
-  wire [LLR_W-1:0] negv_i3 = 6'd0 - {1'b0, v_i3_s7_reg};
-  wire [LLR_W-1:0] llr_i3_8_next = ovf_i3_s7_reg ? (neg_i3_s7_reg ? 6'd33 : 6'd31) : (neg_i3_s7_reg ? negv_i3 : {1'b0, v_i3_s7_reg});
-  wire [LLR_W-1:0] negv_q3 = 6'd0 - {1'b0, v_q3_s7_reg};
-  wire [LLR_W-1:0] llr_q3_8_next = ovf_q3_s7_reg ? (neg_q3_s7_reg ? 6'd33 : 6'd31) : (neg_q3_s7_reg ? negv_q3 : {1'b0, v_q3_s7_reg});
-  wire [LLR_W-1:0] negv_i2 = 6'd0 - {1'b0, v_i2_s7_reg};
-  wire [LLR_W-1:0] llr_i2_8_next = ovf_i2_s7_reg ? (neg_i2_s7_reg ? 6'd33 : 6'd31) : (neg_i2_s7_reg ? negv_i2 : {1'b0, v_i2_s7_reg});
-  wire [LLR_W-1:0] negv_q2 = 6'd0 - {1'b0, v_q2_s7_reg};
-  wire [LLR_W-1:0] llr_q2_8_next = ovf_q2_s7_reg ? (neg_q2_s7_reg ? 6'd33 : 6'd31) : (neg_q2_s7_reg ? negv_q2 : {1'b0, v_q2_s7_reg});
-  wire [LLR_W-1:0] negv_i0 = 6'd0 - {1'b0, v_i0_s7_reg};
-  wire [LLR_W-1:0] llr_i0_8_next = ovf_i0_s7_reg ? (neg_i0_s7_reg ? 6'd33 : 6'd31) : (neg_i0_s7_reg ? negv_i0 : {1'b0, v_i0_s7_reg});
-  wire [LLR_W-1:0] negv_i1 = 6'd0 - {1'b0, v_i1_s7_reg};
-  wire [LLR_W-1:0] llr_i1_8_next = ovf_i1_s7_reg ? (neg_i1_s7_reg ? 6'd33 : 6'd31) : (neg_i1_s7_reg ? negv_i1 : {1'b0, v_i1_s7_reg});
-  wire [LLR_W-1:0] negv_q0 = 6'd0 - {1'b0, v_q0_s7_reg};
-  wire [LLR_W-1:0] llr_q0_8_next = ovf_q0_s7_reg ? (neg_q0_s7_reg ? 6'd33 : 6'd31) : (neg_q0_s7_reg ? negv_q0 : {1'b0, v_q0_s7_reg});
-  wire [LLR_W-1:0] negv_q1 = 6'd0 - {1'b0, v_q1_s7_reg};
-  wire [LLR_W-1:0] llr_q1_8_next = ovf_q1_s7_reg ? (neg_q1_s7_reg ? 6'd33 : 6'd31) : (neg_q1_s7_reg ? negv_q1 : {1'b0, v_q1_s7_reg});
+  // the sign of the decided level's label bit: -s = ~s + 1, one adder
+  wire [LLR_W-1:0] llr_i3_8_next = x_i3_s7_reg + { 5'd0, neg_i3_s7_reg };
+  wire [LLR_W-1:0] llr_q3_8_next = x_q3_s7_reg + { 5'd0, neg_q3_s7_reg };
+  wire [LLR_W-1:0] llr_i2_8_next = x_i2_s7_reg + { 5'd0, neg_i2_s7_reg };
+  wire [LLR_W-1:0] llr_q2_8_next = x_q2_s7_reg + { 5'd0, neg_q2_s7_reg };
+  wire [LLR_W-1:0] llr_i0_8_next = x_i0_s7_reg + { 5'd0, neg_i0_s7_reg };
+  wire [LLR_W-1:0] llr_i1_8_next = x_i1_s7_reg + { 5'd0, neg_i1_s7_reg };
+  wire [LLR_W-1:0] llr_q0_8_next = x_q0_s7_reg + { 5'd0, neg_q0_s7_reg };
+  wire [LLR_W-1:0] llr_q1_8_next = x_q1_s7_reg + { 5'd0, neg_q1_s7_reg };
 
   // register stage 8 (after step "sign")
   reg  tlast_s8_reg = 1'd0;
