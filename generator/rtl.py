@@ -438,8 +438,10 @@ def _demapper_context(design: Any) -> dict[str, Any]:
             src = tuple(mag_names)
         rnd: dict[str, tuple[int, bool]] = {}
         for n in ctx["llrs"]:
-            rnd[f"x_{n}"] = (lw, False)
-        steps.append(Step("round", rnd, src + tuple(neg_names)))
+            rnd[f"v_{n}"] = (lw - 1, False)
+            if ctx["out"]["sat"]:
+                rnd[f"ovf_{n}"] = (1, False)
+        steps.append(Step("round", rnd, src))
         steps.append(Step("sign", {f"llr_{n}": (lw, True) for n in ctx["llrs"]}, tuple(rnd) + tuple(neg_names)))
         outputs = tuple(f"llr_{n}" for n in ctx["llrs"])
     else:
@@ -456,8 +458,8 @@ def _maxlog_bit(ad: Any, name: str, j: int, n_hat: np.ndarray, e: np.ndarray, f:
 
     u = (|dn| << f) - sign(dn) * e >= 0, and R = sum of u << i over the bits i of |dn|. Bits of
     |dn| that are always 0 make no partial product; a bit that is always 1 takes u itself, the
-    others a gated copy w_i = (|dn| bit i) ? u : 0, computed as (g_i ? |dn| : 0) << f +- (g_i ? e : 0)
-    with the gates taken from the tables one step earlier (no gate in front of an adder).
+    others a gated copy w_i = (|dn| bit i) ? u : 0, computed as (g_i ? dshp : 0) + (g_i ? (~)e : 0)
+    with the gates applied one step earlier (no gate in front of an adder).
     Every width is the exact range over every input code (n_hat, e of the whole input range).
     """
     ax = ad.axis
@@ -504,7 +506,6 @@ def _maxlog_bit(ad: Any, name: str, j: int, n_hat: np.ndarray, e: np.ndarray, f:
         leaf: dict[str, Any] = {"i": i, "gated": gated, "src": f"w_{ident}_{i}" if gated else f"u_{ident}"}
         if gated:
             leaf["gate_cases"] = cases(lambda d, i=i: (abs(d) >> i) & 1, 1)
-            leaf["ga_cases"] = cases(lambda d, i=i: dshp(d) if (abs(d) >> i) & 1 else 0, dpw)
         leaves.append(leaf)
     need_u = any(not lf["gated"] for lf in leaves)
     adn_var = len({int(v) for v in adn_t.ravel()}) > 1
@@ -527,7 +528,8 @@ def _maxlog_bit(ad: Any, name: str, j: int, n_hat: np.ndarray, e: np.ndarray, f:
     out: dict[str, Any] = {
         "uses_sign": ad.uses_sign[j], "key_w": key_w, "aw": aw, "uw": uw,
         "xw": max(dpw, rw + 1) + 1, "dpw": dpw,
-        "dp_var": need_u and len({int(v) for v in dp_t.ravel()}) > 1, "dp_const_val": int(dp_t.ravel()[0]),
+        "dp_var": need_u and len({int(v) for v in dp_t.ravel()}) > 1,
+        "dp_reg": (need_u or any(lf["gated"] for lf in leaves)) and len({int(v) for v in dp_t.ravel()}) > 1, "dp_const_val": int(dp_t.ravel()[0]),
         "dp_cases": cases(dshp, dpw),
         "adn_var": adn_var,
         "adn_const": vlit(int(adn_t.ravel()[0]), aw, False), "adn_const_val": int(adn_t.ravel()[0]),
@@ -579,14 +581,13 @@ def _maxlog_steps(axes: list[dict[str, Any]], names: list[str], rw: int, mw: int
     comp: dict[str, tuple[int, bool]] = {}
     for a in axes:
         for b in a["bits"]:
-            if b["dp_var"]:
+            if b["dp_reg"]:
                 comp[f"dp_{b['id']}"] = (b["dpw"], False)
             if b["pos_reg"]:
                 comp[f"pos_{b['id']}"] = (1, False)
             for lf in b["leaves"]:
                 if lf["gated"]:
                     comp[f"g_{b['id']}_{lf['i']}"] = (1, False)
-                    comp[f"ga_{b['id']}_{lf['i']}"] = (b["dpw"], False)
             comp[f"neg_{b['id']}"] = (1, False)
     steps.append(Step("competitor", comp, tuple(dec)))
     sel: dict[str, tuple[int, bool]] = {}
@@ -598,11 +599,12 @@ def _maxlog_steps(axes: list[dict[str, Any]], names: list[str], rw: int, mw: int
             for lf in b["leaves"]:
                 if lf["gated"]:
                     sel[f"gs_{b['id']}_{lf['i']}"] = (rw + 1, True)
-                    sel_in.append(f"g_{b['id']}_{lf['i']}")
+                    sel[f"ga_{b['id']}_{lf['i']}"] = (b["dpw"], False)
+                    sel_in += [f"g_{b['id']}_{lf['i']}", f"dp_{b['id']}"]
             if b["pos_reg"]:
                 sel_in.append(f"pos_{b['id']}")
     if sel:
-        steps.append(Step("select", sel, tuple(sel_in) + tuple(f"e_{n}" for n in names)))
+        steps.append(Step("select", sel, tuple(dict.fromkeys(sel_in)) + tuple(f"e_{n}" for n in names)))
     res: dict[str, tuple[int, bool]] = {}
     res_in: list[str] = [f"e_{a['name']}" for a in axes
                          if any(b["need_u"] and not b["se"] for b in a["bits"])] + list(sel)
@@ -615,7 +617,6 @@ def _maxlog_steps(axes: list[dict[str, Any]], names: list[str], rw: int, mw: int
             for lf in b["leaves"]:
                 if lf["gated"]:
                     res[f"w_{b['id']}_{lf['i']}"] = (b["uw"], False)
-                    res_in.append(f"ga_{b['id']}_{lf['i']}")
             if b["dp_var"]:
                 res_in.append(f"dp_{b['id']}")
     steps.append(Step("residual", res, tuple(res_in)))

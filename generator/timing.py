@@ -10,12 +10,12 @@ meets is refused with the best Fmax the model predicts.
 The primitive delays (`CALIBRATION`) were measured with nextpnr-ice40 on the part of
 `estimate.PART`, register-to-register inside the estimate's register wrapper. The per-step
 formulas of the demapper's short steps (range .. sign) are built from those primitives, not
-calibrated one by one; one check (2026-12-01, seed 1): the 256-QAM maxlog datapath alone (stage
-enables tied to m_axis_tready) placed at 211.6 MHz (4.73 ns, the round step) where the model
-says 241 MHz. Not modelled: the stage-enable chain of the stream control (ce_s = !valid_s |
-ce_s+1 from m_axis_tready, fanning out to every register of a stage, often through a global
-buffer), which measured 7.1 - 9.4 ns at 7 - 10 demapper stages and is then the real limit; the
-model's Fmax is optimistic for deep demapper pipelines.
+calibrated one by one; one check (2026-12-01, seed 1): the maxlog datapath alone (stage enables
+tied to m_axis_tready) placed at 224 / 206 / 201 / 201 MHz for QPSK / 64 / 256 / 4096-QAM where
+the model says 209 / 203 / 197 / 186 MHz. Not modelled: the stage-enable chain of the stream control
+(ce_s = !valid_s | ce_s+1 from m_axis_tready, fanning out to every register of a stage, at times
+through a global buffer), which measured 7.3 - 9.9 ns at 7 - 10 demapper stages and is then the
+real limit; the model's Fmax is optimistic for deep demapper pipelines.
 """
 
 from __future__ import annotations
@@ -111,13 +111,13 @@ def step_delay(design: Any, role: str, step: str) -> float:
         sw = design.scale_format.width if design.scale_format else 1
         return _mul(sw, mag)
     if step == "round":
-        # the rounding add and the saturation compare (a constant add) side by side, then the
-        # saturation mux and the XOR with the sign
+        # the rounding add and the saturation compare (a constant add; its carry out leaves
+        # the chain through one LUT) side by side
         pw = w.get("product", (mag, False))[0]
         return _add(pw + 2) + _lut(1)
     if step == "sign":
-        # x + neg: one adder of the LLR width
-        return _add(d.llr_width)
+        # saturation mux and XOR with the sign in one LUT level, then x + neg
+        return _lut(1) + _add(d.llr_width)
     if step == "label":
         return _lut(_levels(m))
     if step == "distance":

@@ -157,9 +157,9 @@ def test_bench_catches_a_wrong_rtl_constant(tmp_path: Path) -> None:
     rtl_path = next((d / "rtl").glob("*_demapper.v"))
     text = rtl_path.read_text()
     # (|dn| << f) + (dn > 0) of axis bit 1 at level 1: 3 (dn = +1, f = 1) made 1
-    old = "3'd1: gated_i1_0 = 3'd3;"
+    old = "3'd1: competitor_i1 = 3'd3;"
     assert old in text
-    rtl_path.write_text(text.replace(old, "3'd1: gated_i1_0 = 3'd1;", 1))
+    rtl_path.write_text(text.replace(old, "3'd1: competitor_i1 = 3'd1;", 1))
     res = verify.run_direct(d, n_random=0)
     assert res.mismatches > 0
 

@@ -190,6 +190,33 @@ module lvt_bh256_demapper (
   wire [3:0] lab_i = label_i(n_i_s1_reg);
   // axis bit 0 (label bit b0): nearest competitor dn levels away: |dn|, its side, the gates
   // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  // (|dn| << 6) + (dn > 0)
+  function [9:0] competitor_i0;
+    input [3:0] key;
+    begin
+      competitor_i0 = 10'd0;
+      case (key)
+        4'd0: competitor_i0 = 10'd513;
+        4'd1: competitor_i0 = 10'd449;
+        4'd2: competitor_i0 = 10'd385;
+        4'd3: competitor_i0 = 10'd321;
+        4'd4: competitor_i0 = 10'd257;
+        4'd5: competitor_i0 = 10'd193;
+        4'd6: competitor_i0 = 10'd129;
+        4'd7: competitor_i0 = 10'd65;
+        4'd8: competitor_i0 = 10'd64;
+        4'd9: competitor_i0 = 10'd128;
+        4'd10: competitor_i0 = 10'd192;
+        4'd11: competitor_i0 = 10'd256;
+        4'd12: competitor_i0 = 10'd320;
+        4'd13: competitor_i0 = 10'd384;
+        4'd14: competitor_i0 = 10'd448;
+        4'd15: competitor_i0 = 10'd512;
+      endcase
+    end
+  endfunction
+  wire [9:0] dp_i0_2_next = competitor_i0(n_i_s1_reg);
+
   function right_i0;
     input [3:0] key;
     begin
@@ -242,32 +269,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_i0_0_2_next = gate_i0_0(n_i_s1_reg);
 
-  function [9:0] gated_i0_0;
-    input [3:0] key;
-    begin
-      gated_i0_0 = 10'd0;
-      case (key)
-        4'd0: gated_i0_0 = 10'd0;
-        4'd1: gated_i0_0 = 10'd449;
-        4'd2: gated_i0_0 = 10'd0;
-        4'd3: gated_i0_0 = 10'd321;
-        4'd4: gated_i0_0 = 10'd0;
-        4'd5: gated_i0_0 = 10'd193;
-        4'd6: gated_i0_0 = 10'd0;
-        4'd7: gated_i0_0 = 10'd65;
-        4'd8: gated_i0_0 = 10'd64;
-        4'd9: gated_i0_0 = 10'd0;
-        4'd10: gated_i0_0 = 10'd192;
-        4'd11: gated_i0_0 = 10'd0;
-        4'd12: gated_i0_0 = 10'd320;
-        4'd13: gated_i0_0 = 10'd0;
-        4'd14: gated_i0_0 = 10'd448;
-        4'd15: gated_i0_0 = 10'd0;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_i0_0_2_next = gated_i0_0(n_i_s1_reg);
-
   function gate_i0_1;
     input [3:0] key;
     begin
@@ -293,32 +294,6 @@ module lvt_bh256_demapper (
     end
   endfunction
   wire g_i0_1_2_next = gate_i0_1(n_i_s1_reg);
-
-  function [9:0] gated_i0_1;
-    input [3:0] key;
-    begin
-      gated_i0_1 = 10'd0;
-      case (key)
-        4'd0: gated_i0_1 = 10'd0;
-        4'd1: gated_i0_1 = 10'd449;
-        4'd2: gated_i0_1 = 10'd385;
-        4'd3: gated_i0_1 = 10'd0;
-        4'd4: gated_i0_1 = 10'd0;
-        4'd5: gated_i0_1 = 10'd193;
-        4'd6: gated_i0_1 = 10'd129;
-        4'd7: gated_i0_1 = 10'd0;
-        4'd8: gated_i0_1 = 10'd0;
-        4'd9: gated_i0_1 = 10'd128;
-        4'd10: gated_i0_1 = 10'd192;
-        4'd11: gated_i0_1 = 10'd0;
-        4'd12: gated_i0_1 = 10'd0;
-        4'd13: gated_i0_1 = 10'd384;
-        4'd14: gated_i0_1 = 10'd448;
-        4'd15: gated_i0_1 = 10'd0;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_i0_1_2_next = gated_i0_1(n_i_s1_reg);
 
   function gate_i0_2;
     input [3:0] key;
@@ -346,32 +321,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_i0_2_2_next = gate_i0_2(n_i_s1_reg);
 
-  function [9:0] gated_i0_2;
-    input [3:0] key;
-    begin
-      gated_i0_2 = 10'd0;
-      case (key)
-        4'd0: gated_i0_2 = 10'd0;
-        4'd1: gated_i0_2 = 10'd449;
-        4'd2: gated_i0_2 = 10'd385;
-        4'd3: gated_i0_2 = 10'd321;
-        4'd4: gated_i0_2 = 10'd257;
-        4'd5: gated_i0_2 = 10'd0;
-        4'd6: gated_i0_2 = 10'd0;
-        4'd7: gated_i0_2 = 10'd0;
-        4'd8: gated_i0_2 = 10'd0;
-        4'd9: gated_i0_2 = 10'd0;
-        4'd10: gated_i0_2 = 10'd0;
-        4'd11: gated_i0_2 = 10'd256;
-        4'd12: gated_i0_2 = 10'd320;
-        4'd13: gated_i0_2 = 10'd384;
-        4'd14: gated_i0_2 = 10'd448;
-        4'd15: gated_i0_2 = 10'd0;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_i0_2_2_next = gated_i0_2(n_i_s1_reg);
-
   function gate_i0_3;
     input [3:0] key;
     begin
@@ -398,35 +347,36 @@ module lvt_bh256_demapper (
   endfunction
   wire g_i0_3_2_next = gate_i0_3(n_i_s1_reg);
 
-  function [9:0] gated_i0_3;
-    input [3:0] key;
-    begin
-      gated_i0_3 = 10'd0;
-      case (key)
-        4'd0: gated_i0_3 = 10'd513;
-        4'd1: gated_i0_3 = 10'd0;
-        4'd2: gated_i0_3 = 10'd0;
-        4'd3: gated_i0_3 = 10'd0;
-        4'd4: gated_i0_3 = 10'd0;
-        4'd5: gated_i0_3 = 10'd0;
-        4'd6: gated_i0_3 = 10'd0;
-        4'd7: gated_i0_3 = 10'd0;
-        4'd8: gated_i0_3 = 10'd0;
-        4'd9: gated_i0_3 = 10'd0;
-        4'd10: gated_i0_3 = 10'd0;
-        4'd11: gated_i0_3 = 10'd0;
-        4'd12: gated_i0_3 = 10'd0;
-        4'd13: gated_i0_3 = 10'd0;
-        4'd14: gated_i0_3 = 10'd0;
-        4'd15: gated_i0_3 = 10'd512;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_i0_3_2_next = gated_i0_3(n_i_s1_reg);
-
   wire neg_i0_2_next = lab_i[3];
   // axis bit 1 (label bit b2): nearest competitor dn levels away: |dn|, its side, the gates
   // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  // (|dn| << 6) + (dn > 0)
+  function [8:0] competitor_i1;
+    input [3:0] key;
+    begin
+      competitor_i1 = 9'd0;
+      case (key)
+        4'd0: competitor_i1 = 9'd257;
+        4'd1: competitor_i1 = 9'd193;
+        4'd2: competitor_i1 = 9'd129;
+        4'd3: competitor_i1 = 9'd65;
+        4'd4: competitor_i1 = 9'd64;
+        4'd5: competitor_i1 = 9'd128;
+        4'd6: competitor_i1 = 9'd192;
+        4'd7: competitor_i1 = 9'd256;
+        4'd8: competitor_i1 = 9'd257;
+        4'd9: competitor_i1 = 9'd193;
+        4'd10: competitor_i1 = 9'd129;
+        4'd11: competitor_i1 = 9'd65;
+        4'd12: competitor_i1 = 9'd64;
+        4'd13: competitor_i1 = 9'd128;
+        4'd14: competitor_i1 = 9'd192;
+        4'd15: competitor_i1 = 9'd256;
+      endcase
+    end
+  endfunction
+  wire [8:0] dp_i1_2_next = competitor_i1(n_i_s1_reg);
+
   function right_i1;
     input [3:0] key;
     begin
@@ -479,32 +429,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_i1_0_2_next = gate_i1_0(n_i_s1_reg);
 
-  function [8:0] gated_i1_0;
-    input [3:0] key;
-    begin
-      gated_i1_0 = 9'd0;
-      case (key)
-        4'd0: gated_i1_0 = 9'd0;
-        4'd1: gated_i1_0 = 9'd193;
-        4'd2: gated_i1_0 = 9'd0;
-        4'd3: gated_i1_0 = 9'd65;
-        4'd4: gated_i1_0 = 9'd64;
-        4'd5: gated_i1_0 = 9'd0;
-        4'd6: gated_i1_0 = 9'd192;
-        4'd7: gated_i1_0 = 9'd0;
-        4'd8: gated_i1_0 = 9'd0;
-        4'd9: gated_i1_0 = 9'd193;
-        4'd10: gated_i1_0 = 9'd0;
-        4'd11: gated_i1_0 = 9'd65;
-        4'd12: gated_i1_0 = 9'd64;
-        4'd13: gated_i1_0 = 9'd0;
-        4'd14: gated_i1_0 = 9'd192;
-        4'd15: gated_i1_0 = 9'd0;
-      endcase
-    end
-  endfunction
-  wire [8:0] ga_i1_0_2_next = gated_i1_0(n_i_s1_reg);
-
   function gate_i1_1;
     input [3:0] key;
     begin
@@ -530,32 +454,6 @@ module lvt_bh256_demapper (
     end
   endfunction
   wire g_i1_1_2_next = gate_i1_1(n_i_s1_reg);
-
-  function [8:0] gated_i1_1;
-    input [3:0] key;
-    begin
-      gated_i1_1 = 9'd0;
-      case (key)
-        4'd0: gated_i1_1 = 9'd0;
-        4'd1: gated_i1_1 = 9'd193;
-        4'd2: gated_i1_1 = 9'd129;
-        4'd3: gated_i1_1 = 9'd0;
-        4'd4: gated_i1_1 = 9'd0;
-        4'd5: gated_i1_1 = 9'd128;
-        4'd6: gated_i1_1 = 9'd192;
-        4'd7: gated_i1_1 = 9'd0;
-        4'd8: gated_i1_1 = 9'd0;
-        4'd9: gated_i1_1 = 9'd193;
-        4'd10: gated_i1_1 = 9'd129;
-        4'd11: gated_i1_1 = 9'd0;
-        4'd12: gated_i1_1 = 9'd0;
-        4'd13: gated_i1_1 = 9'd128;
-        4'd14: gated_i1_1 = 9'd192;
-        4'd15: gated_i1_1 = 9'd0;
-      endcase
-    end
-  endfunction
-  wire [8:0] ga_i1_1_2_next = gated_i1_1(n_i_s1_reg);
 
   function gate_i1_2;
     input [3:0] key;
@@ -583,35 +481,36 @@ module lvt_bh256_demapper (
   endfunction
   wire g_i1_2_2_next = gate_i1_2(n_i_s1_reg);
 
-  function [8:0] gated_i1_2;
-    input [3:0] key;
-    begin
-      gated_i1_2 = 9'd0;
-      case (key)
-        4'd0: gated_i1_2 = 9'd257;
-        4'd1: gated_i1_2 = 9'd0;
-        4'd2: gated_i1_2 = 9'd0;
-        4'd3: gated_i1_2 = 9'd0;
-        4'd4: gated_i1_2 = 9'd0;
-        4'd5: gated_i1_2 = 9'd0;
-        4'd6: gated_i1_2 = 9'd0;
-        4'd7: gated_i1_2 = 9'd256;
-        4'd8: gated_i1_2 = 9'd257;
-        4'd9: gated_i1_2 = 9'd0;
-        4'd10: gated_i1_2 = 9'd0;
-        4'd11: gated_i1_2 = 9'd0;
-        4'd12: gated_i1_2 = 9'd0;
-        4'd13: gated_i1_2 = 9'd0;
-        4'd14: gated_i1_2 = 9'd0;
-        4'd15: gated_i1_2 = 9'd256;
-      endcase
-    end
-  endfunction
-  wire [8:0] ga_i1_2_2_next = gated_i1_2(n_i_s1_reg);
-
   wire neg_i1_2_next = lab_i[2];
   // axis bit 2 (label bit b4): nearest competitor dn levels away: |dn|, its side, the gates
   // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  // (|dn| << 6) + (dn > 0)
+  function [7:0] competitor_i2;
+    input [3:0] key;
+    begin
+      competitor_i2 = 8'd0;
+      case (key)
+        4'd0: competitor_i2 = 8'd129;
+        4'd1: competitor_i2 = 8'd65;
+        4'd2: competitor_i2 = 8'd64;
+        4'd3: competitor_i2 = 8'd128;
+        4'd4: competitor_i2 = 8'd129;
+        4'd5: competitor_i2 = 8'd65;
+        4'd6: competitor_i2 = 8'd64;
+        4'd7: competitor_i2 = 8'd128;
+        4'd8: competitor_i2 = 8'd129;
+        4'd9: competitor_i2 = 8'd65;
+        4'd10: competitor_i2 = 8'd64;
+        4'd11: competitor_i2 = 8'd128;
+        4'd12: competitor_i2 = 8'd129;
+        4'd13: competitor_i2 = 8'd65;
+        4'd14: competitor_i2 = 8'd64;
+        4'd15: competitor_i2 = 8'd128;
+      endcase
+    end
+  endfunction
+  wire [7:0] dp_i2_2_next = competitor_i2(n_i_s1_reg);
+
   function right_i2;
     input [3:0] key;
     begin
@@ -664,32 +563,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_i2_0_2_next = gate_i2_0(n_i_s1_reg);
 
-  function [7:0] gated_i2_0;
-    input [3:0] key;
-    begin
-      gated_i2_0 = 8'd0;
-      case (key)
-        4'd0: gated_i2_0 = 8'd0;
-        4'd1: gated_i2_0 = 8'd65;
-        4'd2: gated_i2_0 = 8'd64;
-        4'd3: gated_i2_0 = 8'd0;
-        4'd4: gated_i2_0 = 8'd0;
-        4'd5: gated_i2_0 = 8'd65;
-        4'd6: gated_i2_0 = 8'd64;
-        4'd7: gated_i2_0 = 8'd0;
-        4'd8: gated_i2_0 = 8'd0;
-        4'd9: gated_i2_0 = 8'd65;
-        4'd10: gated_i2_0 = 8'd64;
-        4'd11: gated_i2_0 = 8'd0;
-        4'd12: gated_i2_0 = 8'd0;
-        4'd13: gated_i2_0 = 8'd65;
-        4'd14: gated_i2_0 = 8'd64;
-        4'd15: gated_i2_0 = 8'd0;
-      endcase
-    end
-  endfunction
-  wire [7:0] ga_i2_0_2_next = gated_i2_0(n_i_s1_reg);
-
   function gate_i2_1;
     input [3:0] key;
     begin
@@ -715,32 +588,6 @@ module lvt_bh256_demapper (
     end
   endfunction
   wire g_i2_1_2_next = gate_i2_1(n_i_s1_reg);
-
-  function [7:0] gated_i2_1;
-    input [3:0] key;
-    begin
-      gated_i2_1 = 8'd0;
-      case (key)
-        4'd0: gated_i2_1 = 8'd129;
-        4'd1: gated_i2_1 = 8'd0;
-        4'd2: gated_i2_1 = 8'd0;
-        4'd3: gated_i2_1 = 8'd128;
-        4'd4: gated_i2_1 = 8'd129;
-        4'd5: gated_i2_1 = 8'd0;
-        4'd6: gated_i2_1 = 8'd0;
-        4'd7: gated_i2_1 = 8'd128;
-        4'd8: gated_i2_1 = 8'd129;
-        4'd9: gated_i2_1 = 8'd0;
-        4'd10: gated_i2_1 = 8'd0;
-        4'd11: gated_i2_1 = 8'd128;
-        4'd12: gated_i2_1 = 8'd129;
-        4'd13: gated_i2_1 = 8'd0;
-        4'd14: gated_i2_1 = 8'd0;
-        4'd15: gated_i2_1 = 8'd128;
-      endcase
-    end
-  endfunction
-  wire [7:0] ga_i2_1_2_next = gated_i2_1(n_i_s1_reg);
 
   wire neg_i2_2_next = lab_i[1];
   // axis bit 3 (label bit b6): nearest competitor dn levels away: |dn|, its side, the gates
@@ -827,6 +674,33 @@ module lvt_bh256_demapper (
   wire [3:0] lab_q = label_q(n_q_s1_reg);
   // axis bit 0 (label bit b1): nearest competitor dn levels away: |dn|, its side, the gates
   // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  // (|dn| << 6) + (dn > 0)
+  function [9:0] competitor_q0;
+    input [3:0] key;
+    begin
+      competitor_q0 = 10'd0;
+      case (key)
+        4'd0: competitor_q0 = 10'd513;
+        4'd1: competitor_q0 = 10'd449;
+        4'd2: competitor_q0 = 10'd385;
+        4'd3: competitor_q0 = 10'd321;
+        4'd4: competitor_q0 = 10'd257;
+        4'd5: competitor_q0 = 10'd193;
+        4'd6: competitor_q0 = 10'd129;
+        4'd7: competitor_q0 = 10'd65;
+        4'd8: competitor_q0 = 10'd64;
+        4'd9: competitor_q0 = 10'd128;
+        4'd10: competitor_q0 = 10'd192;
+        4'd11: competitor_q0 = 10'd256;
+        4'd12: competitor_q0 = 10'd320;
+        4'd13: competitor_q0 = 10'd384;
+        4'd14: competitor_q0 = 10'd448;
+        4'd15: competitor_q0 = 10'd512;
+      endcase
+    end
+  endfunction
+  wire [9:0] dp_q0_2_next = competitor_q0(n_q_s1_reg);
+
   function right_q0;
     input [3:0] key;
     begin
@@ -879,32 +753,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_q0_0_2_next = gate_q0_0(n_q_s1_reg);
 
-  function [9:0] gated_q0_0;
-    input [3:0] key;
-    begin
-      gated_q0_0 = 10'd0;
-      case (key)
-        4'd0: gated_q0_0 = 10'd0;
-        4'd1: gated_q0_0 = 10'd449;
-        4'd2: gated_q0_0 = 10'd0;
-        4'd3: gated_q0_0 = 10'd321;
-        4'd4: gated_q0_0 = 10'd0;
-        4'd5: gated_q0_0 = 10'd193;
-        4'd6: gated_q0_0 = 10'd0;
-        4'd7: gated_q0_0 = 10'd65;
-        4'd8: gated_q0_0 = 10'd64;
-        4'd9: gated_q0_0 = 10'd0;
-        4'd10: gated_q0_0 = 10'd192;
-        4'd11: gated_q0_0 = 10'd0;
-        4'd12: gated_q0_0 = 10'd320;
-        4'd13: gated_q0_0 = 10'd0;
-        4'd14: gated_q0_0 = 10'd448;
-        4'd15: gated_q0_0 = 10'd0;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_q0_0_2_next = gated_q0_0(n_q_s1_reg);
-
   function gate_q0_1;
     input [3:0] key;
     begin
@@ -930,32 +778,6 @@ module lvt_bh256_demapper (
     end
   endfunction
   wire g_q0_1_2_next = gate_q0_1(n_q_s1_reg);
-
-  function [9:0] gated_q0_1;
-    input [3:0] key;
-    begin
-      gated_q0_1 = 10'd0;
-      case (key)
-        4'd0: gated_q0_1 = 10'd0;
-        4'd1: gated_q0_1 = 10'd449;
-        4'd2: gated_q0_1 = 10'd385;
-        4'd3: gated_q0_1 = 10'd0;
-        4'd4: gated_q0_1 = 10'd0;
-        4'd5: gated_q0_1 = 10'd193;
-        4'd6: gated_q0_1 = 10'd129;
-        4'd7: gated_q0_1 = 10'd0;
-        4'd8: gated_q0_1 = 10'd0;
-        4'd9: gated_q0_1 = 10'd128;
-        4'd10: gated_q0_1 = 10'd192;
-        4'd11: gated_q0_1 = 10'd0;
-        4'd12: gated_q0_1 = 10'd0;
-        4'd13: gated_q0_1 = 10'd384;
-        4'd14: gated_q0_1 = 10'd448;
-        4'd15: gated_q0_1 = 10'd0;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_q0_1_2_next = gated_q0_1(n_q_s1_reg);
 
   function gate_q0_2;
     input [3:0] key;
@@ -983,32 +805,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_q0_2_2_next = gate_q0_2(n_q_s1_reg);
 
-  function [9:0] gated_q0_2;
-    input [3:0] key;
-    begin
-      gated_q0_2 = 10'd0;
-      case (key)
-        4'd0: gated_q0_2 = 10'd0;
-        4'd1: gated_q0_2 = 10'd449;
-        4'd2: gated_q0_2 = 10'd385;
-        4'd3: gated_q0_2 = 10'd321;
-        4'd4: gated_q0_2 = 10'd257;
-        4'd5: gated_q0_2 = 10'd0;
-        4'd6: gated_q0_2 = 10'd0;
-        4'd7: gated_q0_2 = 10'd0;
-        4'd8: gated_q0_2 = 10'd0;
-        4'd9: gated_q0_2 = 10'd0;
-        4'd10: gated_q0_2 = 10'd0;
-        4'd11: gated_q0_2 = 10'd256;
-        4'd12: gated_q0_2 = 10'd320;
-        4'd13: gated_q0_2 = 10'd384;
-        4'd14: gated_q0_2 = 10'd448;
-        4'd15: gated_q0_2 = 10'd0;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_q0_2_2_next = gated_q0_2(n_q_s1_reg);
-
   function gate_q0_3;
     input [3:0] key;
     begin
@@ -1035,35 +831,36 @@ module lvt_bh256_demapper (
   endfunction
   wire g_q0_3_2_next = gate_q0_3(n_q_s1_reg);
 
-  function [9:0] gated_q0_3;
-    input [3:0] key;
-    begin
-      gated_q0_3 = 10'd0;
-      case (key)
-        4'd0: gated_q0_3 = 10'd513;
-        4'd1: gated_q0_3 = 10'd0;
-        4'd2: gated_q0_3 = 10'd0;
-        4'd3: gated_q0_3 = 10'd0;
-        4'd4: gated_q0_3 = 10'd0;
-        4'd5: gated_q0_3 = 10'd0;
-        4'd6: gated_q0_3 = 10'd0;
-        4'd7: gated_q0_3 = 10'd0;
-        4'd8: gated_q0_3 = 10'd0;
-        4'd9: gated_q0_3 = 10'd0;
-        4'd10: gated_q0_3 = 10'd0;
-        4'd11: gated_q0_3 = 10'd0;
-        4'd12: gated_q0_3 = 10'd0;
-        4'd13: gated_q0_3 = 10'd0;
-        4'd14: gated_q0_3 = 10'd0;
-        4'd15: gated_q0_3 = 10'd512;
-      endcase
-    end
-  endfunction
-  wire [9:0] ga_q0_3_2_next = gated_q0_3(n_q_s1_reg);
-
   wire neg_q0_2_next = lab_q[3];
   // axis bit 1 (label bit b3): nearest competitor dn levels away: |dn|, its side, the gates
   // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  // (|dn| << 6) + (dn > 0)
+  function [8:0] competitor_q1;
+    input [3:0] key;
+    begin
+      competitor_q1 = 9'd0;
+      case (key)
+        4'd0: competitor_q1 = 9'd257;
+        4'd1: competitor_q1 = 9'd193;
+        4'd2: competitor_q1 = 9'd129;
+        4'd3: competitor_q1 = 9'd65;
+        4'd4: competitor_q1 = 9'd64;
+        4'd5: competitor_q1 = 9'd128;
+        4'd6: competitor_q1 = 9'd192;
+        4'd7: competitor_q1 = 9'd256;
+        4'd8: competitor_q1 = 9'd257;
+        4'd9: competitor_q1 = 9'd193;
+        4'd10: competitor_q1 = 9'd129;
+        4'd11: competitor_q1 = 9'd65;
+        4'd12: competitor_q1 = 9'd64;
+        4'd13: competitor_q1 = 9'd128;
+        4'd14: competitor_q1 = 9'd192;
+        4'd15: competitor_q1 = 9'd256;
+      endcase
+    end
+  endfunction
+  wire [8:0] dp_q1_2_next = competitor_q1(n_q_s1_reg);
+
   function right_q1;
     input [3:0] key;
     begin
@@ -1116,32 +913,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_q1_0_2_next = gate_q1_0(n_q_s1_reg);
 
-  function [8:0] gated_q1_0;
-    input [3:0] key;
-    begin
-      gated_q1_0 = 9'd0;
-      case (key)
-        4'd0: gated_q1_0 = 9'd0;
-        4'd1: gated_q1_0 = 9'd193;
-        4'd2: gated_q1_0 = 9'd0;
-        4'd3: gated_q1_0 = 9'd65;
-        4'd4: gated_q1_0 = 9'd64;
-        4'd5: gated_q1_0 = 9'd0;
-        4'd6: gated_q1_0 = 9'd192;
-        4'd7: gated_q1_0 = 9'd0;
-        4'd8: gated_q1_0 = 9'd0;
-        4'd9: gated_q1_0 = 9'd193;
-        4'd10: gated_q1_0 = 9'd0;
-        4'd11: gated_q1_0 = 9'd65;
-        4'd12: gated_q1_0 = 9'd64;
-        4'd13: gated_q1_0 = 9'd0;
-        4'd14: gated_q1_0 = 9'd192;
-        4'd15: gated_q1_0 = 9'd0;
-      endcase
-    end
-  endfunction
-  wire [8:0] ga_q1_0_2_next = gated_q1_0(n_q_s1_reg);
-
   function gate_q1_1;
     input [3:0] key;
     begin
@@ -1167,32 +938,6 @@ module lvt_bh256_demapper (
     end
   endfunction
   wire g_q1_1_2_next = gate_q1_1(n_q_s1_reg);
-
-  function [8:0] gated_q1_1;
-    input [3:0] key;
-    begin
-      gated_q1_1 = 9'd0;
-      case (key)
-        4'd0: gated_q1_1 = 9'd0;
-        4'd1: gated_q1_1 = 9'd193;
-        4'd2: gated_q1_1 = 9'd129;
-        4'd3: gated_q1_1 = 9'd0;
-        4'd4: gated_q1_1 = 9'd0;
-        4'd5: gated_q1_1 = 9'd128;
-        4'd6: gated_q1_1 = 9'd192;
-        4'd7: gated_q1_1 = 9'd0;
-        4'd8: gated_q1_1 = 9'd0;
-        4'd9: gated_q1_1 = 9'd193;
-        4'd10: gated_q1_1 = 9'd129;
-        4'd11: gated_q1_1 = 9'd0;
-        4'd12: gated_q1_1 = 9'd0;
-        4'd13: gated_q1_1 = 9'd128;
-        4'd14: gated_q1_1 = 9'd192;
-        4'd15: gated_q1_1 = 9'd0;
-      endcase
-    end
-  endfunction
-  wire [8:0] ga_q1_1_2_next = gated_q1_1(n_q_s1_reg);
 
   function gate_q1_2;
     input [3:0] key;
@@ -1220,35 +965,36 @@ module lvt_bh256_demapper (
   endfunction
   wire g_q1_2_2_next = gate_q1_2(n_q_s1_reg);
 
-  function [8:0] gated_q1_2;
-    input [3:0] key;
-    begin
-      gated_q1_2 = 9'd0;
-      case (key)
-        4'd0: gated_q1_2 = 9'd257;
-        4'd1: gated_q1_2 = 9'd0;
-        4'd2: gated_q1_2 = 9'd0;
-        4'd3: gated_q1_2 = 9'd0;
-        4'd4: gated_q1_2 = 9'd0;
-        4'd5: gated_q1_2 = 9'd0;
-        4'd6: gated_q1_2 = 9'd0;
-        4'd7: gated_q1_2 = 9'd256;
-        4'd8: gated_q1_2 = 9'd257;
-        4'd9: gated_q1_2 = 9'd0;
-        4'd10: gated_q1_2 = 9'd0;
-        4'd11: gated_q1_2 = 9'd0;
-        4'd12: gated_q1_2 = 9'd0;
-        4'd13: gated_q1_2 = 9'd0;
-        4'd14: gated_q1_2 = 9'd0;
-        4'd15: gated_q1_2 = 9'd256;
-      endcase
-    end
-  endfunction
-  wire [8:0] ga_q1_2_2_next = gated_q1_2(n_q_s1_reg);
-
   wire neg_q1_2_next = lab_q[2];
   // axis bit 2 (label bit b5): nearest competitor dn levels away: |dn|, its side, the gates
   // of the partial products u << i (bit i of |dn|); |dn| takes several values
+  // (|dn| << 6) + (dn > 0)
+  function [7:0] competitor_q2;
+    input [3:0] key;
+    begin
+      competitor_q2 = 8'd0;
+      case (key)
+        4'd0: competitor_q2 = 8'd129;
+        4'd1: competitor_q2 = 8'd65;
+        4'd2: competitor_q2 = 8'd64;
+        4'd3: competitor_q2 = 8'd128;
+        4'd4: competitor_q2 = 8'd129;
+        4'd5: competitor_q2 = 8'd65;
+        4'd6: competitor_q2 = 8'd64;
+        4'd7: competitor_q2 = 8'd128;
+        4'd8: competitor_q2 = 8'd129;
+        4'd9: competitor_q2 = 8'd65;
+        4'd10: competitor_q2 = 8'd64;
+        4'd11: competitor_q2 = 8'd128;
+        4'd12: competitor_q2 = 8'd129;
+        4'd13: competitor_q2 = 8'd65;
+        4'd14: competitor_q2 = 8'd64;
+        4'd15: competitor_q2 = 8'd128;
+      endcase
+    end
+  endfunction
+  wire [7:0] dp_q2_2_next = competitor_q2(n_q_s1_reg);
+
   function right_q2;
     input [3:0] key;
     begin
@@ -1301,32 +1047,6 @@ module lvt_bh256_demapper (
   endfunction
   wire g_q2_0_2_next = gate_q2_0(n_q_s1_reg);
 
-  function [7:0] gated_q2_0;
-    input [3:0] key;
-    begin
-      gated_q2_0 = 8'd0;
-      case (key)
-        4'd0: gated_q2_0 = 8'd0;
-        4'd1: gated_q2_0 = 8'd65;
-        4'd2: gated_q2_0 = 8'd64;
-        4'd3: gated_q2_0 = 8'd0;
-        4'd4: gated_q2_0 = 8'd0;
-        4'd5: gated_q2_0 = 8'd65;
-        4'd6: gated_q2_0 = 8'd64;
-        4'd7: gated_q2_0 = 8'd0;
-        4'd8: gated_q2_0 = 8'd0;
-        4'd9: gated_q2_0 = 8'd65;
-        4'd10: gated_q2_0 = 8'd64;
-        4'd11: gated_q2_0 = 8'd0;
-        4'd12: gated_q2_0 = 8'd0;
-        4'd13: gated_q2_0 = 8'd65;
-        4'd14: gated_q2_0 = 8'd64;
-        4'd15: gated_q2_0 = 8'd0;
-      endcase
-    end
-  endfunction
-  wire [7:0] ga_q2_0_2_next = gated_q2_0(n_q_s1_reg);
-
   function gate_q2_1;
     input [3:0] key;
     begin
@@ -1352,32 +1072,6 @@ module lvt_bh256_demapper (
     end
   endfunction
   wire g_q2_1_2_next = gate_q2_1(n_q_s1_reg);
-
-  function [7:0] gated_q2_1;
-    input [3:0] key;
-    begin
-      gated_q2_1 = 8'd0;
-      case (key)
-        4'd0: gated_q2_1 = 8'd129;
-        4'd1: gated_q2_1 = 8'd0;
-        4'd2: gated_q2_1 = 8'd0;
-        4'd3: gated_q2_1 = 8'd128;
-        4'd4: gated_q2_1 = 8'd129;
-        4'd5: gated_q2_1 = 8'd0;
-        4'd6: gated_q2_1 = 8'd0;
-        4'd7: gated_q2_1 = 8'd128;
-        4'd8: gated_q2_1 = 8'd129;
-        4'd9: gated_q2_1 = 8'd0;
-        4'd10: gated_q2_1 = 8'd0;
-        4'd11: gated_q2_1 = 8'd128;
-        4'd12: gated_q2_1 = 8'd129;
-        4'd13: gated_q2_1 = 8'd0;
-        4'd14: gated_q2_1 = 8'd0;
-        4'd15: gated_q2_1 = 8'd128;
-      endcase
-    end
-  endfunction
-  wire [7:0] ga_q2_1_2_next = gated_q2_1(n_q_s1_reg);
 
   wire neg_q2_2_next = lab_q[1];
   // axis bit 3 (label bit b7): nearest competitor dn levels away: |dn|, its side, the gates
@@ -1441,56 +1135,44 @@ module lvt_bh256_demapper (
   reg  tlast_s2_reg = 1'd0;
   reg  [11:0] e_i_s2_reg = 12'd0;
   reg  [11:0] e_q_s2_reg = 12'd0;
+  reg  [9:0] dp_i0_s2_reg = 10'd0;
   reg  pos_i0_s2_reg = 1'd0;
   reg  g_i0_0_s2_reg = 1'd0;
-  reg  [9:0] ga_i0_0_s2_reg = 10'd0;
   reg  g_i0_1_s2_reg = 1'd0;
-  reg  [9:0] ga_i0_1_s2_reg = 10'd0;
   reg  g_i0_2_s2_reg = 1'd0;
-  reg  [9:0] ga_i0_2_s2_reg = 10'd0;
   reg  g_i0_3_s2_reg = 1'd0;
-  reg  [9:0] ga_i0_3_s2_reg = 10'd0;
   reg  neg_i0_s2_reg = 1'd0;
+  reg  [8:0] dp_i1_s2_reg = 9'd0;
   reg  pos_i1_s2_reg = 1'd0;
   reg  g_i1_0_s2_reg = 1'd0;
-  reg  [8:0] ga_i1_0_s2_reg = 9'd0;
   reg  g_i1_1_s2_reg = 1'd0;
-  reg  [8:0] ga_i1_1_s2_reg = 9'd0;
   reg  g_i1_2_s2_reg = 1'd0;
-  reg  [8:0] ga_i1_2_s2_reg = 9'd0;
   reg  neg_i1_s2_reg = 1'd0;
+  reg  [7:0] dp_i2_s2_reg = 8'd0;
   reg  pos_i2_s2_reg = 1'd0;
   reg  g_i2_0_s2_reg = 1'd0;
-  reg  [7:0] ga_i2_0_s2_reg = 8'd0;
   reg  g_i2_1_s2_reg = 1'd0;
-  reg  [7:0] ga_i2_1_s2_reg = 8'd0;
   reg  neg_i2_s2_reg = 1'd0;
   reg  [6:0] dp_i3_s2_reg = 7'd0;
   reg  pos_i3_s2_reg = 1'd0;
   reg  neg_i3_s2_reg = 1'd0;
+  reg  [9:0] dp_q0_s2_reg = 10'd0;
   reg  pos_q0_s2_reg = 1'd0;
   reg  g_q0_0_s2_reg = 1'd0;
-  reg  [9:0] ga_q0_0_s2_reg = 10'd0;
   reg  g_q0_1_s2_reg = 1'd0;
-  reg  [9:0] ga_q0_1_s2_reg = 10'd0;
   reg  g_q0_2_s2_reg = 1'd0;
-  reg  [9:0] ga_q0_2_s2_reg = 10'd0;
   reg  g_q0_3_s2_reg = 1'd0;
-  reg  [9:0] ga_q0_3_s2_reg = 10'd0;
   reg  neg_q0_s2_reg = 1'd0;
+  reg  [8:0] dp_q1_s2_reg = 9'd0;
   reg  pos_q1_s2_reg = 1'd0;
   reg  g_q1_0_s2_reg = 1'd0;
-  reg  [8:0] ga_q1_0_s2_reg = 9'd0;
   reg  g_q1_1_s2_reg = 1'd0;
-  reg  [8:0] ga_q1_1_s2_reg = 9'd0;
   reg  g_q1_2_s2_reg = 1'd0;
-  reg  [8:0] ga_q1_2_s2_reg = 9'd0;
   reg  neg_q1_s2_reg = 1'd0;
+  reg  [7:0] dp_q2_s2_reg = 8'd0;
   reg  pos_q2_s2_reg = 1'd0;
   reg  g_q2_0_s2_reg = 1'd0;
-  reg  [7:0] ga_q2_0_s2_reg = 8'd0;
   reg  g_q2_1_s2_reg = 1'd0;
-  reg  [7:0] ga_q2_1_s2_reg = 8'd0;
   reg  neg_q2_s2_reg = 1'd0;
   reg  [6:0] dp_q3_s2_reg = 7'd0;
   reg  pos_q3_s2_reg = 1'd0;
@@ -1500,56 +1182,44 @@ module lvt_bh256_demapper (
       tlast_s2_reg <= tlast_s1_reg;
       e_i_s2_reg <= e_i_s1_reg;
       e_q_s2_reg <= e_q_s1_reg;
+      dp_i0_s2_reg <= dp_i0_2_next;
       pos_i0_s2_reg <= pos_i0_2_next;
       g_i0_0_s2_reg <= g_i0_0_2_next;
-      ga_i0_0_s2_reg <= ga_i0_0_2_next;
       g_i0_1_s2_reg <= g_i0_1_2_next;
-      ga_i0_1_s2_reg <= ga_i0_1_2_next;
       g_i0_2_s2_reg <= g_i0_2_2_next;
-      ga_i0_2_s2_reg <= ga_i0_2_2_next;
       g_i0_3_s2_reg <= g_i0_3_2_next;
-      ga_i0_3_s2_reg <= ga_i0_3_2_next;
       neg_i0_s2_reg <= neg_i0_2_next;
+      dp_i1_s2_reg <= dp_i1_2_next;
       pos_i1_s2_reg <= pos_i1_2_next;
       g_i1_0_s2_reg <= g_i1_0_2_next;
-      ga_i1_0_s2_reg <= ga_i1_0_2_next;
       g_i1_1_s2_reg <= g_i1_1_2_next;
-      ga_i1_1_s2_reg <= ga_i1_1_2_next;
       g_i1_2_s2_reg <= g_i1_2_2_next;
-      ga_i1_2_s2_reg <= ga_i1_2_2_next;
       neg_i1_s2_reg <= neg_i1_2_next;
+      dp_i2_s2_reg <= dp_i2_2_next;
       pos_i2_s2_reg <= pos_i2_2_next;
       g_i2_0_s2_reg <= g_i2_0_2_next;
-      ga_i2_0_s2_reg <= ga_i2_0_2_next;
       g_i2_1_s2_reg <= g_i2_1_2_next;
-      ga_i2_1_s2_reg <= ga_i2_1_2_next;
       neg_i2_s2_reg <= neg_i2_2_next;
       dp_i3_s2_reg <= dp_i3_2_next;
       pos_i3_s2_reg <= pos_i3_2_next;
       neg_i3_s2_reg <= neg_i3_2_next;
+      dp_q0_s2_reg <= dp_q0_2_next;
       pos_q0_s2_reg <= pos_q0_2_next;
       g_q0_0_s2_reg <= g_q0_0_2_next;
-      ga_q0_0_s2_reg <= ga_q0_0_2_next;
       g_q0_1_s2_reg <= g_q0_1_2_next;
-      ga_q0_1_s2_reg <= ga_q0_1_2_next;
       g_q0_2_s2_reg <= g_q0_2_2_next;
-      ga_q0_2_s2_reg <= ga_q0_2_2_next;
       g_q0_3_s2_reg <= g_q0_3_2_next;
-      ga_q0_3_s2_reg <= ga_q0_3_2_next;
       neg_q0_s2_reg <= neg_q0_2_next;
+      dp_q1_s2_reg <= dp_q1_2_next;
       pos_q1_s2_reg <= pos_q1_2_next;
       g_q1_0_s2_reg <= g_q1_0_2_next;
-      ga_q1_0_s2_reg <= ga_q1_0_2_next;
       g_q1_1_s2_reg <= g_q1_1_2_next;
-      ga_q1_1_s2_reg <= ga_q1_1_2_next;
       g_q1_2_s2_reg <= g_q1_2_2_next;
-      ga_q1_2_s2_reg <= ga_q1_2_2_next;
       neg_q1_s2_reg <= neg_q1_2_next;
+      dp_q2_s2_reg <= dp_q2_2_next;
       pos_q2_s2_reg <= pos_q2_2_next;
       g_q2_0_s2_reg <= g_q2_0_2_next;
-      ga_q2_0_s2_reg <= ga_q2_0_2_next;
       g_q2_1_s2_reg <= g_q2_1_2_next;
-      ga_q2_1_s2_reg <= ga_q2_1_2_next;
       neg_q2_s2_reg <= neg_q2_2_next;
       dp_q3_s2_reg <= dp_q3_2_next;
       pos_q3_s2_reg <= pos_q3_2_next;
@@ -1559,129 +1229,165 @@ module lvt_bh256_demapper (
 
 
   // ---------------------------------------------------------------- step 4: select
-  wire [12:0] gs_i0_0_3_next = g_i0_0_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i0_1_3_next = g_i0_1_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i0_2_3_next = g_i0_2_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i0_3_3_next = g_i0_3_s2_reg ? (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i1_0_3_next = g_i1_0_s2_reg ? (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i1_1_3_next = g_i1_1_s2_reg ? (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i1_2_3_next = g_i1_2_s2_reg ? (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i2_0_3_next = g_i2_0_s2_reg ? (pos_i2_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
-  wire [12:0] gs_i2_1_3_next = g_i2_1_s2_reg ? (pos_i2_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg}) : 13'd0;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i0_0_3_next = {13{g_i0_0_s2_reg}} & (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [9:0] ga_i0_0_3_next = {10{g_i0_0_s2_reg}} & dp_i0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i0_1_3_next = {13{g_i0_1_s2_reg}} & (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [9:0] ga_i0_1_3_next = {10{g_i0_1_s2_reg}} & dp_i0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i0_2_3_next = {13{g_i0_2_s2_reg}} & (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [9:0] ga_i0_2_3_next = {10{g_i0_2_s2_reg}} & dp_i0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i0_3_3_next = {13{g_i0_3_s2_reg}} & (pos_i0_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [9:0] ga_i0_3_3_next = {10{g_i0_3_s2_reg}} & dp_i0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i1_0_3_next = {13{g_i1_0_s2_reg}} & (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [8:0] ga_i1_0_3_next = {9{g_i1_0_s2_reg}} & dp_i1_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i1_1_3_next = {13{g_i1_1_s2_reg}} & (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [8:0] ga_i1_1_3_next = {9{g_i1_1_s2_reg}} & dp_i1_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i1_2_3_next = {13{g_i1_2_s2_reg}} & (pos_i1_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [8:0] ga_i1_2_3_next = {9{g_i1_2_s2_reg}} & dp_i1_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i2_0_3_next = {13{g_i2_0_s2_reg}} & (pos_i2_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [7:0] ga_i2_0_3_next = {8{g_i2_0_s2_reg}} & dp_i2_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_i2_1_3_next = {13{g_i2_1_s2_reg}} & (pos_i2_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
+  wire [7:0] ga_i2_1_3_next = {8{g_i2_1_s2_reg}} & dp_i2_s2_reg;
   // axis bit 3: dn > 0 ? ~e : e (the +1 of -e sits in the table's (|dn| << 6) + 1)
   wire [12:0] se_i3_3_next = (pos_i3_s2_reg ? ~{{1{e_i_s2_reg[11]}}, e_i_s2_reg} : {{1{e_i_s2_reg[11]}}, e_i_s2_reg});
-  wire [12:0] gs_q0_0_3_next = g_q0_0_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q0_1_3_next = g_q0_1_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q0_2_3_next = g_q0_2_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q0_3_3_next = g_q0_3_s2_reg ? (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q1_0_3_next = g_q1_0_s2_reg ? (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q1_1_3_next = g_q1_1_s2_reg ? (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q1_2_3_next = g_q1_2_s2_reg ? (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q2_0_3_next = g_q2_0_s2_reg ? (pos_q2_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
-  wire [12:0] gs_q2_1_3_next = g_q2_1_s2_reg ? (pos_q2_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg}) : 13'd0;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q0_0_3_next = {13{g_q0_0_s2_reg}} & (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [9:0] ga_q0_0_3_next = {10{g_q0_0_s2_reg}} & dp_q0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q0_1_3_next = {13{g_q0_1_s2_reg}} & (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [9:0] ga_q0_1_3_next = {10{g_q0_1_s2_reg}} & dp_q0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q0_2_3_next = {13{g_q0_2_s2_reg}} & (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [9:0] ga_q0_2_3_next = {10{g_q0_2_s2_reg}} & dp_q0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q0_3_3_next = {13{g_q0_3_s2_reg}} & (pos_q0_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [9:0] ga_q0_3_3_next = {10{g_q0_3_s2_reg}} & dp_q0_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q1_0_3_next = {13{g_q1_0_s2_reg}} & (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [8:0] ga_q1_0_3_next = {9{g_q1_0_s2_reg}} & dp_q1_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q1_1_3_next = {13{g_q1_1_s2_reg}} & (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [8:0] ga_q1_1_3_next = {9{g_q1_1_s2_reg}} & dp_q1_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q1_2_3_next = {13{g_q1_2_s2_reg}} & (pos_q1_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [8:0] ga_q1_2_3_next = {9{g_q1_2_s2_reg}} & dp_q1_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q2_0_3_next = {13{g_q2_0_s2_reg}} & (pos_q2_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [7:0] ga_q2_0_3_next = {8{g_q2_0_s2_reg}} & dp_q2_s2_reg;
+  // gates as AND terms (a mux to zero would become a register reset)
+  wire [12:0] gs_q2_1_3_next = {13{g_q2_1_s2_reg}} & (pos_q2_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
+  wire [7:0] ga_q2_1_3_next = {8{g_q2_1_s2_reg}} & dp_q2_s2_reg;
   // axis bit 3: dn > 0 ? ~e : e (the +1 of -e sits in the table's (|dn| << 6) + 1)
   wire [12:0] se_q3_3_next = (pos_q3_s2_reg ? ~{{1{e_q_s2_reg[11]}}, e_q_s2_reg} : {{1{e_q_s2_reg[11]}}, e_q_s2_reg});
 
   // register stage 3 (after step "select")
   reg  tlast_s3_reg = 1'd0;
-  reg  [9:0] ga_i0_0_s3_reg = 10'd0;
-  reg  [9:0] ga_i0_1_s3_reg = 10'd0;
-  reg  [9:0] ga_i0_2_s3_reg = 10'd0;
-  reg  [9:0] ga_i0_3_s3_reg = 10'd0;
   reg  neg_i0_s3_reg = 1'd0;
-  reg  [8:0] ga_i1_0_s3_reg = 9'd0;
-  reg  [8:0] ga_i1_1_s3_reg = 9'd0;
-  reg  [8:0] ga_i1_2_s3_reg = 9'd0;
   reg  neg_i1_s3_reg = 1'd0;
-  reg  [7:0] ga_i2_0_s3_reg = 8'd0;
-  reg  [7:0] ga_i2_1_s3_reg = 8'd0;
   reg  neg_i2_s3_reg = 1'd0;
   reg  [6:0] dp_i3_s3_reg = 7'd0;
   reg  neg_i3_s3_reg = 1'd0;
-  reg  [9:0] ga_q0_0_s3_reg = 10'd0;
-  reg  [9:0] ga_q0_1_s3_reg = 10'd0;
-  reg  [9:0] ga_q0_2_s3_reg = 10'd0;
-  reg  [9:0] ga_q0_3_s3_reg = 10'd0;
   reg  neg_q0_s3_reg = 1'd0;
-  reg  [8:0] ga_q1_0_s3_reg = 9'd0;
-  reg  [8:0] ga_q1_1_s3_reg = 9'd0;
-  reg  [8:0] ga_q1_2_s3_reg = 9'd0;
   reg  neg_q1_s3_reg = 1'd0;
-  reg  [7:0] ga_q2_0_s3_reg = 8'd0;
-  reg  [7:0] ga_q2_1_s3_reg = 8'd0;
   reg  neg_q2_s3_reg = 1'd0;
   reg  [6:0] dp_q3_s3_reg = 7'd0;
   reg  neg_q3_s3_reg = 1'd0;
   reg  [12:0] gs_i0_0_s3_reg = 13'd0;
+  reg  [9:0] ga_i0_0_s3_reg = 10'd0;
   reg  [12:0] gs_i0_1_s3_reg = 13'd0;
+  reg  [9:0] ga_i0_1_s3_reg = 10'd0;
   reg  [12:0] gs_i0_2_s3_reg = 13'd0;
+  reg  [9:0] ga_i0_2_s3_reg = 10'd0;
   reg  [12:0] gs_i0_3_s3_reg = 13'd0;
+  reg  [9:0] ga_i0_3_s3_reg = 10'd0;
   reg  [12:0] gs_i1_0_s3_reg = 13'd0;
+  reg  [8:0] ga_i1_0_s3_reg = 9'd0;
   reg  [12:0] gs_i1_1_s3_reg = 13'd0;
+  reg  [8:0] ga_i1_1_s3_reg = 9'd0;
   reg  [12:0] gs_i1_2_s3_reg = 13'd0;
+  reg  [8:0] ga_i1_2_s3_reg = 9'd0;
   reg  [12:0] gs_i2_0_s3_reg = 13'd0;
+  reg  [7:0] ga_i2_0_s3_reg = 8'd0;
   reg  [12:0] gs_i2_1_s3_reg = 13'd0;
+  reg  [7:0] ga_i2_1_s3_reg = 8'd0;
   reg  [12:0] se_i3_s3_reg = 13'd0;
   reg  [12:0] gs_q0_0_s3_reg = 13'd0;
+  reg  [9:0] ga_q0_0_s3_reg = 10'd0;
   reg  [12:0] gs_q0_1_s3_reg = 13'd0;
+  reg  [9:0] ga_q0_1_s3_reg = 10'd0;
   reg  [12:0] gs_q0_2_s3_reg = 13'd0;
+  reg  [9:0] ga_q0_2_s3_reg = 10'd0;
   reg  [12:0] gs_q0_3_s3_reg = 13'd0;
+  reg  [9:0] ga_q0_3_s3_reg = 10'd0;
   reg  [12:0] gs_q1_0_s3_reg = 13'd0;
+  reg  [8:0] ga_q1_0_s3_reg = 9'd0;
   reg  [12:0] gs_q1_1_s3_reg = 13'd0;
+  reg  [8:0] ga_q1_1_s3_reg = 9'd0;
   reg  [12:0] gs_q1_2_s3_reg = 13'd0;
+  reg  [8:0] ga_q1_2_s3_reg = 9'd0;
   reg  [12:0] gs_q2_0_s3_reg = 13'd0;
+  reg  [7:0] ga_q2_0_s3_reg = 8'd0;
   reg  [12:0] gs_q2_1_s3_reg = 13'd0;
+  reg  [7:0] ga_q2_1_s3_reg = 8'd0;
   reg  [12:0] se_q3_s3_reg = 13'd0;
   always @(posedge aclk) begin
     if (ce_s3) begin
       tlast_s3_reg <= tlast_s2_reg;
-      ga_i0_0_s3_reg <= ga_i0_0_s2_reg;
-      ga_i0_1_s3_reg <= ga_i0_1_s2_reg;
-      ga_i0_2_s3_reg <= ga_i0_2_s2_reg;
-      ga_i0_3_s3_reg <= ga_i0_3_s2_reg;
       neg_i0_s3_reg <= neg_i0_s2_reg;
-      ga_i1_0_s3_reg <= ga_i1_0_s2_reg;
-      ga_i1_1_s3_reg <= ga_i1_1_s2_reg;
-      ga_i1_2_s3_reg <= ga_i1_2_s2_reg;
       neg_i1_s3_reg <= neg_i1_s2_reg;
-      ga_i2_0_s3_reg <= ga_i2_0_s2_reg;
-      ga_i2_1_s3_reg <= ga_i2_1_s2_reg;
       neg_i2_s3_reg <= neg_i2_s2_reg;
       dp_i3_s3_reg <= dp_i3_s2_reg;
       neg_i3_s3_reg <= neg_i3_s2_reg;
-      ga_q0_0_s3_reg <= ga_q0_0_s2_reg;
-      ga_q0_1_s3_reg <= ga_q0_1_s2_reg;
-      ga_q0_2_s3_reg <= ga_q0_2_s2_reg;
-      ga_q0_3_s3_reg <= ga_q0_3_s2_reg;
       neg_q0_s3_reg <= neg_q0_s2_reg;
-      ga_q1_0_s3_reg <= ga_q1_0_s2_reg;
-      ga_q1_1_s3_reg <= ga_q1_1_s2_reg;
-      ga_q1_2_s3_reg <= ga_q1_2_s2_reg;
       neg_q1_s3_reg <= neg_q1_s2_reg;
-      ga_q2_0_s3_reg <= ga_q2_0_s2_reg;
-      ga_q2_1_s3_reg <= ga_q2_1_s2_reg;
       neg_q2_s3_reg <= neg_q2_s2_reg;
       dp_q3_s3_reg <= dp_q3_s2_reg;
       neg_q3_s3_reg <= neg_q3_s2_reg;
       gs_i0_0_s3_reg <= gs_i0_0_3_next;
+      ga_i0_0_s3_reg <= ga_i0_0_3_next;
       gs_i0_1_s3_reg <= gs_i0_1_3_next;
+      ga_i0_1_s3_reg <= ga_i0_1_3_next;
       gs_i0_2_s3_reg <= gs_i0_2_3_next;
+      ga_i0_2_s3_reg <= ga_i0_2_3_next;
       gs_i0_3_s3_reg <= gs_i0_3_3_next;
+      ga_i0_3_s3_reg <= ga_i0_3_3_next;
       gs_i1_0_s3_reg <= gs_i1_0_3_next;
+      ga_i1_0_s3_reg <= ga_i1_0_3_next;
       gs_i1_1_s3_reg <= gs_i1_1_3_next;
+      ga_i1_1_s3_reg <= ga_i1_1_3_next;
       gs_i1_2_s3_reg <= gs_i1_2_3_next;
+      ga_i1_2_s3_reg <= ga_i1_2_3_next;
       gs_i2_0_s3_reg <= gs_i2_0_3_next;
+      ga_i2_0_s3_reg <= ga_i2_0_3_next;
       gs_i2_1_s3_reg <= gs_i2_1_3_next;
+      ga_i2_1_s3_reg <= ga_i2_1_3_next;
       se_i3_s3_reg <= se_i3_3_next;
       gs_q0_0_s3_reg <= gs_q0_0_3_next;
+      ga_q0_0_s3_reg <= ga_q0_0_3_next;
       gs_q0_1_s3_reg <= gs_q0_1_3_next;
+      ga_q0_1_s3_reg <= ga_q0_1_3_next;
       gs_q0_2_s3_reg <= gs_q0_2_3_next;
+      ga_q0_2_s3_reg <= ga_q0_2_3_next;
       gs_q0_3_s3_reg <= gs_q0_3_3_next;
+      ga_q0_3_s3_reg <= ga_q0_3_3_next;
       gs_q1_0_s3_reg <= gs_q1_0_3_next;
+      ga_q1_0_s3_reg <= ga_q1_0_3_next;
       gs_q1_1_s3_reg <= gs_q1_1_3_next;
+      ga_q1_1_s3_reg <= ga_q1_1_3_next;
       gs_q1_2_s3_reg <= gs_q1_2_3_next;
+      ga_q1_2_s3_reg <= ga_q1_2_3_next;
       gs_q2_0_s3_reg <= gs_q2_0_3_next;
+      ga_q2_0_s3_reg <= ga_q2_0_3_next;
       gs_q2_1_s3_reg <= gs_q2_1_3_next;
+      ga_q2_1_s3_reg <= ga_q2_1_3_next;
       se_q3_s3_reg <= se_q3_3_next;
     end
   end
@@ -1964,88 +1670,72 @@ module lvt_bh256_demapper (
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i3 = {2'd0, mag_i3_s6_reg} + 16'd32642;
-  wire ovf_i3 = oc_i3[15];
+  wire ovf_i3_7_next = oc_i3[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_i3 = ovf_i3 ? 5'd31 : v_i3[LLR_W-2:0];
-  wire [LLR_W-1:0] x_i3_7_next = {1'b0, s_i3} ^ {LLR_W{ neg_i3_s6_reg }};
+  wire [LLR_W-2:0] v_i3_7_next = v_i3[LLR_W-2:0];
   wire [14:0] rsum_q3 = {1'd0, mag_q3_s6_reg} + 15'd2;
   wire [12:0] v_q3 = rsum_q3[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q3 = {2'd0, mag_q3_s6_reg} + 16'd32642;
-  wire ovf_q3 = oc_q3[15];
+  wire ovf_q3_7_next = oc_q3[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_q3 = ovf_q3 ? 5'd31 : v_q3[LLR_W-2:0];
-  wire [LLR_W-1:0] x_q3_7_next = {1'b0, s_q3} ^ {LLR_W{ neg_q3_s6_reg }};
+  wire [LLR_W-2:0] v_q3_7_next = v_q3[LLR_W-2:0];
   wire [14:0] rsum_i2 = {1'd0, mag_i2_s6_reg} + 15'd2;
   wire [12:0] v_i2 = rsum_i2[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i2 = {2'd0, mag_i2_s6_reg} + 16'd32642;
-  wire ovf_i2 = oc_i2[15];
+  wire ovf_i2_7_next = oc_i2[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_i2 = ovf_i2 ? 5'd31 : v_i2[LLR_W-2:0];
-  wire [LLR_W-1:0] x_i2_7_next = {1'b0, s_i2} ^ {LLR_W{ neg_i2_s6_reg }};
+  wire [LLR_W-2:0] v_i2_7_next = v_i2[LLR_W-2:0];
   wire [14:0] rsum_q2 = {1'd0, mag_q2_s6_reg} + 15'd2;
   wire [12:0] v_q2 = rsum_q2[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q2 = {2'd0, mag_q2_s6_reg} + 16'd32642;
-  wire ovf_q2 = oc_q2[15];
+  wire ovf_q2_7_next = oc_q2[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_q2 = ovf_q2 ? 5'd31 : v_q2[LLR_W-2:0];
-  wire [LLR_W-1:0] x_q2_7_next = {1'b0, s_q2} ^ {LLR_W{ neg_q2_s6_reg }};
+  wire [LLR_W-2:0] v_q2_7_next = v_q2[LLR_W-2:0];
   wire [14:0] rsum_i0 = {1'd0, mag_i0_s6_reg} + 15'd2;
   wire [12:0] v_i0 = rsum_i0[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i0 = {2'd0, mag_i0_s6_reg} + 16'd32642;
-  wire ovf_i0 = oc_i0[15];
+  wire ovf_i0_7_next = oc_i0[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_i0 = ovf_i0 ? 5'd31 : v_i0[LLR_W-2:0];
-  wire [LLR_W-1:0] x_i0_7_next = {1'b0, s_i0} ^ {LLR_W{ neg_i0_s6_reg }};
+  wire [LLR_W-2:0] v_i0_7_next = v_i0[LLR_W-2:0];
   wire [14:0] rsum_i1 = {1'd0, mag_i1_s6_reg} + 15'd2;
   wire [12:0] v_i1 = rsum_i1[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_i1 = {2'd0, mag_i1_s6_reg} + 16'd32642;
-  wire ovf_i1 = oc_i1[15];
+  wire ovf_i1_7_next = oc_i1[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_i1 = ovf_i1 ? 5'd31 : v_i1[LLR_W-2:0];
-  wire [LLR_W-1:0] x_i1_7_next = {1'b0, s_i1} ^ {LLR_W{ neg_i1_s6_reg }};
+  wire [LLR_W-2:0] v_i1_7_next = v_i1[LLR_W-2:0];
   wire [14:0] rsum_q0 = {1'd0, mag_q0_s6_reg} + 15'd2;
   wire [12:0] v_q0 = rsum_q0[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q0 = {2'd0, mag_q0_s6_reg} + 16'd32642;
-  wire ovf_q0 = oc_q0[15];
+  wire ovf_q0_7_next = oc_q0[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_q0 = ovf_q0 ? 5'd31 : v_q0[LLR_W-2:0];
-  wire [LLR_W-1:0] x_q0_7_next = {1'b0, s_q0} ^ {LLR_W{ neg_q0_s6_reg }};
+  wire [LLR_W-2:0] v_q0_7_next = v_q0[LLR_W-2:0];
   wire [14:0] rsum_q1 = {1'd0, mag_q1_s6_reg} + 15'd2;
   wire [12:0] v_q1 = rsum_q1[14:2];
 
 
   // saturation: p >= 2^7 - (rounding constant), the carry out of a constant add
   wire [15:0] oc_q1 = {2'd0, mag_q1_s6_reg} + 16'd32642;
-  wire ovf_q1 = oc_q1[15];
+  wire ovf_q1_7_next = oc_q1[15];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_q1 = ovf_q1 ? 5'd31 : v_q1[LLR_W-2:0];
-  wire [LLR_W-1:0] x_q1_7_next = {1'b0, s_q1} ^ {LLR_W{ neg_q1_s6_reg }};
+  wire [LLR_W-2:0] v_q1_7_next = v_q1[LLR_W-2:0];
 
   // register stage 7 (after step "round")
   reg  tlast_s7_reg = 1'd0;
@@ -2057,14 +1747,22 @@ module lvt_bh256_demapper (
   reg  neg_q1_s7_reg = 1'd0;
   reg  neg_q2_s7_reg = 1'd0;
   reg  neg_q3_s7_reg = 1'd0;
-  reg  [5:0] x_i3_s7_reg = 6'd0;
-  reg  [5:0] x_q3_s7_reg = 6'd0;
-  reg  [5:0] x_i2_s7_reg = 6'd0;
-  reg  [5:0] x_q2_s7_reg = 6'd0;
-  reg  [5:0] x_i0_s7_reg = 6'd0;
-  reg  [5:0] x_i1_s7_reg = 6'd0;
-  reg  [5:0] x_q0_s7_reg = 6'd0;
-  reg  [5:0] x_q1_s7_reg = 6'd0;
+  reg  [4:0] v_i3_s7_reg = 5'd0;
+  reg  ovf_i3_s7_reg = 1'd0;
+  reg  [4:0] v_q3_s7_reg = 5'd0;
+  reg  ovf_q3_s7_reg = 1'd0;
+  reg  [4:0] v_i2_s7_reg = 5'd0;
+  reg  ovf_i2_s7_reg = 1'd0;
+  reg  [4:0] v_q2_s7_reg = 5'd0;
+  reg  ovf_q2_s7_reg = 1'd0;
+  reg  [4:0] v_i0_s7_reg = 5'd0;
+  reg  ovf_i0_s7_reg = 1'd0;
+  reg  [4:0] v_i1_s7_reg = 5'd0;
+  reg  ovf_i1_s7_reg = 1'd0;
+  reg  [4:0] v_q0_s7_reg = 5'd0;
+  reg  ovf_q0_s7_reg = 1'd0;
+  reg  [4:0] v_q1_s7_reg = 5'd0;
+  reg  ovf_q1_s7_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s7) begin
       tlast_s7_reg <= tlast_s6_reg;
@@ -2076,28 +1774,53 @@ module lvt_bh256_demapper (
       neg_q1_s7_reg <= neg_q1_s6_reg;
       neg_q2_s7_reg <= neg_q2_s6_reg;
       neg_q3_s7_reg <= neg_q3_s6_reg;
-      x_i3_s7_reg <= x_i3_7_next;
-      x_q3_s7_reg <= x_q3_7_next;
-      x_i2_s7_reg <= x_i2_7_next;
-      x_q2_s7_reg <= x_q2_7_next;
-      x_i0_s7_reg <= x_i0_7_next;
-      x_i1_s7_reg <= x_i1_7_next;
-      x_q0_s7_reg <= x_q0_7_next;
-      x_q1_s7_reg <= x_q1_7_next;
+      v_i3_s7_reg <= v_i3_7_next;
+      ovf_i3_s7_reg <= ovf_i3_7_next;
+      v_q3_s7_reg <= v_q3_7_next;
+      ovf_q3_s7_reg <= ovf_q3_7_next;
+      v_i2_s7_reg <= v_i2_7_next;
+      ovf_i2_s7_reg <= ovf_i2_7_next;
+      v_q2_s7_reg <= v_q2_7_next;
+      ovf_q2_s7_reg <= ovf_q2_7_next;
+      v_i0_s7_reg <= v_i0_7_next;
+      ovf_i0_s7_reg <= ovf_i0_7_next;
+      v_i1_s7_reg <= v_i1_7_next;
+      ovf_i1_s7_reg <= ovf_i1_7_next;
+      v_q0_s7_reg <= v_q0_7_next;
+      ovf_q0_s7_reg <= ovf_q0_7_next;
+      v_q1_s7_reg <= v_q1_7_next;
+      ovf_q1_s7_reg <= ovf_q1_7_next;
     end
   end
 
 
   // ---------------------------------------------------------------- step 9: sign
-  // the sign of the decided level's label bit: -s = ~s + 1, one adder
-  wire [LLR_W-1:0] llr_i3_8_next = x_i3_s7_reg + { 5'd0, neg_i3_s7_reg };
-  wire [LLR_W-1:0] llr_q3_8_next = x_q3_s7_reg + { 5'd0, neg_q3_s7_reg };
-  wire [LLR_W-1:0] llr_i2_8_next = x_i2_s7_reg + { 5'd0, neg_i2_s7_reg };
-  wire [LLR_W-1:0] llr_q2_8_next = x_q2_s7_reg + { 5'd0, neg_q2_s7_reg };
-  wire [LLR_W-1:0] llr_i0_8_next = x_i0_s7_reg + { 5'd0, neg_i0_s7_reg };
-  wire [LLR_W-1:0] llr_i1_8_next = x_i1_s7_reg + { 5'd0, neg_i1_s7_reg };
-  wire [LLR_W-1:0] llr_q0_8_next = x_q0_s7_reg + { 5'd0, neg_q0_s7_reg };
-  wire [LLR_W-1:0] llr_q1_8_next = x_q1_s7_reg + { 5'd0, neg_q1_s7_reg };
+  // symmetric saturation to +-31 and the sign of the decided level's label bit:
+  // x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [LLR_W-2:0] s_i3 = ovf_i3_s7_reg ? 5'd31 : v_i3_s7_reg;
+  wire [LLR_W-1:0] x_i3 = {1'b0, s_i3} ^ {LLR_W{ neg_i3_s7_reg }};
+  wire [LLR_W-1:0] llr_i3_8_next = x_i3 + { 5'd0, neg_i3_s7_reg };
+  wire [LLR_W-2:0] s_q3 = ovf_q3_s7_reg ? 5'd31 : v_q3_s7_reg;
+  wire [LLR_W-1:0] x_q3 = {1'b0, s_q3} ^ {LLR_W{ neg_q3_s7_reg }};
+  wire [LLR_W-1:0] llr_q3_8_next = x_q3 + { 5'd0, neg_q3_s7_reg };
+  wire [LLR_W-2:0] s_i2 = ovf_i2_s7_reg ? 5'd31 : v_i2_s7_reg;
+  wire [LLR_W-1:0] x_i2 = {1'b0, s_i2} ^ {LLR_W{ neg_i2_s7_reg }};
+  wire [LLR_W-1:0] llr_i2_8_next = x_i2 + { 5'd0, neg_i2_s7_reg };
+  wire [LLR_W-2:0] s_q2 = ovf_q2_s7_reg ? 5'd31 : v_q2_s7_reg;
+  wire [LLR_W-1:0] x_q2 = {1'b0, s_q2} ^ {LLR_W{ neg_q2_s7_reg }};
+  wire [LLR_W-1:0] llr_q2_8_next = x_q2 + { 5'd0, neg_q2_s7_reg };
+  wire [LLR_W-2:0] s_i0 = ovf_i0_s7_reg ? 5'd31 : v_i0_s7_reg;
+  wire [LLR_W-1:0] x_i0 = {1'b0, s_i0} ^ {LLR_W{ neg_i0_s7_reg }};
+  wire [LLR_W-1:0] llr_i0_8_next = x_i0 + { 5'd0, neg_i0_s7_reg };
+  wire [LLR_W-2:0] s_i1 = ovf_i1_s7_reg ? 5'd31 : v_i1_s7_reg;
+  wire [LLR_W-1:0] x_i1 = {1'b0, s_i1} ^ {LLR_W{ neg_i1_s7_reg }};
+  wire [LLR_W-1:0] llr_i1_8_next = x_i1 + { 5'd0, neg_i1_s7_reg };
+  wire [LLR_W-2:0] s_q0 = ovf_q0_s7_reg ? 5'd31 : v_q0_s7_reg;
+  wire [LLR_W-1:0] x_q0 = {1'b0, s_q0} ^ {LLR_W{ neg_q0_s7_reg }};
+  wire [LLR_W-1:0] llr_q0_8_next = x_q0 + { 5'd0, neg_q0_s7_reg };
+  wire [LLR_W-2:0] s_q1 = ovf_q1_s7_reg ? 5'd31 : v_q1_s7_reg;
+  wire [LLR_W-1:0] x_q1 = {1'b0, s_q1} ^ {LLR_W{ neg_q1_s7_reg }};
+  wire [LLR_W-1:0] llr_q1_8_next = x_q1 + { 5'd0, neg_q1_s7_reg };
 
   // register stage 8 (after step "sign")
   reg  tlast_s8_reg = 1'd0;

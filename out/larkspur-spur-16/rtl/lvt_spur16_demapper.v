@@ -284,44 +284,36 @@ module lvt_spur16_demapper (
 
   // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
   wire [21:0] oc_0 = {2'd0, mag_0_s1_reg} + 22'd2081024;
-  wire ovf_0 = oc_0[21];
+  wire ovf_0_2_next = oc_0[21];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_0 = ovf_0 ? 5'd31 : v_0[LLR_W-2:0];
-  wire [LLR_W-1:0] x_0_2_next = {1'b0, s_0} ^ {LLR_W{ neg_0_s1_reg }};
+  wire [LLR_W-2:0] v_0_2_next = v_0[LLR_W-2:0];
   wire [20:0] rsum_1 = {1'd0, mag_1_s1_reg} + 21'd256;
   wire [11:0] v_1 = rsum_1[20:9];
 
 
   // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
   wire [21:0] oc_1 = {2'd0, mag_1_s1_reg} + 22'd2081024;
-  wire ovf_1 = oc_1[21];
+  wire ovf_1_2_next = oc_1[21];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_1 = ovf_1 ? 5'd31 : v_1[LLR_W-2:0];
-  wire [LLR_W-1:0] x_1_2_next = {1'b0, s_1} ^ {LLR_W{ neg_1_s1_reg }};
+  wire [LLR_W-2:0] v_1_2_next = v_1[LLR_W-2:0];
   wire [20:0] rsum_2 = {1'd0, mag_2_s1_reg} + 21'd256;
   wire [11:0] v_2 = rsum_2[20:9];
 
 
   // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
   wire [21:0] oc_2 = {2'd0, mag_2_s1_reg} + 22'd2081024;
-  wire ovf_2 = oc_2[21];
+  wire ovf_2_2_next = oc_2[21];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_2 = ovf_2 ? 5'd31 : v_2[LLR_W-2:0];
-  wire [LLR_W-1:0] x_2_2_next = {1'b0, s_2} ^ {LLR_W{ neg_2_s1_reg }};
+  wire [LLR_W-2:0] v_2_2_next = v_2[LLR_W-2:0];
   wire [20:0] rsum_3 = {1'd0, mag_3_s1_reg} + 21'd256;
   wire [11:0] v_3 = rsum_3[20:9];
 
 
   // saturation: p >= 2^14 - (rounding constant), the carry out of a constant add
   wire [21:0] oc_3 = {2'd0, mag_3_s1_reg} + 22'd2081024;
-  wire ovf_3 = oc_3[21];
+  wire ovf_3_2_next = oc_3[21];
 
-  // symmetric saturation to +-31; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_3 = ovf_3 ? 5'd31 : v_3[LLR_W-2:0];
-  wire [LLR_W-1:0] x_3_2_next = {1'b0, s_3} ^ {LLR_W{ neg_3_s1_reg }};
+  wire [LLR_W-2:0] v_3_2_next = v_3[LLR_W-2:0];
 
   // register stage 2 (after step "round")
   reg  tlast_s2_reg = 1'd0;
@@ -329,10 +321,14 @@ module lvt_spur16_demapper (
   reg  neg_1_s2_reg = 1'd0;
   reg  neg_2_s2_reg = 1'd0;
   reg  neg_3_s2_reg = 1'd0;
-  reg  [5:0] x_0_s2_reg = 6'd0;
-  reg  [5:0] x_1_s2_reg = 6'd0;
-  reg  [5:0] x_2_s2_reg = 6'd0;
-  reg  [5:0] x_3_s2_reg = 6'd0;
+  reg  [4:0] v_0_s2_reg = 5'd0;
+  reg  ovf_0_s2_reg = 1'd0;
+  reg  [4:0] v_1_s2_reg = 5'd0;
+  reg  ovf_1_s2_reg = 1'd0;
+  reg  [4:0] v_2_s2_reg = 5'd0;
+  reg  ovf_2_s2_reg = 1'd0;
+  reg  [4:0] v_3_s2_reg = 5'd0;
+  reg  ovf_3_s2_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
       tlast_s2_reg <= tlast_s1_reg;
@@ -340,20 +336,33 @@ module lvt_spur16_demapper (
       neg_1_s2_reg <= neg_1_s1_reg;
       neg_2_s2_reg <= neg_2_s1_reg;
       neg_3_s2_reg <= neg_3_s1_reg;
-      x_0_s2_reg <= x_0_2_next;
-      x_1_s2_reg <= x_1_2_next;
-      x_2_s2_reg <= x_2_2_next;
-      x_3_s2_reg <= x_3_2_next;
+      v_0_s2_reg <= v_0_2_next;
+      ovf_0_s2_reg <= ovf_0_2_next;
+      v_1_s2_reg <= v_1_2_next;
+      ovf_1_s2_reg <= ovf_1_2_next;
+      v_2_s2_reg <= v_2_2_next;
+      ovf_2_s2_reg <= ovf_2_2_next;
+      v_3_s2_reg <= v_3_2_next;
+      ovf_3_s2_reg <= ovf_3_2_next;
     end
   end
 
 
   // ---------------------------------------------------------------- step 4: sign
-  // the sign of the decided level's label bit: -s = ~s + 1, one adder
-  wire [LLR_W-1:0] llr_0_3_next = x_0_s2_reg + { 5'd0, neg_0_s2_reg };
-  wire [LLR_W-1:0] llr_1_3_next = x_1_s2_reg + { 5'd0, neg_1_s2_reg };
-  wire [LLR_W-1:0] llr_2_3_next = x_2_s2_reg + { 5'd0, neg_2_s2_reg };
-  wire [LLR_W-1:0] llr_3_3_next = x_3_s2_reg + { 5'd0, neg_3_s2_reg };
+  // symmetric saturation to +-31 and the sign of the decided level's label bit:
+  // x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [LLR_W-2:0] s_0 = ovf_0_s2_reg ? 5'd31 : v_0_s2_reg;
+  wire [LLR_W-1:0] x_0 = {1'b0, s_0} ^ {LLR_W{ neg_0_s2_reg }};
+  wire [LLR_W-1:0] llr_0_3_next = x_0 + { 5'd0, neg_0_s2_reg };
+  wire [LLR_W-2:0] s_1 = ovf_1_s2_reg ? 5'd31 : v_1_s2_reg;
+  wire [LLR_W-1:0] x_1 = {1'b0, s_1} ^ {LLR_W{ neg_1_s2_reg }};
+  wire [LLR_W-1:0] llr_1_3_next = x_1 + { 5'd0, neg_1_s2_reg };
+  wire [LLR_W-2:0] s_2 = ovf_2_s2_reg ? 5'd31 : v_2_s2_reg;
+  wire [LLR_W-1:0] x_2 = {1'b0, s_2} ^ {LLR_W{ neg_2_s2_reg }};
+  wire [LLR_W-1:0] llr_2_3_next = x_2 + { 5'd0, neg_2_s2_reg };
+  wire [LLR_W-2:0] s_3 = ovf_3_s2_reg ? 5'd31 : v_3_s2_reg;
+  wire [LLR_W-1:0] x_3 = {1'b0, s_3} ^ {LLR_W{ neg_3_s2_reg }};
+  wire [LLR_W-1:0] llr_3_3_next = x_3 + { 5'd0, neg_3_s2_reg };
 
   // register stage 3 (after step "sign")
   reg  tlast_s3_reg = 1'd0;

@@ -367,12 +367,10 @@ module lvt_tlm_demapper (
   // saturation: p >= 2^11 - (rounding constant), the carry out of a constant add
   wire [14:0] oc_i0 = {2'd0, p_i0_s5_reg} + 15'd14399;
   wire [14:0] od_i0 = {2'd0, p_i0_s5_reg} + 15'd14400;
-  wire ovf_i0 = p_i0_s5_reg[7] ? od_i0[14] : oc_i0[14];
+  wire ovf_i0_6_next = p_i0_s5_reg[7] ? od_i0[14] : oc_i0[14];
 
 
-  // symmetric saturation to +-15; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_i0 = ovf_i0 ? 4'd15 : v_i0[LLR_W-2:0];
-  wire [LLR_W-1:0] x_i0_6_next = {1'b0, s_i0} ^ {LLR_W{ neg_i0_s5_reg }};
+  wire [LLR_W-2:0] v_i0_6_next = v_i0[LLR_W-2:0];
   wire [13:0] rhalf_q0 = p_q0_s5_reg[7] ? 14'd64 : 14'd63;
   wire [13:0] rsum_q0 = {1'd0, p_q0_s5_reg} + rhalf_q0;
   wire [6:0] v_q0 = rsum_q0[13:7];
@@ -381,34 +379,41 @@ module lvt_tlm_demapper (
   // saturation: p >= 2^11 - (rounding constant), the carry out of a constant add
   wire [14:0] oc_q0 = {2'd0, p_q0_s5_reg} + 15'd14399;
   wire [14:0] od_q0 = {2'd0, p_q0_s5_reg} + 15'd14400;
-  wire ovf_q0 = p_q0_s5_reg[7] ? od_q0[14] : oc_q0[14];
+  wire ovf_q0_6_next = p_q0_s5_reg[7] ? od_q0[14] : oc_q0[14];
 
 
-  // symmetric saturation to +-15; x = {0, s} ^ neg, so that the LLR is x + neg
-  wire [LLR_W-2:0] s_q0 = ovf_q0 ? 4'd15 : v_q0[LLR_W-2:0];
-  wire [LLR_W-1:0] x_q0_6_next = {1'b0, s_q0} ^ {LLR_W{ neg_q0_s5_reg }};
+  wire [LLR_W-2:0] v_q0_6_next = v_q0[LLR_W-2:0];
 
   // register stage 6 (after step "round")
   reg  tlast_s6_reg = 1'd0;
   reg  neg_i0_s6_reg = 1'd0;
   reg  neg_q0_s6_reg = 1'd0;
-  reg  [4:0] x_i0_s6_reg = 5'd0;
-  reg  [4:0] x_q0_s6_reg = 5'd0;
+  reg  [3:0] v_i0_s6_reg = 4'd0;
+  reg  ovf_i0_s6_reg = 1'd0;
+  reg  [3:0] v_q0_s6_reg = 4'd0;
+  reg  ovf_q0_s6_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s6) begin
       tlast_s6_reg <= tlast_s5_reg;
       neg_i0_s6_reg <= neg_i0_s5_reg;
       neg_q0_s6_reg <= neg_q0_s5_reg;
-      x_i0_s6_reg <= x_i0_6_next;
-      x_q0_s6_reg <= x_q0_6_next;
+      v_i0_s6_reg <= v_i0_6_next;
+      ovf_i0_s6_reg <= ovf_i0_6_next;
+      v_q0_s6_reg <= v_q0_6_next;
+      ovf_q0_s6_reg <= ovf_q0_6_next;
     end
   end
 
 
   // ---------------------------------------------------------------- step 8: sign
-  // the sign of the decided level's label bit: -s = ~s + 1, one adder
-  wire [LLR_W-1:0] llr_i0_7_next = x_i0_s6_reg + { 4'd0, neg_i0_s6_reg };
-  wire [LLR_W-1:0] llr_q0_7_next = x_q0_s6_reg + { 4'd0, neg_q0_s6_reg };
+  // symmetric saturation to +-15 and the sign of the decided level's label bit:
+  // x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [LLR_W-2:0] s_i0 = ovf_i0_s6_reg ? 4'd15 : v_i0_s6_reg;
+  wire [LLR_W-1:0] x_i0 = {1'b0, s_i0} ^ {LLR_W{ neg_i0_s6_reg }};
+  wire [LLR_W-1:0] llr_i0_7_next = x_i0 + { 4'd0, neg_i0_s6_reg };
+  wire [LLR_W-2:0] s_q0 = ovf_q0_s6_reg ? 4'd15 : v_q0_s6_reg;
+  wire [LLR_W-1:0] x_q0 = {1'b0, s_q0} ^ {LLR_W{ neg_q0_s6_reg }};
+  wire [LLR_W-1:0] llr_q0_7_next = x_q0 + { 4'd0, neg_q0_s6_reg };
 
   // register stage 7 (after step "sign")
   reg  tlast_s7_reg = 1'd0;
