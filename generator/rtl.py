@@ -7,11 +7,15 @@ templates only lay out structure.
 
 Pipeline: a module is a chain of logical steps (see `mapper_steps` / `demapper_steps`);
 `interface.*_stages = 0` puts one register after every step, N > 0 spreads N registers over
-the steps (extra ones at the output). Every register stage has a valid bit; stage s loads
-when it is empty or the stage after it loads (ce_s = !valid_s | ce_{s+1}, ce_last =
-m_axis_tready), so the stream runs at one symbol per clock with any backpressure pattern,
-without bubbles or loss; s_axis_tready = ce_0 is combinational from m_axis_tready, or, with
-`interface.skid`, a register of a two-entry skid buffer in front of stage 0.
+the steps (extra ones at the output). Every register stage has a valid bit. With
+`interface.flow_control = "shared"` (the default) every stage loads on one enable,
+ce = !valid_last | m_axis_tready: one gate from m_axis_tready to every clock enable, which is
+what lets a deep pipeline reach the speed of its slowest step. With "per-stage" stage s loads
+when it is empty or the stage after it loads (ce_s = !valid_s | ce_{s+1}), so empty stages
+fill while the output waits, at the price of a chain of one OR gate per stage. Either way the
+stream runs at one symbol per clock with any backpressure pattern and loses nothing;
+s_axis_tready = ce_0, or, with `interface.skid`, a register of a two-entry skid buffer in
+front of stage 0.
 """
 
 from __future__ import annotations
@@ -705,7 +709,9 @@ def manifest(design: Any) -> dict[str, Any]:
             "module": f"{p}_{role}", "file": path, "ports": _ports(design, role),
             "latency": c["pipe"]["latency"], "initiation_interval": 1,
             "pipeline": [{"step": st.name, "registers": st.regs} for st in c["steps"]],
+            "flow_control": design.spec.interface.flow_control,
             "tready": ("registered: a two-entry skid buffer at the input" if design.spec.interface.skid
+                       else "combinational from m_axis_tready through one gate" if design.spec.interface.flow_control == "shared"
                        else "combinational from m_axis_tready through one OR gate per stage"),
         }
         if role == "mapper":
@@ -738,6 +744,7 @@ def files(design: Any) -> dict[str, str]:
         unused: list[str] = []
         ports = _ports(design, role)
         c.update(module=f"{p}_{role}", spec=design.spec, ports=ports, vlit=vlit, skid=design.spec.interface.skid,
+                 shared_enable=design.spec.interface.flow_control == "shared",
                  s_width=next(pt["width"] for pt in ports if pt["name"] == "s_axis_tdata"),
                  sext=sext, zext=zext, unused=unused, keep=lambda expr: unused.append(expr) or "")
         body = env.get_template(f"{role}.v.j2").render(**c)

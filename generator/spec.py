@@ -23,6 +23,7 @@ ALGORITHMS = ("maxlog", "folded", "hard")
 SCALINGS = ("unit-power", "full-scale")
 MAPPER_IMPLEMENTATIONS = ("rom", "logic")
 ROM_STYLES = ("file", "inline")
+FLOW_CONTROLS = ("shared", "per-stage")
 #: widest input / output word the model handles exactly in int64 and tests exhaustively
 MAX_WIDTH = 20
 
@@ -74,6 +75,7 @@ class InterfaceSpec:
     target_mhz: float = _f(0.0, "target clock, MHz: the generator chooses both stage counts (0: off, use the *_stages)")
     tlast: bool = _f(True, "carry s_axis_tlast to m_axis_tlast with its symbol")
     tuser_width: int = _f(0, "width of a tuser field carried with each symbol (0: none)")
+    flow_control: str = _f("shared", "shared (one enable for every stage: fastest) or per-stage (empty stages fill while the output waits)")
     skid: bool = _f(False, "register s_axis_tready through a two-entry skid buffer at the input (no added latency)")
 
 
@@ -149,6 +151,7 @@ class DesignSpec:
         if not isinstance(i.tlast, bool):
             raise SpecError("interface.tlast", i.tlast, "true or false")
         _int("interface.tuser_width", i.tuser_width, 0, 64)
+        _choice("interface.flow_control", i.flow_control, FLOW_CONTROLS)
         if not isinstance(i.skid, bool):
             raise SpecError("interface.skid", i.skid, "true or false")
 

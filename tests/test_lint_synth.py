@@ -36,7 +36,8 @@ def _spec(order: int, labeling: str, alg: str, variant: int) -> DesignSpec:
                       mapper=mapper, demapper=dem,
                       interface=InterfaceSpec(tlast=variant != 1, tuser_width=(0, 2, 7)[variant],
                                               mapper_stages=variant, demapper_stages=(0, 1, 5)[variant],
-                                              skid=variant == 2))
+                                              skid=variant == 2,
+                                              flow_control=("shared", "per-stage", "per-stage")[variant]))
     return spec
 
 

@@ -139,8 +139,8 @@ def test_testbench_files() -> None:
 
 def test_skid_buffer_registers_tready() -> None:
     """interface.skid: s_axis_tready comes from a register, not from m_axis_tready (common practice)."""
-    plain = derive(_spec(16))
-    skid = derive(_spec(16, interface={"skid": True, "tuser_width": 2}))
+    plain = derive(_spec(16, interface={"flow_control": "per-stage"}))
+    skid = derive(_spec(16, interface={"skid": True, "tuser_width": 2, "flow_control": "per-stage"}))
     for role in ("mapper", "demapper"):
         assert "assign s_axis_tready = ce_s0;" in rtl.files(plain)[f"rtl/t_{role}.v"]
         text = rtl.files(skid)[f"rtl/t_{role}.v"]
@@ -148,3 +148,14 @@ def test_skid_buffer_registers_tready() -> None:
         assert rtl.manifest(skid)["modules"][role]["tready"].startswith("registered")
         # the skid buffer adds no latency
         assert rtl.manifest(skid)["modules"][role]["latency"] == rtl.manifest(plain)["modules"][role]["latency"]
+
+
+def test_shared_enable_is_one_gate_from_m_axis_tready() -> None:
+    """flow_control = shared: every stage's enable is the same signal (no chain through the stages)."""
+    stages = {"mapper_stages": 2, "demapper_stages": 3}
+    for role in ("mapper", "demapper"):
+        shared = rtl.files(derive(_spec(64, interface=stages)))[f"rtl/t_{role}.v"]
+        assert "wire ce_all = !valid_s" in shared and "|| m_axis_tready;" in shared
+        assert all(line.strip().endswith("= ce_all;") for line in shared.splitlines() if line.strip().startswith("wire ce_s"))
+        chained = rtl.files(derive(_spec(64, interface={"flow_control": "per-stage", **stages})))[f"rtl/t_{role}.v"]
+        assert "ce_all" not in chained and "|| ce_s1;" in chained

@@ -175,6 +175,8 @@ OPTIONS = {
                                 interface=InterfaceSpec(tlast=False, mapper_stages=4, demapper_stages=4)),
     "folded-notlast": dict(demapper=DemapperSpec(algorithm="folded"), interface=InterfaceSpec(tlast=False)),
     "skid-tuser-stages2": dict(interface=InterfaceSpec(skid=True, tuser_width=4, mapper_stages=2, demapper_stages=2)),
+    "per-stage-flow": dict(interface=InterfaceSpec(flow_control="per-stage")),
+    "per-stage-flow-skid": dict(interface=InterfaceSpec(flow_control="per-stage", skid=True, tuser_width=2)),
 }
 
 

@@ -26,8 +26,9 @@
 //   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
+//   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 2c0682d29f74b7cb
+// Content hash: 85470ed194bf3022
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -431,8 +432,9 @@ module lvt_tlm_demapper (
   assign m_axis_tdata = { llr_i0_s7_reg, llr_q0_s7_reg };
 
   // ---------------------------------------------------------------- stream control
-  // Stage s loads when it is empty or when the stage after it loads, so the pipeline
-  // holds one symbol per stage, runs at one symbol per clock and never drops one.
+  // One shared enable: every stage moves when the output register is empty or being read,
+  // so the pipeline runs at one symbol per clock and never drops one; the enable is one
+  // gate from m_axis_tready (empty stages are not squeezed out while the output waits).
   reg  valid_s0_reg = 1'b0;
   reg  valid_s1_reg = 1'b0;
   reg  valid_s2_reg = 1'b0;
@@ -441,14 +443,15 @@ module lvt_tlm_demapper (
   reg  valid_s5_reg = 1'b0;
   reg  valid_s6_reg = 1'b0;
   reg  valid_s7_reg = 1'b0;
-  wire ce_s0 = !valid_s0_reg || ce_s1;
-  wire ce_s1 = !valid_s1_reg || ce_s2;
-  wire ce_s2 = !valid_s2_reg || ce_s3;
-  wire ce_s3 = !valid_s3_reg || ce_s4;
-  wire ce_s4 = !valid_s4_reg || ce_s5;
-  wire ce_s5 = !valid_s5_reg || ce_s6;
-  wire ce_s6 = !valid_s6_reg || ce_s7;
-  wire ce_s7 = !valid_s7_reg || m_axis_tready;
+  wire ce_all = !valid_s7_reg || m_axis_tready;
+  wire ce_s0 = ce_all;
+  wire ce_s1 = ce_all;
+  wire ce_s2 = ce_all;
+  wire ce_s3 = ce_all;
+  wire ce_s4 = ce_all;
+  wire ce_s5 = ce_all;
+  wire ce_s6 = ce_all;
+  wire ce_s7 = ce_all;
 
   always @(posedge aclk) begin
     if (ce_s0) valid_s0_reg <= in_tvalid;

@@ -26,8 +26,9 @@
 //   interface.target_mhz = 0.0
 //   interface.tlast = true
 //   interface.tuser_width = 0
+//   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 2c0682d29f74b7cb
+// Content hash: 85470ed194bf3022
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -113,10 +114,12 @@ module lvt_tlm_mapper #(
   assign m_axis_tdata = { lvl_q_s0_reg, lvl_i_s0_reg };
 
   // ---------------------------------------------------------------- stream control
-  // Stage s loads when it is empty or when the stage after it loads, so the pipeline
-  // holds one symbol per stage, runs at one symbol per clock and never drops one.
+  // One shared enable: every stage moves when the output register is empty or being read,
+  // so the pipeline runs at one symbol per clock and never drops one; the enable is one
+  // gate from m_axis_tready (empty stages are not squeezed out while the output waits).
   reg  valid_s0_reg = 1'b0;
-  wire ce_s0 = !valid_s0_reg || m_axis_tready;
+  wire ce_all = !valid_s0_reg || m_axis_tready;
+  wire ce_s0 = ce_all;
 
   always @(posedge aclk) begin
     if (ce_s0) valid_s0_reg <= in_tvalid;
