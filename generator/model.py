@@ -138,9 +138,14 @@ def derive(spec: DesignSpec) -> Design:
         llr_lsb=4.0 * kappa * kappa * 2.0 ** -d.llr_fraction, scale_format=sfmt,
         scale_lsb=(2.0 ** -d.scale_fraction) if sfmt else 1.0, metric_fraction=metric_fraction,
         output_shift=shift, axes=tuple(axes), search_i=search_i, search_q=search_q, widths=widths)
-    _derive_widths(design)
+    # the per-axis steps over every input code: sized once, then kept as the fast path's tables
+    steps = None
     if design.per_axis:
-        _build_tables(design)
+        codes = np.arange(ifmt.min_code, ifmt.max_code + 1, dtype=np.int64)
+        steps = [_axis_steps(design, ad, codes) for ad in design.axes]
+    _derive_widths(design, steps)
+    if steps is not None:
+        _build_tables(design, steps)
     return design
 
 
@@ -176,8 +181,6 @@ def _mapper_tables(spec: DesignSpec, const: Constellation):
             const.axes is not None and any(len(set(codes(a.amplitudes).tolist())) != a.levels for a in const.axes)):
         raise SpecError(key, value, f"at least {_mapper_minimum(spec, const, peak)} "
                         f"{'fraction bits' if key == 'mapper.fraction' else 'bits'}: mapper levels collide at this resolution")
-    # the values really sent through the quantizer (saturation included, see fixed.quantize)
-    assert np.array_equal(ci, quantize(const.points.real * per_amp, QFormat(m.width, 0), m.rounding))
     levels = tuple(codes(a.amplitudes) for a in const.axes) if const.axes is not None else ()
     lsb = kappa / per_amp
     for arr in (ci, cq, *levels):
@@ -291,8 +294,10 @@ def _axis_steps(design: Design, ad: AxisDemap, y: np.ndarray) -> tuple[np.ndarra
     return mag, neg, hard.astype(np.int8)
 
 
-def _derive_widths(design: Design) -> None:
-    """Internal widths from the exact range of every intermediate (exhaustive over input codes)."""
+def _derive_widths(design: Design, steps: list | None) -> None:
+    """Internal widths from the exact range of every intermediate (exhaustive over input codes).
+
+    `steps` holds `_axis_steps` of each axis over every input code (product labelings)."""
     d = design.spec.demapper
     ifmt = design.input_format
     f = d.input_fraction
@@ -303,11 +308,10 @@ def _derive_widths(design: Design) -> None:
         mag_max = 0
         e_lo = e_hi = 0
         dn_max = 0
-        for ad in design.axes:
-            n_hat, e = decide(ad, y, f)
+        for ad, (mag, _, _) in zip(design.axes, steps):
+            _, e = decide(ad, y, f)
             e_lo, e_hi = min(e_lo, int(e.min())), max(e_hi, int(e.max()))
             dn_max = max(dn_max, int(np.abs(ad.competitor).max()))
-            mag, _, _ = _axis_steps(design, ad, y)
             mag_max = max(mag_max, int(mag.max()))
         w["residual"] = bits_for_range(e_lo, e_hi)
         w["competitor"] = bits_for_range(-dn_max, dn_max)
@@ -330,21 +334,18 @@ def _derive_widths(design: Design) -> None:
     w["llr"] = (d.llr_width, True)
 
 
-def _build_tables(design: Design) -> None:
-    """Evaluate the per-axis steps once over every input code (the fast path's tables)."""
-    ifmt = design.input_format
+def _build_tables(design: Design, steps: list) -> None:
+    """The fast path's tables: the per-axis steps over every input code, placed in label-bit columns."""
     k = design.bits
-    y = np.arange(ifmt.min_code, ifmt.max_code + 1, dtype=np.int64)
     tables, llr_tables, hard_tables = [], [], []
-    for ad in design.axes:
-        mag, neg, hard = _axis_steps(design, ad, y)
+    for ad, (mag, neg, hard) in zip(design.axes, steps):
         cols = list(ad.axis.label_bits)
         tables.append((mag, neg))
-        full = np.zeros((y.size, k), dtype=np.int32)
+        full = np.zeros((mag.shape[0], k), dtype=np.int32)
         if design.scale_format is None:
             full[:, cols] = output(design, mag, neg, None)
         llr_tables.append(full)
-        hb = np.zeros((y.size, k), dtype=np.int8)
+        hb = np.zeros((mag.shape[0], k), dtype=np.int8)
         hb[:, cols] = hard
         hard_tables.append(hb)
     object.__setattr__(design, "tables", tuple(tables))
