@@ -1,30 +1,29 @@
-"""The `qamsmith` command: generate designs, list what is supported, run the model on vector files.
+"""The `qamsmith` command: one static table of subcommands, each a parser and a handler over the flows.
 
 Bad input of any kind raises SpecError, printed as one line `qamsmith: error: ...` with exit
-status 2 (argparse usage errors exit 2 as well); nothing is written in that case.
+status 2 (argparse usage errors exit 2 as well); nothing is written in that case. A missing
+tool exits 2 with the command that installs it; a tool that fails exits 1.
 """
 
 from __future__ import annotations
 
 import argparse
-import importlib
 import os
 import sys
-from dataclasses import fields
-from importlib import resources
+from dataclasses import dataclass, fields
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any, Callable, Sequence
 
-from . import __version__
-from .constellation import LABELINGS, ORDERS
+from .artifacts import BLOCKS, content_hash, format_words, generated_files, output_header, packing, read_words
+from .artifacts import DesignDirectory, run_block, write_design, write_file
 from .errors import SpecError
-from .fixed import ROUNDING_MODES
-from .spec import ALGORITHMS, SECTIONS, DesignSpec, field_docs, parse_value
-
-#: Modules that add their own subcommand: each defines `register(subparsers) -> None`.
-COMMAND_MODULES: tuple[str, ...] = ("qamsmith.verify", "qamsmith.analysis", "qamsmith.report", "qamsmith.estimate")
-
-DEFAULT_EXAMPLE = "larkspur-backhaul-256"
+from .flows import analysis as an
+from .flows import cost, report, verify
+from .flows.tools import FLOWS, SEED, YOSYS_TIMEOUT_S, ToolFailed, ToolMissing, find_tools
+from .model import derive
+from .spec import (ALGORITHMS, DEFAULT_EXAMPLE, LABELINGS, ORDERS, ROUNDING_MODES, SECTIONS, DesignSpec,
+                   example_summary, examples, field_docs, load_spec, parse_value)
+from .version import __version__
 
 #: (flag, spec key, type) of the common fields; everything else goes through --set
 SPEC_FLAGS: tuple[tuple[str, str, type], ...] = (
@@ -38,37 +37,6 @@ SPEC_FLAGS: tuple[tuple[str, str, type], ...] = (
     ("--llr-fraction", "demapper.llr_fraction", int),
     ("--name", "name", str),
 )
-
-
-# --------------------------------------------------------------------------- examples
-
-
-def examples() -> dict[str, Any]:
-    """Built-in example specs shipped in the package: name -> resource (a TOML file)."""
-    folder = resources.files("qamsmith") / "examples"
-    return {p.name[:-5]: p for p in sorted(folder.iterdir(), key=lambda p: p.name) if p.name.endswith(".toml")}
-
-
-def example_summary(resource: Any) -> str:
-    """First comment line of an example, without the '#'."""
-    for line in resource.read_text(encoding="utf-8").splitlines():
-        if line.startswith("#") and line.strip("# "):
-            return line.strip("# ")
-    return ""
-
-
-def load_spec(source: str) -> DesignSpec:
-    """A spec from a TOML path, or a built-in example by name."""
-    path = Path(source)
-    if path.is_dir() and (path / "design.toml").is_file():
-        path = path / "design.toml"
-    if path.exists() or source.endswith(".toml") or "/" in source:
-        return DesignSpec.from_toml(path)
-    found = examples()
-    if source in found:
-        with resources.as_file(found[source]) as real:
-            return DesignSpec.from_toml(real)
-    raise SpecError("spec", source, f"a TOML file or a built-in example: {', '.join(found)}")
 
 
 # --------------------------------------------------------------------------- generate
@@ -108,8 +76,6 @@ def build_spec(args: argparse.Namespace) -> DesignSpec:
 
 
 def cmd_generate(args: argparse.Namespace) -> int:
-    from .emit import content_hash, generated_files, write_design
-
     spec = build_spec(args)
     target = write_design(spec, args.out, force=args.force)
     owned = generated_files(target)
@@ -120,6 +86,19 @@ def cmd_generate(args: argparse.Namespace) -> int:
           f"demapper {dm.algorithm} {dm.input_width}-bit in, {dm.llr_width}-bit LLR; "
           f"content hash {content_hash(spec)}")
     return 0
+
+
+def _add_generate(p: argparse.ArgumentParser) -> None:
+    p.add_argument("spec", nargs="?", metavar="SPEC",
+                   help="a spec TOML file (e.g. out/<name>/design.toml) or a built-in example name")
+    for flag, key, typ in SPEC_FLAGS:
+        p.add_argument(flag, type=typ, metavar=flag[2:].split("-")[-1].upper(), help=f"sets {key}")
+    p.add_argument("--table", metavar="CSV", help="a label,i,q CSV: sets constellation.labeling = table")
+    p.add_argument("--set", action="append", metavar="SECTION.KEY=VALUE",
+                   help="any spec key (TOML value syntax), repeatable")
+    p.add_argument("--out", default="out", metavar="DIR", help="output root (default: out)")
+    p.add_argument("--force", action="store_true",
+                   help="replace generated files even if edited, keeping files qamsmith did not write")
 
 
 # --------------------------------------------------------------------------- list
@@ -157,9 +136,6 @@ def cmd_list(args: argparse.Namespace) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from .emit import output_header, packing, parse_words, run_block, format_words
-    from .model import derive
-
     design = derive(load_spec(args.design))
     pack = packing(design)
     source = args.input
@@ -167,30 +143,207 @@ def cmd_run(args: argparse.Namespace) -> int:
         base = Path(args.design)
         base = base if base.is_dir() else base.parent
         source = str(base / "vectors" / f"{args.block}_in.hex")
-    try:
-        text = Path(source).read_text(encoding="utf-8")
-    except OSError as exc:
-        raise SpecError("--input", source, f"a readable vector file ({exc.strerror})") from None
-    words = parse_words(text, pack[f"{args.block}_input"]["width"], source)
-    if args.block == "mapper":
-        order = design.constellation.order
-        bad = next((w for w in words if w >= order), None)
-        if bad is not None:
-            raise SpecError("--input", f"{source}: label {bad:#x}", f"labels 0..{order - 1}")
+    words = read_words(source, pack[f"{args.block}_input"]["width"], key="--input")
     result = run_block(design, args.block, words)
     data = format_words(result, pack[f"{args.block}_output"]["width"], output_header(design, args.block, len(result)))
     if args.output is None:
         sys.stdout.buffer.write(data)
         sys.stdout.flush()
     else:
-        try:
-            Path(args.output).write_bytes(data)
-        except OSError as exc:
-            raise SpecError("--output", args.output, f"a writable file ({exc.strerror})") from None
+        write_file(args.output, data, key="--output")
     return 0
 
 
-# --------------------------------------------------------------------------- parser
+def _add_run(p: argparse.ArgumentParser) -> None:
+    p.add_argument("design", metavar="DESIGN", help="a generated design directory, a spec TOML or an example name")
+    p.add_argument("--block", required=True, choices=BLOCKS)
+    p.add_argument("--input", metavar="FILE", help="stimulus words (default: DESIGN/vectors/<block>_in.hex)")
+    p.add_argument("--output", metavar="FILE", help="expected words (default: standard output)")
+
+
+# --------------------------------------------------------------------------- verify
+
+
+def cmd_verify(args: argparse.Namespace) -> int:
+    res, problems = verify.verify(args.design_dir, vectors=args.vectors, stream=args.stream, seed=args.seed,
+                                  build_dir=args.build_dir, lint=args.lint)
+    for line in problems:
+        print(line)
+    for line in res.details[:8]:
+        print(f"  {line}")
+    print(res.summary(Path(args.design_dir).resolve().name))
+    return 0 if res.ok and not problems else 1
+
+
+def _add_verify(p: argparse.ArgumentParser) -> None:
+    p.add_argument("design_dir", metavar="DESIGN", help="a design directory written by `qamsmith generate` (out/<name>)")
+    p.add_argument("--vectors", type=int, default=verify.DEFAULT_VECTORS,
+                   help=f"random vectors per block on top of vectors/ (default {verify.DEFAULT_VECTORS})")
+    p.add_argument("--stream", type=int, default=verify.DEFAULT_STREAM,
+                   help=f"words through each Python stream bench (default {verify.DEFAULT_STREAM})")
+    p.add_argument("--seed", type=int, default=1, help="seed of the random stimulus, gaps and backpressure")
+    p.add_argument("--build-dir", default=None, help="keep the simulator build here (default: a temporary directory)")
+    p.add_argument("--lint", action="store_true", help="also run verilator --lint-only -Wall and yosys synth")
+
+
+# --------------------------------------------------------------------------- analyze and widths
+
+
+def _design_source(source: str, out_root: str) -> tuple[DesignSpec, Path]:
+    """The spec of DESIGN (a generated directory, a spec TOML or a built-in example) and its directory."""
+    spec = load_spec(source)
+    path = Path(source)
+    return spec, (path if path.is_dir() else Path(out_root) / spec.name)
+
+
+def _add_design_source(p: argparse.ArgumentParser, *, symbols: int) -> None:
+    """DESIGN, --out, --symbols, --seed and the operating point, shared by `analyze` and `widths`."""
+    p.add_argument("design", metavar="DESIGN", help="a generated design directory (out/<name>/), a spec TOML "
+                   "or a built-in example name")
+    p.add_argument("--out", default="out", metavar="DIR",
+                   help="output root when DESIGN is a spec or an example (default: out)")
+    p.add_argument("--symbols", type=int, default=symbols, metavar="N",
+                   help=f"Monte-Carlo symbols per Es/N0 point (default {symbols})")
+    p.add_argument("--seed", type=int, default=an.DEFAULT_SEED, metavar="S", help="random seed (default 1)")
+    op = p.add_mutually_exclusive_group()
+    op.add_argument("--operating-point", type=float, metavar="DB",
+                    help="Es/N0 (dB) where the loss is measured (default: where the float exact GMI reaches "
+                    "--gmi-target x log2 M)")
+    op.add_argument("--gmi-target", type=float, default=an.DEFAULT_GMI_FRACTION, metavar="FRACTION",
+                    help="operating point: float exact GMI at this fraction of log2 M (default 0.9)")
+
+
+def _fmt(x: Any, fmt: str = ".4f") -> str:
+    return "n/a" if x is None else format(x, fmt)
+
+
+def cmd_analyze(args: argparse.Namespace) -> int:
+    spec, base = _design_source(args.design, args.out)
+    k = derive(spec).bits
+    if args.ebn0 is not None:
+        points = [an.esn0_from_ebn0(p, k) for p in an.parse_snr(args.ebn0, key="--ebn0")]
+    elif args.snr is not None:
+        points = an.parse_snr(args.snr, key="--snr")
+    else:
+        points = None
+    target = base / "report"
+    doc, widths = report.analyze(spec, target, esn0_db=points, symbols=args.symbols, seed=args.seed,
+                                 operating_point_db=args.operating_point, gmi_fraction=args.gmi_target,
+                                 ber_floor=args.ber_floor, widths=args.widths, budget_db=args.budget,
+                                 widths_symbols=args.widths_symbols, cloud_esn0_db=args.cloud_snr)
+    ci = doc["loss_db_vs_exact_ci95"]
+    print(f"qamsmith: wrote {target}/ ({len(doc['points'])} Es/N0 points, {args.symbols} symbols each)")
+    print(f"  operating point Es/N0 {doc['operating_point_esn0_db']:.2f} dB: loss {_fmt(doc['loss_db_vs_exact'])} dB "
+          f"vs float exact {'[' + _fmt(ci[0]) + ', ' + _fmt(ci[1]) + ']' if ci else '(no interval)'}, "
+          f"{_fmt(doc['loss_db_vs_maxlog'])} dB vs float max-log; mapper EVM {doc['evm_db']:.1f} dB")
+    if widths:
+        rec = widths["recommended"]
+        print(f"  widths within {args.budget:g} dB: " + ", ".join(f"{k_}={v}" for k_, v in rec["settings"].items()))
+    return 0
+
+
+def _add_analyze(p: argparse.ArgumentParser) -> None:
+    _add_design_source(p, symbols=an.DEFAULT_SYMBOLS)
+    snr = p.add_mutually_exclusive_group()
+    snr.add_argument("--snr", metavar="LIST|RANGE",
+                     help="Es/N0 points in dB: '10,12,14' or start:step:stop '8:2:20' (default: 8 dB below to "
+                          "6 dB above the operating point in 1 dB steps)")
+    snr.add_argument("--ebn0", metavar="LIST|RANGE", help="the points as Eb/N0 in dB (same syntax)")
+    p.add_argument("--ber-floor", type=float, metavar="BER",
+                   help="the smallest BER the sweep must estimate (refuses too few symbols for it)")
+    p.add_argument("--cloud-snr", type=float, metavar="DB", help="Es/N0 of the received-cloud plot "
+                   "(default: the operating point)")
+    p.add_argument("--budget", type=float, default=an.DEFAULT_BUDGET_DB, metavar="DB",
+                   help="loss budget of the width table in dB (default 0.1)")
+    p.add_argument("--widths-symbols", type=int, default=an.DEFAULT_EXPLORE_SYMBOLS, metavar="N",
+                   help=f"symbols per width candidate (default {an.DEFAULT_EXPLORE_SYMBOLS})")
+    p.add_argument("--no-widths", dest="widths", action="store_false", help="skip the width table")
+
+
+def cmd_widths(args: argparse.Namespace) -> int:
+    spec, target = _design_source(args.design, args.out)
+    path = Path(args.json) if args.json else target / "report" / "widths.json"
+    result = an.widths_run(spec, path, budget_db=args.budget, symbols=args.symbols, seed=args.seed,
+                           operating_point_db=args.operating_point, gmi_fraction=args.gmi_target)
+    print(an.widths_table(result))
+    print(f"qamsmith: wrote {path}")
+    return 0
+
+
+def _add_widths(p: argparse.ArgumentParser) -> None:
+    _add_design_source(p, symbols=an.DEFAULT_EXPLORE_SYMBOLS)
+    p.add_argument("--budget", type=float, default=an.DEFAULT_BUDGET_DB, metavar="DB",
+                   help="implementation-loss budget in dB (default 0.1)")
+    p.add_argument("--json", metavar="FILE",
+                   help="where to write the table (default: <design dir>/report/widths.json)")
+
+
+# --------------------------------------------------------------------------- cost
+
+
+def cmd_cost(args: argparse.Namespace) -> int:
+    dd = DesignDirectory.open(args.design, key="DESIGN")
+    flows = [f.strip() for f in args.flows.split(",") if f.strip()]
+    say = (lambda msg: None) if args.quiet else (lambda msg: print(f"  {msg}", file=sys.stderr, flush=True))
+    tools = find_tools(need_pnr=not args.no_fmax)
+    result = cost.estimate(dd, flows=flows, fmax=not args.no_fmax, references=not args.no_reference,
+                           seed=args.seed, timeout=args.timeout, tools=tools, progress=say)
+    json_path, md_path = cost.write_report(dd, result)
+    print(cost.markdown(result), end="")
+    print(f"wrote {json_path} and {md_path}")
+    return 0
+
+
+def _add_cost(p: argparse.ArgumentParser) -> None:
+    p.add_argument("design", metavar="DESIGN", help="a generated design directory (out/<name>)")
+    p.add_argument("--flows", default=",".join(cost.DEFAULT_FLOWS), metavar="LIST",
+                   help=f"Yosys flows, comma-separated, from {', '.join(FLOWS)} (default: %(default)s)")
+    p.add_argument("--no-fmax", action="store_true", help="synthesis only, no nextpnr run")
+    p.add_argument("--no-reference", action="store_true", help="skip the brute-force and adder references")
+    p.add_argument("--seed", type=int, default=SEED, help="nextpnr placement seed (default: %(default)s)")
+    p.add_argument("--timeout", type=float, default=YOSYS_TIMEOUT_S, metavar="S",
+                   help="per tool run, seconds (default: %(default)s)")
+    p.add_argument("--quiet", action="store_true", help="print the summary only")
+
+
+# --------------------------------------------------------------------------- the table of commands
+
+
+@dataclass(frozen=True)
+class Command:
+    name: str
+    help: str
+    description: str
+    arguments: Callable[[argparse.ArgumentParser], None]
+    handler: Callable[[argparse.Namespace], int]
+
+
+COMMANDS: tuple[Command, ...] = (
+    Command("generate", "build a design into OUT/<name>/",
+            "Build a design (Verilog, ROM images, manifest, vectors, testbenches) into OUT/<name>/. "
+            f"With no spec and no spec flags: the built-in example {DEFAULT_EXAMPLE}.", _add_generate, cmd_generate),
+    Command("list", "orders, labelings, algorithms, spec keys and built-in examples",
+            "List what the generator supports and every spec key with its default.", lambda p: None, cmd_list),
+    Command("run", "run the bit-exact model on a vector file",
+            "Read stimulus words (hex, one a line, the packing of manifest.json) and write the model's expected "
+            "output words in the same format.", _add_run, cmd_run),
+    Command("verify", "simulate a generated design on Icarus and compare to the model",
+            "Stream vectors/ and fresh random words through the generated RTL (random gaps and backpressure) and "
+            "run the cocotb stream benches; every output word is compared with the bit-exact model.",
+            _add_verify, cmd_verify),
+    Command("analyze", "BER, GMI, EVM and implementation loss of a design; writes <design>/report/",
+            "Monte-Carlo of the bit-exact fixed-point chain against float max-log and exact log-MAP over AWGN: BER, "
+            "GMI, implementation loss at the operating point, mapper EVM, input quantization noise and a width "
+            "table; writes PNG plots, report.md and analysis.json to <design>/report/.", _add_analyze, cmd_analyze),
+    Command("widths", "explore mapper, demapper input and LLR widths against a loss budget",
+            "Sweep the mapper width, the demapper input width and fraction and the LLR width and fraction at the "
+            "operating point; recommend the smallest widths (and the LLR fraction that maximizes GMI) within the "
+            "loss budget. Prints a table and writes JSON.", _add_widths, cmd_widths),
+    Command("cost", "hardware cost: LUTs, flip-flops, block RAM, multipliers, Fmax, latency",
+            "Synthesize the design's modules with Yosys and place and route them with nextpnr-ice40; compare the "
+            "demapper with a brute-force reference and the Fmax with a bare registered adder; write "
+            "report/hardware.json and report/hardware.md.", _add_cost, cmd_cost),
+)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -198,36 +351,10 @@ def build_parser() -> argparse.ArgumentParser:
         prog="qamsmith", description="QAM mapper and soft-decision (LLR) demapper generator for FPGA modems.")
     parser.add_argument("--version", action="version", version=f"qamsmith {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-
-    gen = sub.add_parser("generate", help="build a design into OUT/<name>/",
-                         description="Build a design (Verilog, ROM images, manifest, vectors) into OUT/<name>/. "
-                                     f"With no spec and no spec flags: the built-in example {DEFAULT_EXAMPLE}.")
-    gen.add_argument("spec", nargs="?", metavar="SPEC",
-                     help="a spec TOML file (e.g. out/<name>/design.toml) or a built-in example name")
-    for flag, key, typ in SPEC_FLAGS:
-        gen.add_argument(flag, type=typ, metavar=flag[2:].split("-")[-1].upper(), help=f"sets {key}")
-    gen.add_argument("--table", metavar="CSV", help="a label,i,q CSV: sets constellation.labeling = table")
-    gen.add_argument("--set", action="append", metavar="SECTION.KEY=VALUE",
-                     help="any spec key (TOML value syntax), repeatable")
-    gen.add_argument("--out", default="out", metavar="DIR", help="output root (default: out)")
-    gen.add_argument("--force", action="store_true",
-                     help="replace generated files even if edited, keeping files qamsmith did not write")
-    gen.set_defaults(func=cmd_generate)
-
-    lst = sub.add_parser("list", help="orders, labelings, algorithms, spec keys and built-in examples")
-    lst.set_defaults(func=cmd_list)
-
-    run = sub.add_parser("run", help="run the bit-exact model on a vector file",
-                         description="Read stimulus words (hex, one a line, the packing of manifest.json) and "
-                                     "write the model's expected output words in the same format.")
-    run.add_argument("design", metavar="DESIGN", help="a generated design directory, a spec TOML or an example name")
-    run.add_argument("--block", required=True, choices=("mapper", "demapper"))
-    run.add_argument("--input", metavar="FILE", help="stimulus words (default: DESIGN/vectors/<block>_in.hex)")
-    run.add_argument("--output", metavar="FILE", help="expected words (default: standard output)")
-    run.set_defaults(func=cmd_run)
-
-    for name in COMMAND_MODULES:
-        importlib.import_module(name).register(sub)
+    for c in COMMANDS:
+        p = sub.add_parser(c.name, help=c.help, description=c.description)
+        c.arguments(p)
+        p.set_defaults(func=c.handler)
     return parser
 
 
@@ -240,9 +367,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     try:
         return int(args.func(args))
-    except SpecError as exc:
+    except (SpecError, ToolMissing) as exc:
         print(f"qamsmith: error: {exc}", file=sys.stderr)
         return 2
+    except ToolFailed as exc:
+        print(f"qamsmith: error: {exc}", file=sys.stderr)
+        return 1
     except BrokenPipeError:                    # e.g. `qamsmith list | head`: not an error of ours
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0

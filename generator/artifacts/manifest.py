@@ -1,0 +1,130 @@
+"""The manifest (every derived number the RTL, the testbenches and the reports read) and the ROM images."""
+
+from __future__ import annotations
+
+import hashlib
+from typing import Any
+
+import numpy as np
+
+from ..ir import rom_images
+from ..model import Design
+from ..numbers import QFormat
+from ..version import __version__
+from .texts import GENERATOR, banner, content_hash
+from .words import format_words, pack_words, packing
+
+
+def rom_files(design: Design) -> dict[str, bytes]:
+    """`$readmemh` images of the mapper level tables (see `rom_manifest`)."""
+    out = {}
+    w = design.mapper_format.width
+    for entry, image in zip(rom_manifest(design), rom_images(design)):
+        if entry["axis"] == "points":
+            what = f"mapper point table: entry = label, word {{Q, I}} of two signed {w}-bit codes"
+        else:
+            what = (f"mapper {entry['axis'].upper()} level table: entry c = the signed {w}-bit code of the level "
+                    f"whose {entry['axis'].upper()}-axis label is c")
+        words = pack_words([(image["entries"], image["width"])])
+        header = banner(design, what) + f"// {entry['index']}\n// entries: {entry['entries']}, width {entry['width']}\n"
+        out[entry["path"]] = format_words(words, entry["width"], header)
+    return out
+
+
+def rom_manifest(design: Design) -> list[dict[str, Any]]:
+    """Which ROM images exist, their size and how they are indexed."""
+    out = []
+    for image in rom_images(design):
+        entry = {"path": image["path"], "axis": image["table"], "parameter": image["parameter"],
+                 "entries": len(image["entries"]), "width": image["width"]}
+        if image["table"] == "points":
+            entry["index"] = "index: the label (b0 the MSB); word {Q, I}, I in the low half"
+        else:
+            bits = ", ".join(f"b{b}" for b in image["label_bits"])
+            entry["label_bits"] = image["label_bits"]
+            entry["index"] = f"index c: the label bits {bits} in this order, the first one the MSB of c"
+        out.append(entry)
+    return out
+
+
+def _qformat(fmt: QFormat | None) -> dict[str, Any] | None:
+    if fmt is None:
+        return None
+    return {"width": fmt.width, "fraction": fmt.fraction, "signed": fmt.signed, "name": str(fmt),
+            "min_code": fmt.min_code, "max_code": fmt.max_code}
+
+
+def _axis_entry(design: Design, n: int) -> dict[str, Any] | None:
+    ax = design.constellation.axes[n]
+    if not ax.bits:
+        return None
+    ad = next(a for a in design.axes if a.axis is ax)
+    entry: dict[str, Any] = {
+        "levels": ax.levels, "label_bits": list(ax.label_bits), "codes": list(ax.codes),
+        "gray_mask": ax.gray_mask, "inverted": list(ad.inverted),
+        "level_input_codes": list(ad.level_input_codes), "decision_boundaries": list(ad.boundaries),
+        "mapper_level_codes": [int(c) for c in design.level_codes[n]],
+    }
+    if design.spec.demapper.algorithm == "maxlog":
+        entry["competitor"] = ad.competitor.tolist()
+        entry["competitor_uses_sign"] = list(ad.uses_sign)
+    return entry
+
+
+def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, Any], rtl: dict[str, Any],
+                   testbench: dict[str, Any]) -> dict[str, Any]:
+    """The manifest: every derived number the RTL, testbenches and reports read, and the file list."""
+    spec = design.spec
+    d = spec.demapper
+    const = design.constellation
+    labels = np.arange(const.order)
+    dem: dict[str, Any] = {
+        "algorithm": d.algorithm,
+        "structure": "per-axis" if design.per_axis else "2-D search",
+        "input_lsb": design.input_lsb, "llr_lsb": design.llr_lsb, "scale_lsb": design.scale_lsb,
+        "input_format": _qformat(design.input_format), "llr_format": _qformat(design.llr_format),
+        "scale_format": _qformat(design.scale_format),
+        "output_shift": design.output_shift, "metric_fraction": design.metric_fraction, "rounding": d.rounding,
+        "widths": {k: {"width": w, "signed": s} for k, (w, s) in sorted(design.widths.items())},
+        "llr_max": design.llr_format.max_code, "llr_min": -design.llr_format.max_code,
+        "sign": "positive LLR: bit 0 more likely; saturation is symmetric, the most negative code is never produced",
+        "input_scale": (f"level n of an L-level axis sits at input code (2n - (L-1)) * 2^{d.input_fraction}: one level "
+                        f"step is {2 << d.input_fraction} codes, the scale the upstream AGC/equalizer must deliver"),
+        "scale_behaviour": (f"LLR = metric * S * scale_lsb; scale code 0 gives LLR 0 (an erasure); the field is "
+                            f"{d.scale_width} bits, so no out-of-range code exists" if design.scale_format else
+                            "no reliability input (demapper.scale_width = 0): scale = 1"),
+        "per_axis": ({"i": _axis_entry(design, 0), "q": _axis_entry(design, 1)} if design.per_axis else None),
+        "search_points": (None if design.per_axis else
+                          [[int(lab), int(a), int(b)] for lab, a, b in zip(labels, design.search_i, design.search_q)]),
+    }
+    if not design.per_axis:
+        m, k = const.order, design.bits
+        dem["search_cost"] = {"points": m, "distances_per_symbol": m,
+                              "min_trees_per_symbol": 2 * k, "compares_per_symbol": 2 * k * (m // 2 - 1),
+                              "doc": "exact 2-D search: a squared distance to every point, two minima per bit"}
+    manifest: dict[str, Any] = {
+        "generator": {"name": GENERATOR, "version": __version__},
+        "content_hash": content_hash(spec),
+        "spec": spec.to_dict(),
+        "qformats": {"mapper_output": _qformat(design.mapper_format), "demapper_input": _qformat(design.input_format),
+                     "llr": _qformat(design.llr_format), "scale": _qformat(design.scale_format)},
+        "constellation": {"order": const.order, "bits": design.bits, "labeling": const.labeling,
+                          "kappa": const.kappa, "energy": const.energy,
+                          "axes": "per-axis (product labeling)" if design.per_axis else "none (2-D search)"},
+        "mapper": {
+            "points": [[int(lab), int(a), int(b)] for lab, a, b in zip(labels, design.point_i, design.point_q)],
+            "lsb": design.mapper_lsb, "width": design.mapper_format.width, "scaling": spec.mapper.scaling,
+            "rounding": spec.mapper.rounding, "implementation": spec.mapper.implementation,
+            "rom": {"style": spec.mapper.rom_style, "images": rom_manifest(design)},
+        },
+        "demapper": dem,
+        "packing": packing(design),
+        "vectors": vectors,
+        "rtl": rtl,
+        "testbench": testbench,
+        "files": [{"path": p, "sha256": hashlib.sha256(b).hexdigest()} for p, b in sorted(files.items())],
+    }
+    return manifest
+
+
+__all__ = ["build_manifest", "rom_files", "rom_manifest"]

@@ -1,0 +1,163 @@
+"""Test vectors: seeded stimulus for both blocks and the model's expected words (vectors/*.hex).
+
+Mapper: every label once, then seeded random labels. Demapper: every input code of each axis
+(an even sample above 2^16 codes) with the other axis random, the extreme codes of both axes
+crossed (min, max, 0, +-1, the levels, the decision boundaries and the clamp points, +-1), every
+reliability code, then seeded random inputs. The seed is the design's content hash.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from ..model import Design
+from ..numbers import QFormat
+from ..spec import DesignSpec
+from .texts import banner, content_hash
+from .words import demapper_input_words, demapper_words, format_words, mapper_words, pack_words, packing
+
+#: mapper vectors: every label once, then seeded random labels up to this count (at least 1024 random)
+MAPPER_VECTORS = 4096
+#: random demapper vectors after the exhaustive and extreme sections
+RANDOM_VECTORS = 4096
+#: an axis input sweep is exhaustive up to this many codes, sampled evenly beyond
+MAX_SWEEP = 1 << 16
+#: extreme I x Q codes are crossed exhaustively up to this many pairs, paired beyond
+MAX_CROSS = 4096
+
+
+def output_header(design: Design, block: str, count: int) -> str:
+    """Header of an expected-output vector file (the same for `vectors/` and `qamsmith run`)."""
+    pack = packing(design)[f"{block}_output"]
+    return (banner(design, f"{block} expected output words from the bit-exact model, one per input word")
+            + f"// packing: {pack['width']}-bit word, {pack['doc']}\n// words: {count}\n")
+
+
+def _input_header(design: Design, block: str, count: int, sections: str) -> str:
+    pack = packing(design)[f"{block}_input"]
+    return (banner(design, f"{block} stimulus words")
+            + f"// packing: {pack['width']}-bit word, {pack['doc']}\n// words: {count} ({sections})\n")
+
+
+def _rng(spec: DesignSpec) -> np.random.Generator:
+    return np.random.default_rng(int(content_hash(spec), 16))
+
+
+def mapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, str]:
+    """Every label once, then seeded random labels."""
+    m = design.constellation.order
+    n_random = max(MAPPER_VECTORS - m, 1024)
+    labels = np.concatenate([np.arange(m, dtype=np.int64), rng.integers(0, m, n_random, dtype=np.int64)])
+    return labels, f"every label 0..{m - 1} once, then {n_random} seeded random labels"
+
+
+def _sweep(fmt: QFormat) -> np.ndarray:
+    """Every input code, or an even sample of MAX_SWEEP codes of a wider input."""
+    n = fmt.max_code - fmt.min_code + 1
+    if n <= MAX_SWEEP:
+        return np.arange(fmt.min_code, fmt.max_code + 1, dtype=np.int64)
+    return np.unique(np.linspace(fmt.min_code, fmt.max_code, MAX_SWEEP).round().astype(np.int64))
+
+
+def special_codes(design: Design, axis: int) -> np.ndarray:
+    """Extreme input codes of one axis: min, max, 0, +-1, the levels, decision boundaries and clamp points, +-1."""
+    fmt = design.input_format
+    f = design.spec.demapper.input_fraction
+    base = {fmt.min_code, fmt.min_code + 1, fmt.max_code, fmt.max_code - 1, 0, 1, -1}
+    centres: set[int] = set()
+    if design.per_axis:
+        ax = design.constellation.axes[axis]
+        ad = next((a for a in design.axes if a.axis is ax), None)
+        if ad is not None:
+            centres |= set(ad.level_input_codes) | set(ad.boundaries)         # the levels, decision boundaries
+        centres |= {ax.levels << f, -(ax.levels << f)}                        # where the decision clamps
+    else:
+        pts = np.unique(design.search_i if axis == 0 else design.search_q)
+        centres |= {int(p) for p in pts}
+        centres |= {int(a + b) // 2 for a, b in zip(pts[:-1], pts[1:])}      # midpoints
+    codes = base | {c + d for c in centres for d in (-1, 0, 1)}
+    return np.asarray(sorted(c for c in codes if fmt.min_code <= c <= fmt.max_code), dtype=np.int64)
+
+
+def demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, str]:
+    """Per-axis sweeps, extreme codes crossed, reliability sweep, then seeded random inputs."""
+    fmt = design.input_format
+    lo, hi = fmt.min_code, fmt.max_code + 1
+    const = design.constellation
+    q_used = const.axes is None or const.axes[1].bits > 0
+    parts_i, parts_q, notes = [], [], []
+    sweep = _sweep(fmt)
+    exhaustive = "every" if sweep.size == hi - lo else f"{sweep.size} evenly spaced"
+    parts_i.append(sweep)
+    parts_q.append(rng.integers(lo, hi, sweep.size))
+    notes.append(f"{exhaustive} I code with random Q")
+    if q_used:
+        parts_i.append(rng.integers(lo, hi, sweep.size))
+        parts_q.append(sweep)
+        notes.append(f"{exhaustive} Q code with random I")
+    si, sq = special_codes(design, 0), special_codes(design, 1)
+    if si.size * sq.size <= MAX_CROSS:
+        gi, gq = np.meshgrid(si, sq, indexing="ij")
+        parts_i.append(gi.ravel())
+        parts_q.append(gq.ravel())
+        notes.append(f"{gi.size} extreme I x Q pairs (min, max, 0, +-1, levels, boundaries)")
+    else:
+        for a, b in ((si, sq), (sq, si)):
+            n = max(a.size, b.size)
+            parts_i.append(np.resize(a, n))
+            parts_q.append(rng.permutation(np.resize(b, n)))
+        notes.append("extreme codes (min, max, 0, +-1, levels, boundaries) paired at random")
+    scale = None
+    sfmt = design.scale_format
+    if sfmt is not None:
+        n_sweep = min(sfmt.max_code + 1, MAX_SWEEP)
+        parts_i.append(rng.integers(lo, hi, n_sweep))
+        parts_q.append(rng.integers(lo, hi, n_sweep))
+        notes.append("every reliability code with random I, Q" if n_sweep == sfmt.max_code + 1
+                     else f"{n_sweep} reliability codes")
+    parts_i.append(rng.integers(lo, hi, RANDOM_VECTORS))
+    parts_q.append(rng.integers(lo, hi, RANDOM_VECTORS))
+    notes.append(f"{RANDOM_VECTORS} seeded random inputs")
+    i = np.concatenate(parts_i).astype(np.int64)
+    q = np.concatenate(parts_q).astype(np.int64)
+    if sfmt is not None:
+        scale = rng.integers(0, sfmt.max_code + 1, i.size, dtype=np.int64)
+        scale[0::7] = sfmt.max_code          # full scale and erasures throughout every section
+        scale[3::7] = 0
+        start = i.size - RANDOM_VECTORS - n_sweep
+        scale[start:start + n_sweep] = np.linspace(0, sfmt.max_code, n_sweep).round().astype(np.int64)
+        notes.append("random reliability codes with 0 and the maximum among them")
+    return i, q, scale, "; ".join(notes)
+
+
+def vector_files(design: Design) -> tuple[dict[str, bytes], dict[str, Any]]:
+    """Stimulus and expected words of both blocks, and their manifest entry."""
+    rng = _rng(design.spec)
+    pack = packing(design)
+    labels, note = mapper_stimulus(design, rng)
+    files = {
+        "vectors/mapper_in.hex": format_words(pack_words([(labels, design.bits)]), design.bits,
+                                              _input_header(design, "mapper", labels.size, note)),
+        "vectors/mapper_out.hex": format_words(mapper_words(design, labels), pack["mapper_output"]["width"],
+                                               output_header(design, "mapper", labels.size)),
+    }
+    i, q, scale, dnote = demapper_stimulus(design, rng)
+    files["vectors/demapper_in.hex"] = format_words(
+        demapper_input_words(design, i, q, scale), pack["demapper_input"]["width"],
+        _input_header(design, "demapper", i.size, dnote))
+    files["vectors/demapper_out.hex"] = format_words(
+        demapper_words(design, i, q, scale), pack["demapper_output"]["width"],
+        output_header(design, "demapper", i.size))
+    entry = {
+        "mapper": {"input": "vectors/mapper_in.hex", "expected": "vectors/mapper_out.hex", "count": int(labels.size),
+                   "stimulus": note},
+        "demapper": {"input": "vectors/demapper_in.hex", "expected": "vectors/demapper_out.hex", "count": int(i.size),
+                     "stimulus": dnote},
+        "format": "one fixed-width lower-case hex word a line after // comment lines ($readmemh)",
+    }
+    return files, entry
+
+
+__all__ = ["demapper_stimulus", "mapper_stimulus", "output_header", "special_codes", "vector_files"]

@@ -1,0 +1,1248 @@
+"""What the chosen widths cost: seeded Monte-Carlo over AWGN of the bit-exact fixed-point chain.
+
+At each Es/N0 point the engine draws labels and unit Gaussian noise (the same draws at every
+point: common random numbers, so curves are smooth in SNR and differences between chains are
+precise), and runs three receivers on the same noise:
+
+* fixed: the bit-exact mapper codes -> AWGN -> demapper input quantizer -> `model.demap`
+  (and `model.hard_decisions` for the BER);
+* float max-log and float exact log-MAP LLRs of the ideal (unquantized) constellation.
+
+Figures of merit: bit error rate of hard decisions next to the closed-form BER of Gray square
+M-QAM (K. Cho and D. Yoon, "On the general BER expression of one- and two-dimensional amplitude
+modulations", IEEE Trans. Commun. 50(7), 2002, eq. (14)); the BICM generalized mutual information
+(GMI, bits per symbol: k - sum_j E[log2(1 + exp(-s_j * llr_j))], s_j = +1 for bit 0; Caire,
+Taricco and Biglieri, IEEE Trans. Inf. Theory 44(3), 1998) where LLRs of arbitrary scale
+(fixed-point codes, max-log) are multiplied by the scalar factor that maximizes the GMI (what a
+decoder's input scaling would apply); the implementation loss in dB of Es/N0 at an operating
+point; the mapper's quantization EVM. Confidence comes from batch means over `BATCHES`
+independent batches of symbols.
+
+Conventions: Es is the mean energy of the mapper's actual output (unit power for the ideal
+points); a reliability input, when the design has one, is driven with round(2^f / N0), an ideal
+1/N0 estimate. GMIs come from histograms of s * LLR (integer codes exactly; float LLRs in bins of
+1/64 nat), so the scalar-factor search is cheap. Float exact LLRs are computed on every symbol,
+exp() and the level sums in float32 (error < 1e-5 nats), magnitudes capped near 80 nats.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Sequence
+
+import numpy as np
+
+from ..artifacts import probe_directory, write_file
+from ..errors import SpecError
+from ..model import Design, demap, derive, hard_decisions
+from ..numbers import label_bits, quantize
+from ..spec import DesignSpec
+
+#: independent batches for the batch-means confidence intervals
+BATCHES = 16
+#: largest chunk of symbols processed at once (bounded memory: a few tens of MB)
+CHUNK = 1 << 16
+#: float LLRs are computed in blocks of this many symbols (their (levels x N) arrays stay in cache)
+FLOAT_BLOCK = 1 << 14
+#: float LLR histograms: bins per natural-log unit and the clipping magnitude (nats)
+FLOAT_BINS_PER_NAT = 64
+FLOAT_LLR_CLIP = 512.0
+#: range of the GMI-maximizing scalar factor, relative to the natural scale
+FACTOR_RANGE = (2.0 ** -6, 2.0 ** 6)
+#: default operating point: float exact GMI at this fraction of log2(M)
+DEFAULT_GMI_FRACTION = 0.9
+DEFAULT_SYMBOLS = 1_000_000
+DEFAULT_SEED = 1
+DEFAULT_BUDGET_DB = 0.1
+#: two-sided 97.5 % quantile of Student's t with BATCHES - 1 = 15 degrees of freedom
+T_975 = 2.131
+#: the smallest symbol count (every batch needs a few hundred symbols)
+MIN_SYMBOLS = 1024
+#: expected bit errors needed to estimate a BER (relative standard error about 10 %), common practice
+ERRORS_NEEDED = 100
+SNR_LIMITS_DB = (-30.0, 80.0)
+MAX_POINTS = 200
+
+
+# --------------------------------------------------------------------------- SNR syntax
+
+
+def parse_snr(text: str, *, key: str = "snr") -> list[float]:
+    """Es/N0 (or Eb/N0) points in dB: a list "10,12,14" or an inclusive range "start:step:stop"."""
+    allowed = "a list like 10,12,14 or a range start:step:stop like 8:2:20 (dB)"
+    if not isinstance(text, str) or not text.strip():
+        raise SpecError(key, text, allowed)
+    s = text.replace(" ", "")
+    num = r"[-+]?(?:\d+\.?\d*|\.\d+)"
+    if re.fullmatch(rf"{num}:{num}:{num}", s):
+        start, step, stop = (float(v) for v in s.split(":"))
+        if step <= 0:
+            raise SpecError(key, text, "a range with a positive step (start:step:stop)")
+        count = math.floor((stop - start) / step + 1e-9) + 1
+        if count < 1:
+            raise SpecError(key, text, "a non-empty range: stop >= start")
+        if count > MAX_POINTS:
+            raise SpecError(key, text, f"at most {MAX_POINTS} points")
+        points = [round(start + i * step, 9) for i in range(count)]
+    elif re.fullmatch(rf"{num}(?:,{num})*", s):
+        points = [float(v) for v in s.split(",")]
+        if len(points) > MAX_POINTS:
+            raise SpecError(key, text, f"at most {MAX_POINTS} points")
+        if len(set(points)) != len(points):
+            raise SpecError(key, text, "distinct points")
+    else:
+        raise SpecError(key, text, allowed)
+    lo, hi = SNR_LIMITS_DB
+    for p in points:
+        if not lo <= p <= hi:
+            raise SpecError(key, text, f"points from {lo:g} to {hi:g} dB")
+    return sorted(points)
+
+
+def esn0_from_ebn0(ebn0_db: float, bits: int) -> float:
+    """Es/N0 in dB of an Eb/N0 in dB at `bits` bits per symbol."""
+    return ebn0_db + 10.0 * math.log10(bits)
+
+
+def check_symbols(symbols: int, bits: int, ber_floor: float | None = None) -> None:
+    """Refuse symbol counts too small for the batch-means confidence or for the requested BER floor."""
+    if not isinstance(symbols, int) or isinstance(symbols, bool) or symbols < MIN_SYMBOLS:
+        raise SpecError("symbols", symbols, f"an integer of at least {MIN_SYMBOLS} ({BATCHES} batches of 64)")
+    if symbols > 10 ** 10:
+        raise SpecError("symbols", symbols, "at most 1e10")
+    if ber_floor is not None:
+        if not 0 < ber_floor < 0.5:
+            raise SpecError("ber_floor", ber_floor, "a BER between 0 and 0.5")
+        need = math.ceil(ERRORS_NEEDED / (bits * ber_floor))
+        if symbols < need:
+            raise SpecError("symbols", symbols, f"at least {need} to estimate a BER of {ber_floor:g} "
+                            f"({ERRORS_NEEDED} expected bit errors at {bits} bits per symbol)")
+
+
+# --------------------------------------------------------------------------- theory
+
+
+def ber_gray_qam(order: int, esn0_db: float | np.ndarray) -> np.ndarray:
+    """Exact BER of Gray-labeled square M-QAM (and BPSK) with nearest-point decisions in AWGN.
+
+    Cho and Yoon, IEEE Trans. Commun. 50(7), 2002, eqs. (14)-(16) with I = J = sqrt(M):
+    P_b = (1 / log2 L) sum_k P(k), P(k) = (1/L) sum_{i=0}^{(1-2^-k)L-1} (-1)^floor(i 2^(k-1)/L)
+    (2^(k-1) - floor(i 2^(k-1)/L + 1/2)) erfc((2i+1) sqrt(3 Es/N0 / (2 (M-1)))).
+    BPSK: Q(sqrt(2 Es/N0)) = erfc(sqrt(Es/N0)) / 2.
+    """
+    es = 10.0 ** (np.atleast_1d(np.asarray(esn0_db, dtype=np.float64)) / 10.0)
+    erfc = np.vectorize(math.erfc)
+    if order == 2:
+        return 0.5 * erfc(np.sqrt(es))
+    L = int(round(math.sqrt(order)))
+    m = L.bit_length() - 1
+    arg = np.sqrt(3.0 * es / (2.0 * (order - 1)))
+    total = np.zeros_like(es)
+    for k in range(1, m + 1):
+        pk = np.zeros_like(es)
+        for i in range(int((1 - 2.0 ** -k) * L)):
+            w = (i * 2 ** (k - 1)) // L
+            weight = (-1) ** w * (2 ** (k - 1) - math.floor(i * 2 ** (k - 1) / L + 0.5))
+            pk += weight * erfc((2 * i + 1) * arg)
+        total += pk / L
+    return total / m
+
+
+def theory_applies(design: Design) -> bool:
+    """True when the Cho-Yoon Gray formula describes the labeling (Gray-type square QAM, or BPSK)."""
+    const = design.constellation
+    return const.order == 2 or const.gray_type
+
+
+def shannon_capacity(esn0_db: float | np.ndarray) -> np.ndarray:
+    """AWGN capacity log2(1 + Es/N0) of a complex channel, bits per symbol (Shannon 1948)."""
+    return np.log2(1.0 + 10.0 ** (np.asarray(esn0_db, dtype=np.float64) / 10.0))
+
+
+# --------------------------------------------------------------------------- EVM
+
+
+def mapper_evm(design: Design) -> dict[str, float]:
+    """RMS EVM of the quantized mapper against the ideal points, all labels equally likely.
+
+    EVM = sqrt(mean |x_q - x|^2 / mean |x|^2); `evm_uniform_model_db` is the uniform-quantization
+    estimate 2 * LSB^2 / 12 (two components) over unit power.
+    """
+    const = design.constellation
+    ideal = const.normalized
+    xq = (design.point_i + 1j * design.point_q) * design.mapper_lsb
+    err = float(np.mean(np.abs(xq - ideal) ** 2))
+    sig = float(np.mean(np.abs(ideal) ** 2))
+    ratio = err / sig
+    evm_db = 10.0 * math.log10(ratio) if ratio > 0 else -math.inf
+    model_ratio = 2.0 * design.mapper_lsb ** 2 / 12.0
+    if const.axes is not None and not const.axes[1].bits:
+        model_ratio /= 2.0          # BPSK on I only: the Q component is exactly zero
+    return {"evm_db": evm_db, "evm_percent": 100.0 * math.sqrt(ratio),
+            "evm_uniform_model_db": 10.0 * math.log10(model_ratio),
+            "mapper_power_db": 10.0 * math.log10(float(np.mean(np.abs(xq) ** 2)))}
+
+
+def input_noise(design: Design) -> dict[str, float]:
+    """Demapper input quantization: uniform-noise power 2 * LSB^2 / 12 (dB re unit symbol power) and headroom."""
+    lsb = design.input_lsb
+    const = design.constellation
+    peak = float(max(np.max(np.abs(const.normalized.real)), np.max(np.abs(const.normalized.imag))))
+    full = design.input_format.max_code * lsb
+    return {"input_noise_db": 10.0 * math.log10(2.0 * lsb * lsb / 12.0),
+            "input_lsb": lsb, "input_full_scale": full,
+            "input_headroom_db": 20.0 * math.log10(full / peak)}
+
+
+# --------------------------------------------------------------------------- GMI from histograms
+
+
+def _softplus(scale: float, values: np.ndarray) -> np.ndarray:
+    """log(1 + exp(-scale * values)) in nats, elementwise (exp() kept out of the subnormal range)."""
+    t = -scale * values
+    np.maximum(t, -700.0, out=t)                # terms below exp(-700) are zero anyway
+    return np.logaddexp(0.0, t)
+
+
+def _gmi_of(values: np.ndarray, counts: np.ndarray, scale: float, bits_per_symbol: int,
+            symbols: int | np.ndarray) -> float | np.ndarray:
+    """GMI (bits/symbol) from a histogram of s * llr values (any unit) at `scale` nats per unit.
+
+    `counts` may be (n,) or (batches, n) with `symbols` per batch.
+    """
+    loss = counts @ _softplus(scale, values)
+    return bits_per_symbol - loss / (math.log(2.0) * np.asarray(symbols, dtype=np.float64))
+
+
+def best_scale(values: np.ndarray, counts: np.ndarray, natural: float, bits_per_symbol: int,
+               symbols: int, lo: float = FACTOR_RANGE[0], hi: float = FACTOR_RANGE[1]) -> tuple[float, float]:
+    """The factor (relative to `natural` nats per unit) maximizing the GMI, and that GMI.
+
+    GMI is concave in the factor (log(1 + exp(-a x)) is convex in a), so a golden-section
+    search on the log of the factor finds the maximum; tolerance 1e-4 in log units.
+    """
+    keep = counts > 0
+    v, c = values[keep].astype(np.float64), counts[keep].astype(np.float64)
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    a, b = math.log(lo), math.log(hi)
+
+    def f(t: float) -> float:
+        return -float(_gmi_of(v, c, natural * math.exp(t), bits_per_symbol, symbols))
+
+    x1, x2 = b - g * (b - a), a + g * (b - a)
+    f1, f2 = f(x1), f(x2)
+    while b - a > 1e-4:
+        if f1 <= f2:
+            b, x2, f2 = x2, x1, f1
+            x1 = b - g * (b - a)
+            f1 = f(x1)
+        else:
+            a, x1, f1 = x1, x2, f2
+            x2 = a + g * (b - a)
+            f2 = f(x2)
+    t = (a + b) / 2.0
+    return math.exp(t), -f(t)
+
+
+def gmi_direct(llr_nats: np.ndarray, bits: np.ndarray) -> float:
+    """GMI (bits/symbol) straight from natural-log LLRs (N, k) and transmitted bits (N, k); for tests."""
+    s = 1.0 - 2.0 * np.asarray(bits, dtype=np.float64)
+    k = llr_nats.shape[1]
+    return k - float(np.mean(np.logaddexp(0.0, -s * llr_nats).sum(axis=1))) / math.log(2.0)
+
+
+# --------------------------------------------------------------------------- the chain
+
+
+@dataclass
+class _Hist:
+    """Per-batch histograms of s * llr: dense over a fixed range, or sparse (wide LLR codes)."""
+
+    offset: int
+    dense: np.ndarray | None
+    sparse: list[list[tuple[np.ndarray, np.ndarray]]] | None = None
+
+    @classmethod
+    def make(cls, offset: int, dense: bool) -> "_Hist":
+        if dense:
+            return cls(offset, np.zeros((BATCHES, 2 * offset + 1), dtype=np.int64))
+        return cls(offset, None, [[] for _ in range(BATCHES)])
+
+    def add(self, b: int, idx: np.ndarray) -> None:
+        """Add signed values (dense: already offset into 0..2*offset)."""
+        if self.dense is not None:
+            self.dense[b] += np.bincount(idx.ravel(), minlength=self.dense.shape[1])
+        else:
+            self.sparse[b].append(np.unique(idx.ravel(), return_counts=True))
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray]:
+        """(values, counts per batch (BATCHES, n)) with values in histogram units."""
+        if self.dense is not None:
+            return np.arange(-self.offset, self.offset + 1, dtype=np.float64), self.dense
+        vals = [v for parts in self.sparse for v, _ in parts]
+        keys = np.unique(np.concatenate(vals)) if vals else np.zeros(0, np.int64)
+        counts = np.zeros((BATCHES, keys.size), dtype=np.int64)
+        for b, parts in enumerate(self.sparse):
+            for v, c in parts:
+                counts[b] += np.bincount(np.searchsorted(keys, v), weights=c, minlength=keys.size).astype(np.int64)
+        return keys.astype(np.float64), counts
+
+
+@dataclass
+class PointStats:
+    """Results at one Es/N0 point; `*_batches` hold the per-batch values for the confidence."""
+
+    esn0_db: float
+    ebn0_db: float
+    n0: float
+    symbols: int
+    bits: int
+    ber_fixed: float | None = None
+    ber_fixed_batches: np.ndarray | None = None
+    bit_errors_fixed: int = 0
+    ber_exact: float | None = None
+    ber_exact_batches: np.ndarray | None = None
+    ber_maxlog: float | None = None
+    ber_maxlog_batches: np.ndarray | None = None
+    gmi_fixed: float | None = None
+    gmi_fixed_batches: np.ndarray | None = None
+    factor_fixed: float | None = None
+    nats_per_code: float | None = None
+    gmi_maxlog: float | None = None
+    gmi_maxlog_batches: np.ndarray | None = None
+    factor_maxlog: float | None = None
+    gmi_exact: float | None = None
+    gmi_exact_batches: np.ndarray | None = None
+    factor_exact: float | None = None
+    input_noise_db: float | None = None
+    input_clip_percent: float | None = None
+    reliability_code: int | None = None
+
+
+def _stderr(batches: np.ndarray | None) -> float | None:
+    if batches is None:
+        return None
+    return float(np.std(batches, ddof=1) / math.sqrt(len(batches)))
+
+
+def _row_sum(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Sum of the given rows of a (L, N) array (row by row: much faster than a small matmul)."""
+    out = a[rows[0]].copy()
+    for r in rows[1:]:
+        out += a[r]
+    return out
+
+
+class Chain:
+    """Precomputed tables for the Monte-Carlo of one design (fixed chain and float references)."""
+
+    def __init__(self, design: Design, *, ideal_mapper: bool = False, scale_code: int | None = None) -> None:
+        self.design = design
+        const = design.constellation
+        self.const = const
+        self.M, self.k = const.order, const.bits
+        labels = np.arange(self.M)
+        self.txbits = label_bits(labels, self.k)                                      # (M, k) int8
+        self.sign = (1.0 - 2.0 * self.txbits).T.copy()                                  # (k, M) +-1
+        self.tx_ideal = const.normalized.astype(np.complex128)
+        if ideal_mapper:
+            self.tx_fixed = self.tx_ideal
+        else:
+            self.tx_fixed = (design.point_i + 1j * design.point_q) * design.mapper_lsb
+        #: mean energy of the fixed mapper's output (normalized units): Es/N0 refers to what is sent,
+        #: so a mapper whose rounding raises its power gains nothing from it
+        self.es_fixed = float(np.mean(np.abs(self.tx_fixed) ** 2))
+        #: fixed mapper output per component in amplitude units (the demapper input's scale)
+        self.tx_amp = (self.tx_fixed.real / const.kappa, self.tx_fixed.imag / const.kappa)
+        d = design.spec.demapper
+        self.algorithm = d.algorithm
+        self.hard = d.algorithm == "hard"
+        #: reliability input: a fixed code, or None for the ideal 1/N0 estimate at each point
+        self.scale_code = scale_code if design.scale_format is not None else None
+        self.has_scale = design.scale_format is not None
+        self.llr_max = 1 if self.hard else design.llr_format.max_code
+        self.dense = self.llr_max <= (1 << 15)
+        off = self.llr_max
+        # fixed histogram index: s * llr + offset = llr * (1 - 2 b) + offset
+        self.fixed_sign = (1 - 2 * self.txbits).astype(np.int32)                         # (M, k)
+        self.fixed_offset = off
+        self.chunk = CHUNK if const.axes is not None else max(1024, (1 << 21) // self.M)
+        self.per_axis = const.axes is not None
+        self.axes = [self._axis_tables(n, ax) for n, ax in enumerate(const.axes) if ax.bits] if self.per_axis else []
+
+    def _axis_tables(self, n: int, ax) -> dict[str, Any]:
+        kappa = self.const.kappa
+        L = ax.levels
+        codes = np.asarray(ax.codes)
+        cb = np.stack([ax.axis_bit(codes, j) for j in range(ax.bits)], axis=1).astype(np.float64)   # (L, m)
+        ad = self.design.axes[n]
+        comp = ad.competitor.astype(np.float64)                                          # (m, L, 2)
+        # max-log: decided level, competitor offset by residual sign, sign from decided level's bit
+        return {"component": n, "cols": list(ax.label_bits), "levels": L, "lev": ax.amplitudes * kappa,
+                "rows0": [np.flatnonzero(cb[:, j] == 0) for j in range(ax.bits)],
+                "rows1": [np.flatnonzero(cb[:, j] == 1) for j in range(ax.bits)],
+                "comp": comp.transpose(1, 2, 0).reshape(2 * L, ax.bits).T.copy(),     # (m, 2L)
+                "neg": (1.0 - 2.0 * cb).T.copy()}                                     # (m, L): +1 for bit 0
+
+    # ---- float references ------------------------------------------------------------
+
+    def float_llrs(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
+        """(max-log metric in normalized units, exact LLR in nats), both (k, N), of normalized samples."""
+        N = y.size
+        if not self.per_axis:
+            return self._float_llrs_2d(y, n0)
+        kappa = self.const.kappa
+        mx = np.empty((self.k, N))
+        ex = np.empty((self.k, N))
+        for t in self.axes:
+            comp = y.real if t["component"] == 0 else y.imag
+            L = t["levels"]
+            amp = comp / kappa
+            n_hat = np.clip(np.floor((amp + L) / 2.0), 0, L - 1).astype(np.int64)
+            e = amp - (2.0 * n_hat - (L - 1))
+            idx = 2 * n_hat + (e < 0)
+            dn = np.take(t["comp"], idx, axis=1)                                          # (m, N)
+            metric = 4.0 * kappa * kappa * dn * (dn - e)
+            metric *= np.take(t["neg"], n_hat, axis=1)
+            # exact: log(sum_{b=0} w / sum_{b=1} w), w = exp(-(d2 - d2_min) / N0). The exponent is
+            # formed in float64, exp() and the sums run in float32 (SIMD; LLR error < 1e-5 nats);
+            # exponents are clamped at -80 (w >= 1.8e-35, normal in float32), so |LLR| is capped
+            # near 80 nats, where a bit's GMI term is below 1e-34.
+            d2 = comp[None, :] - t["lev"][:, None]                                         # (L, N)
+            d2 *= d2
+            d2 -= d2.min(axis=0)
+            d2 *= -1.0 / n0
+            np.maximum(d2, -80.0, out=d2)
+            w = np.exp(d2.astype(np.float32))
+            for j, col in enumerate(t["cols"]):
+                s0 = _row_sum(w, t["rows0"][j])
+                s1 = _row_sum(w, t["rows1"][j])
+                s0 /= s1
+                mx[col] = metric[j]
+                ex[col] = np.log(s0)
+        return mx, ex
+
+    def _float_llrs_2d(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
+        """Float LLRs over every point (no per-axis structure), (k, N): the same method in 2-D."""
+        pts = self.tx_ideal
+        d2 = y.real[None, :] - pts.real[:, None]                                         # (M, N)
+        d2 *= d2
+        dq = y.imag[None, :] - pts.imag[:, None]
+        dq *= dq
+        d2 += dq
+        k = self.k
+        mx = np.empty((k, y.size))
+        ex = np.empty((k, y.size))
+        for j in range(k):
+            one = self.txbits[:, j].astype(bool)
+            mx[j] = d2[one].min(axis=0) - d2[~one].min(axis=0)
+        d2 -= d2.min(axis=0)
+        d2 *= -1.0 / n0
+        np.maximum(d2, -80.0, out=d2)
+        w = np.exp(d2.astype(np.float32))
+        for j in range(k):
+            rows1 = np.flatnonzero(self.txbits[:, j])
+            rows0 = np.flatnonzero(self.txbits[:, j] == 0)
+            s0 = _row_sum(w, rows0)
+            s0 /= _row_sum(w, rows1)
+            ex[j] = np.log(s0)
+        return mx, ex
+
+    # ---- Monte-Carlo -------------------------------------------------------------------
+
+    def reliability(self, n0: float) -> int | None:
+        """Reliability code fed to the demapper at noise density n0: the fixed code, or round(2^f / N0)
+        (an ideal 1/N0 estimate in the input's format), clamped to 1 .. max code."""
+        if not self.has_scale:
+            return None
+        if self.scale_code is not None:
+            return int(self.scale_code)
+        fmt = self.design.scale_format
+        return int(min(max(round(2.0 ** fmt.fraction / n0), 1), fmt.max_code))
+
+    def natural_nats(self, n0: float) -> float:
+        """Nats per LLR code that make the codes true max-log LLRs: llr_lsb / (scale * N0)."""
+        if self.hard:
+            return 1.0
+        code = self.reliability(n0)
+        value = 1.0 if code is None else code * self.design.scale_lsb
+        return self.design.llr_lsb / (max(value, 1e-300) * n0)
+
+    def run(self, esn0_db: float, symbols: int, seed: int, *, fixed: bool = True, floats: bool = True,
+            keep: int = 0) -> tuple[PointStats, dict[str, np.ndarray]]:
+        """Monte-Carlo at one Es/N0 (dB): `symbols` symbols in BATCHES batches, seeded, chunked.
+
+        Returns the statistics and, when `keep` > 0, the first `keep` symbols' labels and
+        fixed-chain input codes (for the received-cloud plot).
+        """
+        design = self.design
+        n0 = 10.0 ** (-esn0_db / 10.0)
+        sigma = math.sqrt(n0 / 2.0)
+        k = self.k
+        st = PointStats(esn0_db=esn0_db, ebn0_db=esn0_db - 10.0 * math.log10(k), n0=n0, symbols=symbols, bits=k)
+        children = np.random.SeedSequence(seed).spawn(BATCHES)
+        per_batch = [symbols // BATCHES + (1 if b < symbols % BATCHES else 0) for b in range(BATCHES)]
+        err_f = np.zeros(BATCHES, np.int64)
+        err_x = np.zeros(BATCHES, np.int64)
+        err_m = np.zeros(BATCHES, np.int64)
+        qn = np.zeros(BATCHES)
+        clip = np.zeros(BATCHES, np.int64)
+        h_fixed = _Hist.make(self.fixed_offset, self.dense) if fixed else None
+        foff = int(FLOAT_LLR_CLIP * FLOAT_BINS_PER_NAT)
+        h_max = _Hist.make(foff, True) if floats else None
+        h_ex = _Hist.make(foff, True) if floats else None
+        kept: dict[str, list[np.ndarray]] = {"labels": [], "i": [], "q": []}
+        kept_n = 0
+        ifmt = design.input_format
+        kappa = self.const.kappa
+        mscale = FLOAT_BINS_PER_NAT / n0
+        fixed_gain = math.sqrt(self.es_fixed)
+        amp_noise = fixed_gain / kappa          # noise (already times sigma) in amplitude units
+        lsb_amp = 2.0 ** -ifmt.fraction
+        rel = self.reliability(n0)
+        scale = None if rel is None else np.int64(rel)
+        st.reliability_code = rel
+        for b in range(BATCHES):
+            rng = np.random.Generator(np.random.PCG64(children[b]))
+            left = per_batch[b]
+            while left > 0:
+                n = min(self.chunk, left)
+                left -= n
+                lab = rng.integers(0, self.M, size=n)
+                z = rng.standard_normal((2, n))
+                z *= sigma
+                if fixed:
+                    # received samples in amplitude units (the demapper's AGC scale), per component
+                    codes = []
+                    for comp in (0, 1):
+                        amp = np.take(self.tx_amp[comp], lab)
+                        amp += z[comp] * amp_noise
+                        c = quantize(amp, ifmt, "half-even")
+                        r = c * lsb_amp
+                        r -= amp
+                        qn[b] += float(np.dot(r, r))
+                        clip[b] += int(np.count_nonzero(c == ifmt.max_code) + np.count_nonzero(c == ifmt.min_code))
+                        codes.append(c)
+                    ci, cq = codes
+                    txb = np.take(self.txbits, lab, axis=0)
+                    if self.hard:
+                        hb = demap(design, ci, cq)
+                        llr = (1 - 2 * hb).astype(np.int32)
+                    else:
+                        llr = demap(design, ci, cq, scale)
+                        hb = hard_decisions(design, ci, cq)
+                    err_f[b] += int(np.count_nonzero(hb != txb))
+                    signed = llr * np.take(self.fixed_sign, lab, axis=0)
+                    if self.dense:
+                        signed += self.fixed_offset
+                    h_fixed.add(b, signed)
+                    if keep and kept_n < keep:
+                        take = min(keep - kept_n, n)
+                        kept["labels"].append(lab[:take])
+                        kept["i"].append(ci[:take])
+                        kept["q"].append(cq[:take])
+                        kept_n += take
+                if floats:
+                    y0 = np.take(self.tx_ideal, lab) + (z[0] + 1j * z[1])
+                    for lo in range(0, n, FLOAT_BLOCK):          # cache-sized blocks of the chunk
+                        sl = slice(lo, lo + FLOAT_BLOCK)
+                        self._float_block(b, y0[sl], lab[sl], n0, mscale, foff, h_max, h_ex, err_m, err_x)
+        nb = np.asarray(per_batch, dtype=np.float64)
+        total_bits = symbols * k
+        if fixed:
+            st.ber_fixed_batches = err_f / (nb * k)
+            st.ber_fixed = float(err_f.sum() / total_bits)
+            st.bit_errors_fixed = int(err_f.sum())
+            nat = self.natural_nats(n0)
+            st.gmi_fixed, st.gmi_fixed_batches, st.factor_fixed = self._gmi_batches(h_fixed, nat, nb)
+            st.nats_per_code = st.factor_fixed * nat
+            st.input_noise_db = 10.0 * math.log10(max(float(qn.sum()) * kappa * kappa / symbols, 1e-300))
+            st.input_clip_percent = 100.0 * float(clip.sum()) / (2 * symbols)
+        if floats:
+            st.ber_maxlog_batches = err_m / (nb * k)
+            st.ber_maxlog = float(err_m.sum() / total_bits)
+            st.ber_exact_batches = err_x / (nb * k)
+            st.ber_exact = float(err_x.sum() / total_bits)
+            unit = 1.0 / FLOAT_BINS_PER_NAT
+            st.gmi_maxlog, st.gmi_maxlog_batches, st.factor_maxlog = self._gmi_batches(h_max, unit, nb)
+            st.gmi_exact, st.gmi_exact_batches, st.factor_exact = self._gmi_batches(h_ex, unit, nb, optimize=False)
+        out = {key: np.concatenate(v) if v else np.zeros(0, np.int64) for key, v in kept.items()}
+        return st, out
+
+    def _float_block(self, b: int, y0: np.ndarray, lab: np.ndarray, n0: float, mscale: float, foff: int,
+                     h_max: _Hist, h_ex: _Hist, err_m: np.ndarray, err_x: np.ndarray) -> None:
+        """Float max-log and exact LLRs of one block: errors of their signs and histograms of s * LLR."""
+        mx, ex = self.float_llrs(y0, n0)
+        sg = np.take(self.sign, lab, axis=1)
+        mx *= sg
+        ex *= sg
+        err_m[b] += int(np.count_nonzero(mx < 0))
+        err_x[b] += int(np.count_nonzero(ex < 0))
+        mx *= mscale
+        ex *= FLOAT_BINS_PER_NAT
+        for arr, h in ((mx, h_max), (ex, h_ex)):
+            np.clip(arr, -foff, foff, out=arr)
+            np.rint(arr, out=arr)
+            idx = arr.astype(np.int64)
+            idx += foff
+            h.add(b, idx)
+
+    def _gmi_batches(self, h: _Hist, natural: float, nb: np.ndarray, optimize: bool = True):
+        values, counts = h.arrays()
+        total = counts.sum(axis=0)
+        used = total > 0
+        values, counts, total = values[used], counts[:, used], total[used]
+        n = int(nb.sum())
+        if optimize:
+            factor, gmi = best_scale(values, total, natural, self.k, n)
+        else:
+            factor = 1.0
+            gmi = float(_gmi_of(values, total.astype(np.float64), natural, self.k, n))
+        batches = _gmi_of(values, counts.astype(np.float64), natural * factor, self.k, nb)
+        return gmi, batches, factor
+
+
+# --------------------------------------------------------------------------- sweeps
+
+
+def _progress(total: int, label: str) -> Callable[[int], None]:
+    """A progress bar on stderr when it is a terminal; a no-op otherwise."""
+    if not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty()) or total <= 1:
+        return lambda done: None
+
+    def show(done: int) -> None:
+        width = 30
+        fill = int(width * done / total)
+        sys.stderr.write(f"\r{label} [{'#' * fill}{'.' * (width - fill)}] {done}/{total}")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+    show(0)
+    return show
+
+
+def sweep(design: Design, esn0_db: Sequence[float], symbols: int = DEFAULT_SYMBOLS, seed: int = DEFAULT_SEED, *,
+          chain: Chain | None = None, label: str = "sweep") -> list[PointStats]:
+    """Monte-Carlo of all three chains at every Es/N0 point (dB)."""
+    chain = chain or Chain(design)
+    bar = _progress(len(esn0_db), label)
+    out = []
+    for n, s in enumerate(esn0_db):
+        out.append(chain.run(float(s), symbols, seed)[0])
+        bar(n + 1)
+    return out
+
+
+def _crossing(x: np.ndarray, y: np.ndarray, target: float, rising: bool = True) -> float:
+    """First x where the piecewise-linear curve y(x) reaches `target` (nan if it never does)."""
+    ok = (y >= target) if rising else (y <= target)
+    hit = np.flatnonzero(ok)
+    if hit.size == 0:
+        return math.nan
+    i = int(hit[0])
+    if i == 0:
+        return float(x[0]) if y[0] == target else math.nan
+    y0, y1 = y[i - 1], y[i]
+    return float(x[i - 1] + (target - y0) * (x[i] - x[i - 1]) / (y1 - y0))
+
+
+def find_operating_point(chain: Chain, gmi_target: float, seed: int, symbols: int = 1 << 15) -> float:
+    """Es/N0 (dB) where the float exact GMI reaches gmi_target bits (bisection on a quick Monte-Carlo)."""
+    lo, hi = -20.0, 60.0
+    for _ in range(14):
+        mid = (lo + hi) / 2.0
+        g = chain.run(mid, symbols, seed, fixed=False)[0].gmi_exact
+        if g < gmi_target:
+            lo = mid
+        else:
+            hi = mid
+    return (lo + hi) / 2.0
+
+
+@dataclass
+class LossResult:
+    """Implementation loss (dB of Es/N0) of the fixed chain at the operating point, with 95 % intervals."""
+
+    operating_point_esn0_db: float
+    gmi_target: float
+    loss_db_vs_exact: float | None
+    loss_db_vs_exact_ci95: tuple[float, float] | None
+    loss_db_vs_maxlog: float | None
+    loss_db_vs_maxlog_ci95: tuple[float, float] | None
+    ber_target: float | None
+    ber_loss_db_vs_exact: float | None
+    ber_loss_db_vs_exact_ci95: tuple[float, float] | None
+    ber_loss_db_vs_maxlog: float | None
+    ber_loss_db_vs_maxlog_ci95: tuple[float, float] | None
+    grid: list[PointStats] = field(default_factory=list)
+    note: str = ""
+
+
+def _grid_right(op: float) -> list[float]:
+    """Es/N0 points right of the operating point: 0.1 dB steps to +1 dB, then coarser up to +10 dB."""
+    pts = [op + 0.1 * i for i in range(1, 11)]
+    pts += [op + 1.0 + 0.25 * i for i in range(1, 9)]
+    pts += [op + 3.0 + 0.5 * i for i in range(1, 15)]
+    return [round(p, 6) for p in pts]
+
+
+def _interval(full: float, batches: list[float]) -> tuple[float, float] | None:
+    vals = np.asarray(batches, dtype=np.float64)
+    if not np.all(np.isfinite(vals)) or not math.isfinite(full):
+        return None
+    half = T_975 * float(np.std(vals, ddof=1)) / math.sqrt(len(vals))
+    return (full - half, full + half)
+
+
+def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: int = DEFAULT_SEED, *,
+                        operating_point_db: float | None = None, gmi_fraction: float = DEFAULT_GMI_FRACTION,
+                        chain: Chain | None = None, label: str = "loss") -> LossResult:
+    """Horizontal distance (dB) between the fixed and the float GMI (and BER) curves at the operating point.
+
+    The curves are measured on a grid around the operating point (0.1 dB steps where the fixed
+    curve usually crosses) with common random numbers and linearly interpolated; the 95 %
+    interval is the batch-means interval of the same crossing computed per batch. The grid
+    grows to the left until every batch starts below the target and to the right until every
+    batch of the fixed chain has crossed it (at most 10 dB).
+    """
+    chain = chain or Chain(design)
+    k = chain.k
+    if operating_point_db is None:
+        if not 0.0 < gmi_fraction < 1.0:
+            raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
+        target = gmi_fraction * k
+        op0 = find_operating_point(chain, target, seed)
+    else:
+        op0 = float(operating_point_db)
+        target = None
+    bar = _progress(24, label)
+    points: dict[float, PointStats] = {}
+
+    def at(s: float) -> PointStats:
+        s = round(s, 6)
+        if s not in points:
+            points[s] = chain.run(s, symbols, seed)[0]
+            bar(min(len(points), 23))
+        return points[s]
+
+    centre = at(op0)
+    if target is None:
+        target = centre.gmi_exact
+    ber0 = min(centre.ber_exact, centre.ber_maxlog)
+
+    def below(st: PointStats) -> bool:
+        gmi_ok = all(np.all(getattr(st, f"gmi_{c}_batches") < target) for c in ("exact", "maxlog", "fixed"))
+        ber_ok = all(np.all(getattr(st, f"ber_{c}_batches") > ber0) for c in ("exact", "maxlog", "fixed"))
+        return gmi_ok and ber_ok
+
+    def above(st: PointStats) -> bool:
+        return bool(np.all(st.gmi_fixed_batches >= target) and np.all(st.gmi_maxlog_batches >= target)
+                    and np.all(st.gmi_exact_batches >= target) and np.all(st.ber_fixed_batches < ber0 * 0.8))
+
+    left = op0
+    for i in range(1, 31):
+        left = op0 - 0.1 * i
+        if i >= 3 and below(at(left)):
+            break
+    for s in _grid_right(op0):
+        if above(at(s)):
+            break
+    bar(24)
+    grid = [points[s] for s in sorted(points)]
+    grid_x = sorted(points)
+    x = np.asarray([g.esn0_db for g in grid])
+
+    def cross(attr: str, tgt, b: int | None = None, rising: bool = True) -> float:
+        if b is None:
+            y = np.asarray([getattr(g, attr) for g in grid])
+        else:
+            y = np.asarray([getattr(g, attr + "_batches")[b] for g in grid])
+        if not rising:
+            y = np.log10(np.maximum(y, 1e-300))
+            tgt = math.log10(max(tgt, 1e-300))
+        return _crossing(x, y, tgt, rising)
+
+    s_exact = cross("gmi_exact", target)
+    op = s_exact if math.isfinite(s_exact) else op0
+    note = ""
+    results: dict[str, Any] = {}
+    for ref in ("exact", "maxlog"):
+        full = cross("gmi_fixed", target) - cross(f"gmi_{ref}", target)
+        per = [cross("gmi_fixed", target, b) - cross(f"gmi_{ref}", target, b) for b in range(BATCHES)]
+        results[f"loss_{ref}"] = (full if math.isfinite(full) else None, _interval(full, per))
+    # BER: the reference BER at the operating point (log-linear interpolation), fixed chain crossing it
+    ber_target = None
+    for ref in ("exact", "maxlog"):
+        yref = np.log10(np.maximum([getattr(g, f"ber_{ref}") for g in grid], 1e-300))
+        tgt = 10.0 ** float(np.interp(op, x, yref))
+        if ref == "exact":
+            ber_target = tgt
+        full = cross("ber_fixed", tgt, rising=False) - cross(f"ber_{ref}", tgt, rising=False)
+        per = []
+        for b in range(BATCHES):
+            yb = np.log10(np.maximum([getattr(g, f"ber_{ref}_batches")[b] for g in grid], 1e-300))
+            tb = 10.0 ** float(np.interp(op, x, yb))
+            per.append(cross("ber_fixed", tb, b, rising=False) - cross(f"ber_{ref}", tb, b, rising=False))
+        results[f"ber_{ref}"] = (full if math.isfinite(full) else None, _interval(full, per))
+    if results["loss_exact"][0] is None:
+        note = (f"the fixed-point GMI stays below the target {target:.4g} bits up to "
+                f"{grid_x[-1]:.1f} dB Es/N0: the loss is larger than {grid_x[-1] - op:.1f} dB")
+    return LossResult(operating_point_esn0_db=op, gmi_target=float(target),
+                      loss_db_vs_exact=results["loss_exact"][0], loss_db_vs_exact_ci95=results["loss_exact"][1],
+                      loss_db_vs_maxlog=results["loss_maxlog"][0], loss_db_vs_maxlog_ci95=results["loss_maxlog"][1],
+                      ber_target=ber_target,
+                      ber_loss_db_vs_exact=results["ber_exact"][0], ber_loss_db_vs_exact_ci95=results["ber_exact"][1],
+                      ber_loss_db_vs_maxlog=results["ber_maxlog"][0],
+                      ber_loss_db_vs_maxlog_ci95=results["ber_maxlog"][1], grid=grid, note=note)
+
+
+# --------------------------------------------------------------------------- width explorer
+
+DEFAULT_EXPLORE_SYMBOLS = 1 << 17
+MAPPER_WIDTHS = range(3, 17)
+INPUT_FRACTIONS = range(0, 8)
+INPUT_EXTRA_BITS = 5
+LLR_WIDTHS = range(2, 13)
+#: the fine demapper input used while another stage is swept (fraction bits)
+REFERENCE_INPUT_FRACTION = 6
+
+
+def _exact_llr_settings(spec: DesignSpec) -> dict[str, Any]:
+    """LLR width and fraction that carry the demapper's metric exactly (no rounding, no saturation)."""
+    design = derive(spec.with_settings({"demapper.llr_width": 32, "demapper.llr_fraction": 0}))
+    d = spec.demapper
+    frac = design.metric_fraction + (d.scale_fraction if d.scale_width else 0)
+    width = design.widths["product"][0] + 1
+    if width > 32 or frac > 31:
+        width, frac = 32, min(frac, 31)
+    return {"demapper.llr_width": width, "demapper.llr_fraction": min(frac, width - 1)}
+
+
+def reference_spec(spec: DesignSpec, esn0_db: float) -> DesignSpec:
+    """The spec with a fine, unclipped demapper input at `esn0_db` and exact LLR words (the explorer's reference)."""
+    const = derive(spec).constellation
+    peak = float(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
+    sigma_amp = math.sqrt(10.0 ** (-esn0_db / 10.0) / 2.0) / const.kappa
+    last = None
+    for f in range(REFERENCE_INPUT_FRACTION, -1, -1):
+        reach = (peak + 1.0 + 8.0 * sigma_amp) * 2 ** f
+        width = min(int(reach).bit_length() + 1, 20)
+        try:
+            cand = spec.with_settings({"demapper.input_width": width, "demapper.input_fraction": f})
+            cand = cand.with_settings(_exact_llr_settings(cand))
+            derive(cand)
+            return cand
+        except SpecError as exc:
+            last = exc
+    raise last if last else SpecError("demapper", spec.demapper, "a demapper the explorer can widen")
+
+
+def _min_input_width(spec: DesignSpec, f: int) -> int | None:
+    for w in range(max(2, f + 2), 21):
+        try:
+            derive(spec.with_settings({"demapper.input_width": w, "demapper.input_fraction": f}))
+            return w
+        except SpecError:
+            continue
+    return None
+
+
+@dataclass
+class _Probe:
+    """GMI of fixed chains at the operating point against a reference, as a linearized loss (dB)."""
+
+    esn0_db: float
+    symbols: int
+    seed: int
+    ref_gmi: float
+    ref_batches: np.ndarray
+    slope: float                     # bits per dB of the reference GMI curve at the operating point
+    evaluations: int = 0
+
+    def loss(self, spec: DesignSpec, *, ideal_mapper: bool) -> dict[str, Any]:
+        try:
+            design = derive(spec)
+        except SpecError as exc:
+            return {"loss_db": None, "error": str(exc)}
+        st = Chain(design, ideal_mapper=ideal_mapper).run(self.esn0_db, self.symbols, self.seed, floats=False)[0]
+        self.evaluations += 1
+        full = (self.ref_gmi - st.gmi_fixed) / self.slope
+        per = (self.ref_batches - st.gmi_fixed_batches) / self.slope
+        half = T_975 * float(np.std(per, ddof=1)) / math.sqrt(BATCHES)
+        return {"loss_db": full, "loss_db_ci95": [full - half, full + half], "gmi": st.gmi_fixed,
+                "llr_factor": st.factor_fixed}
+
+
+def explore_widths(spec: DesignSpec, *, budget_db: float = DEFAULT_BUDGET_DB,
+                   symbols: int = DEFAULT_EXPLORE_SYMBOLS, seed: int = DEFAULT_SEED,
+                   operating_point_db: float | None = None, gmi_fraction: float = DEFAULT_GMI_FRACTION,
+                   label: str = "widths") -> dict[str, Any]:
+    """Sweep mapper, demapper input and LLR widths; recommend the smallest within `budget_db`.
+
+    Each stage is swept with the other two at reference precision (ideal mapper, fine unclipped
+    input, exact LLR words); its loss is the GMI gap to the reference at the operating point
+    divided by the slope of the reference GMI curve there (dB, linearized: accurate for small
+    losses). Stage losses add to first order, so each stage gets an equal share of the budget;
+    the combination is then measured and widened stage by stage until it fits the budget.
+    """
+    if not isinstance(budget_db, (int, float)) or not 0 < budget_db <= 10:
+        raise SpecError("budget_db", budget_db, "a loss budget in dB, above 0 and at most 10")
+    check_symbols(symbols, spec.bits)
+    base = derive(spec)
+    k = base.bits
+    exact_chain = Chain(base)
+    if operating_point_db is None:
+        if not 0.0 < gmi_fraction < 1.0:
+            raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
+        op = find_operating_point(exact_chain, gmi_fraction * k, seed)
+    else:
+        op = float(operating_point_db)
+    ref = reference_spec(spec, op)
+    ref_chain = Chain(derive(ref), ideal_mapper=True)
+    st0 = ref_chain.run(op, symbols, seed)[0]
+    lo = ref_chain.run(op - 0.1, symbols, seed, floats=False)[0].gmi_fixed
+    hi = ref_chain.run(op + 0.1, symbols, seed, floats=False)[0].gmi_fixed
+    slope = max((hi - lo) / 0.2, 1e-6)
+    probe = _Probe(op, symbols, seed, st0.gmi_fixed, st0.gmi_fixed_batches, slope)
+    algorithm = spec.demapper.algorithm
+    stages = ["mapper", "input"] + ([] if algorithm == "hard" else ["llr"])
+    share = budget_db / len(stages)
+    m = spec.mapper
+    input_keys = {"demapper.input_width": ref.demapper.input_width,
+                  "demapper.input_fraction": ref.demapper.input_fraction}
+    steps = len(MAPPER_WIDTHS) + len(INPUT_FRACTIONS) * (INPUT_EXTRA_BITS + 1) + sum(LLR_WIDTHS)
+    bar = _progress(steps, label)
+    done = 0
+
+    # mapper: the largest fraction that fits each width (unit-power), or the width alone (full-scale)
+    mapper_rows = []
+    for w in MAPPER_WIDTHS:
+        done += 1
+        bar(done)
+        fracs = range(w - 1, -1, -1) if m.scaling == "unit-power" else (m.fraction if m.fraction < w else 0,)
+        for f in fracs:
+            try:
+                cand = ref.with_settings({"mapper.width": w, "mapper.fraction": f})
+                derive(cand)
+            except SpecError:
+                continue
+            row = {"width": w, "fraction": f if m.scaling == "unit-power" else None}
+            row.update(probe.loss(cand, ideal_mapper=False))
+            row["evm_db"] = mapper_evm(derive(cand))["evm_db"]
+            mapper_rows.append(row)
+            break
+
+    # demapper input: width and fraction, with exact LLR words for each
+    input_rows = []
+    for f in INPUT_FRACTIONS:
+        wmin = _min_input_width(ref, f)
+        for extra in range(INPUT_EXTRA_BITS + 1):
+            done += 1
+            bar(done)
+            if wmin is None or wmin + extra > 20:
+                continue
+            try:
+                cand = ref.with_settings({"demapper.input_width": wmin + extra, "demapper.input_fraction": f})
+                cand = cand.with_settings(_exact_llr_settings(cand))
+            except SpecError:
+                continue
+            row = {"width": wmin + extra, "fraction": f}
+            row.update(probe.loss(cand, ideal_mapper=True))
+            input_rows.append(row)
+
+    # LLR words: every fraction of each width, the best kept
+    llr_rows = []
+    if "llr" in stages:
+        for w in LLR_WIDTHS:
+            for f in range(w):
+                done += 1
+                bar(done)
+                cand = ref.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": f})
+                row = {"width": w, "fraction": f}
+                row.update(probe.loss(cand, ideal_mapper=True))
+                llr_rows.append(row)
+    bar(steps)
+
+    def best_per_width(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        best: dict[int, dict[str, Any]] = {}
+        for r in rows:
+            if r.get("loss_db") is None:
+                continue
+            cur = best.get(r["width"])
+            if cur is None or r["loss_db"] < cur["loss_db"]:
+                best[r["width"]] = r
+        return [best[w] for w in sorted(best)]
+
+    curves = {"mapper": best_per_width(mapper_rows), "input": best_per_width(input_rows),
+              "llr": best_per_width(llr_rows)}
+
+    def pick(stage: str, start_after: int | None = None) -> dict[str, Any] | None:
+        rows = curves[stage]
+        for r in rows:
+            if start_after is not None and r["width"] <= start_after:
+                continue
+            if r["loss_db"] <= share or start_after is not None:
+                return r
+        return rows[-1] if rows and start_after is None else None
+
+    chosen = {s: pick(s) for s in stages}
+
+    def combined_spec(ch: dict[str, dict[str, Any]]) -> tuple[DesignSpec, dict[str, Any]]:
+        settings: dict[str, Any] = {"mapper.width": ch["mapper"]["width"]}
+        if m.scaling == "unit-power":
+            settings["mapper.fraction"] = ch["mapper"]["fraction"]
+        settings["demapper.input_width"] = ch["input"]["width"]
+        settings["demapper.input_fraction"] = ch["input"]["fraction"]
+        cand = spec.with_settings(settings)
+        if "llr" in ch:
+            w = ch["llr"]["width"]
+            best = None
+            for f in range(w):
+                trial = cand.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": f})
+                r = probe.loss(trial, ideal_mapper=False)
+                if r["loss_db"] is not None and (best is None or r["loss_db"] < best[1]["loss_db"]):
+                    best = (f, r)
+            settings["demapper.llr_width"] = w
+            settings["demapper.llr_fraction"] = best[0]
+            return cand.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": best[0]}), \
+                {"settings": settings, **best[1]}
+        return cand, {"settings": settings, **probe.loss(cand, ideal_mapper=False)}
+
+    combo_spec, combo = combined_spec(chosen)
+    rounds = 0
+    while combo["loss_db"] > budget_db and rounds < 12:
+        rounds += 1
+        order = sorted(stages, key=lambda s: -chosen[s]["loss_db"])
+        for s in order:
+            nxt = pick(s, start_after=chosen[s]["width"])
+            if nxt is not None:
+                chosen[s] = nxt
+                break
+        else:
+            break
+        combo_spec, combo = combined_spec(chosen)
+    current = probe.loss(spec, ideal_mapper=False)
+    current["settings"] = {"mapper.width": m.width, "mapper.fraction": m.fraction,
+                           "demapper.input_width": spec.demapper.input_width,
+                           "demapper.input_fraction": spec.demapper.input_fraction,
+                           "demapper.llr_width": spec.demapper.llr_width,
+                           "demapper.llr_fraction": spec.demapper.llr_fraction}
+    full = implementation_loss(derive(combo_spec), symbols, seed, operating_point_db=op if operating_point_db is not None else None,
+                               gmi_fraction=gmi_fraction, label="check")
+    combo["loss_db_vs_exact"] = full.loss_db_vs_exact
+    combo["loss_db_vs_exact_ci95"] = full.loss_db_vs_exact_ci95
+    combo["loss_db_vs_maxlog"] = full.loss_db_vs_maxlog
+    combo["loss_db_vs_maxlog_ci95"] = full.loss_db_vs_maxlog_ci95
+    combo["within_budget"] = bool(combo["loss_db"] <= budget_db)
+    ref_settings = {"mapper": "ideal (float points)", **input_keys,
+                    "demapper.llr_width": ref.demapper.llr_width, "demapper.llr_fraction": ref.demapper.llr_fraction}
+    return {
+        "operating_point_esn0_db": op, "budget_db": budget_db, "stage_share_db": share, "symbols": symbols,
+        "seed": seed, "batches": BATCHES, "algorithm": algorithm,
+        "reference": ref_settings, "reference_gmi": st0.gmi_fixed, "slope_bits_per_db": slope,
+        "reference_loss_db_vs_exact": (st0.gmi_exact - st0.gmi_fixed) / slope,
+        "mapper": mapper_rows, "input": input_rows, "llr": llr_rows,
+        "mapper_best": curves["mapper"], "input_best": curves["input"], "llr_best": curves["llr"],
+        "chosen": {s: {"width": chosen[s]["width"], "fraction": chosen[s]["fraction"],
+                       "loss_db": chosen[s]["loss_db"]} for s in stages},
+        "recommended": combo, "current": current, "evaluations": probe.evaluations,
+        "method": ("linearized loss: (reference GMI - candidate GMI) / reference slope at the operating point; "
+                   "each stage swept with the others at reference precision; common random numbers"),
+    }
+
+
+def widths_table(result: dict[str, Any]) -> str:
+    """A plain-text table of the explorer's per-width losses and its recommendation."""
+    lines = [f"operating point Es/N0 {result['operating_point_esn0_db']:.2f} dB, budget {result['budget_db']:g} dB "
+             f"({result['stage_share_db']:.3f} dB per stage), {result['symbols']} symbols, seed {result['seed']}",
+             f"{'stage':<8} {'width':>5} {'frac':>5} {'loss dB':>9} {'95% interval':>21}"]
+    for stage in ("mapper", "input", "llr"):
+        for r in result[f"{stage}_best"]:
+            ci = r.get("loss_db_ci95") or [math.nan, math.nan]
+            frac = "-" if r["fraction"] is None else str(r["fraction"])
+            mark = " <" if result["chosen"].get(stage, {}).get("width") == r["width"] else ""
+            lines.append(f"{stage:<8} {r['width']:>5} {frac:>5} {r['loss_db']:>9.4f} "
+                         f"[{ci[0]:>8.4f}, {ci[1]:>8.4f}]{mark}")
+    rec = result["recommended"]
+    lines.append("recommended: " + ", ".join(f"{k} = {v}" for k, v in rec["settings"].items()))
+    ci = rec.get("loss_db_ci95") or [math.nan, math.nan]
+    lines.append(f"  loss {rec['loss_db']:.4f} dB [{ci[0]:.4f}, {ci[1]:.4f}] vs the reference "
+                 f"({'within' if rec['within_budget'] else 'OVER'} budget)")
+    if rec.get("loss_db_vs_exact") is not None:
+        lines.append(f"  loss vs float exact log-MAP {rec['loss_db_vs_exact']:.4f} dB, "
+                     f"vs float max-log {rec['loss_db_vs_maxlog']:.4f} dB")
+    cur = result["current"]
+    if cur.get("loss_db") is not None:
+        lines.append(f"current spec: loss {cur['loss_db']:.4f} dB vs the reference")
+    return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------- the analysis document
+
+THEORY_SOURCE = ("K. Cho and D. Yoon, 'On the general BER expression of one- and two-dimensional amplitude "
+                 "modulations', IEEE Trans. Commun. 50(7), 2002 (exact, Gray square M-QAM)")
+GMI_SOURCE = ("BICM GMI (bits/symbol) with the LLR scaled by the factor that maximizes it; G. Caire, G. Taricco "
+              "and E. Biglieri, 'Bit-interleaved coded modulation', IEEE Trans. Inf. Theory 44(3), 1998")
+
+
+def _num(x: Any, digits: int = 7) -> Any:
+    """JSON-friendly number: rounded to `digits` significant digits; nan/inf -> None."""
+    if x is None:
+        return None
+    if isinstance(x, (list, tuple, np.ndarray)):
+        return [_num(v, digits) for v in x]
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    x = float(x)
+    if not math.isfinite(x):
+        return None
+    return float(f"{x:.{digits}g}")
+
+
+def _ci(full: float | None, batches: np.ndarray | None) -> list[float] | None:
+    se = _stderr(batches)
+    if full is None or se is None:
+        return None
+    return [full - T_975 * se, full + T_975 * se]
+
+
+def point_record(st: PointStats, design: Design) -> dict[str, Any]:
+    """One SNR point of analysis.json (the keys the issue names, plus confidence and diagnostics)."""
+    k = st.bits
+    ber_theory = float(ber_gray_qam(design.constellation.order, st.esn0_db)[0]) if theory_applies(design) else None
+    rec = {
+        "esn0_db": st.esn0_db, "ebn0_db": st.ebn0_db,
+        "ber_fixed": st.ber_fixed, "ber_theory": ber_theory,
+        "gmi_fixed": st.gmi_fixed, "gmi_maxlog": st.gmi_maxlog, "gmi_exact": st.gmi_exact,
+        "ber_fixed_ci95": _ci(st.ber_fixed, st.ber_fixed_batches),
+        "bit_errors_fixed": st.bit_errors_fixed,
+        # no error seen: the one-sided 95 % upper bound ~ 3 / bits (the 'rule of three')
+        "ber_fixed_upper95": (3.0 / (st.symbols * k)) if st.bit_errors_fixed == 0 else None,
+        "ber_exact": st.ber_exact, "ber_maxlog": st.ber_maxlog,
+        "gmi_fixed_ci95": _ci(st.gmi_fixed, st.gmi_fixed_batches),
+        "gmi_maxlog_ci95": _ci(st.gmi_maxlog, st.gmi_maxlog_batches),
+        "gmi_exact_ci95": _ci(st.gmi_exact, st.gmi_exact_batches),
+        "llr_factor_fixed": st.factor_fixed, "nats_per_llr_code": st.nats_per_code,
+        "llr_factor_maxlog": st.factor_maxlog,
+        "input_noise_db": st.input_noise_db, "input_clip_percent": st.input_clip_percent,
+        "reliability_code": st.reliability_code,
+        "shannon_capacity": float(shannon_capacity(st.esn0_db)),
+    }
+    return {key: _num(v) for key, v in rec.items()}
+
+
+def default_sweep(operating_point_db: float) -> list[float]:
+    """Es/N0 points (dB) when none are given: 1 dB steps from 8 dB below to 6 dB above the operating point."""
+    start = math.floor(operating_point_db) - 8
+    return [float(start + i) for i in range(15)]
+
+
+def run_analysis(spec: DesignSpec, *, esn0_db: Sequence[float] | None = None, symbols: int = DEFAULT_SYMBOLS,
+                 seed: int = DEFAULT_SEED, operating_point_db: float | None = None,
+                 gmi_fraction: float = DEFAULT_GMI_FRACTION, ber_floor: float | None = None) -> dict[str, Any]:
+    """The SNR sweep, the implementation loss and the quantization figures of one design, as analysis.json."""
+    design = derive(spec)
+    k = design.bits
+    check_symbols(symbols, k, ber_floor)
+    if operating_point_db is not None and not SNR_LIMITS_DB[0] <= operating_point_db <= SNR_LIMITS_DB[1]:
+        raise SpecError("operating_point", operating_point_db,
+                        f"an Es/N0 from {SNR_LIMITS_DB[0]:g} to {SNR_LIMITS_DB[1]:g} dB")
+    chain = Chain(design)
+    loss = implementation_loss(design, symbols, seed, operating_point_db=operating_point_db,
+                               gmi_fraction=gmi_fraction, chain=chain)
+    op = loss.operating_point_esn0_db
+    points = list(esn0_db) if esn0_db else default_sweep(op)
+    stats = sweep(design, points, symbols, seed, chain=chain)
+    evm = mapper_evm(design)
+    noise = input_noise(design)
+    n0_op = 10.0 ** (-op / 10.0)
+    d = spec.demapper
+    doc: dict[str, Any] = {
+        "design": spec.name, "order": design.constellation.order, "labeling": spec.constellation.labeling,
+        "algorithm": d.algorithm, "bits_per_symbol": k,
+        "symbols": symbols, "seed": seed, "batches": BATCHES,
+        "points": [point_record(st, design) for st in stats],
+        "evm_db": _num(evm["evm_db"]), "evm_percent": _num(evm["evm_percent"]),
+        "evm_uniform_model_db": _num(evm["evm_uniform_model_db"]), "mapper_power_db": _num(evm["mapper_power_db"]),
+        "mapper_lsb": _num(design.mapper_lsb),
+        "input_lsb": _num(noise["input_lsb"]), "input_noise_db": _num(noise["input_noise_db"]),
+        "input_noise_to_n0_db": _num(noise["input_noise_db"] - 10.0 * math.log10(n0_op)),
+        "input_headroom_db": _num(noise["input_headroom_db"]),
+        "llr_lsb": _num(design.llr_lsb),
+        "operating_point_esn0_db": _num(op), "operating_point_ebn0_db": _num(op - 10.0 * math.log10(k)),
+        "operating_point_gmi": _num(loss.gmi_target),
+        "operating_point_rule": (f"given: Es/N0 = {operating_point_db:g} dB" if operating_point_db is not None
+                                 else f"float exact GMI = {gmi_fraction:g} x log2(M)"),
+        "loss_db_vs_exact": _num(loss.loss_db_vs_exact), "loss_db_vs_exact_ci95": _num(loss.loss_db_vs_exact_ci95),
+        "loss_db_vs_maxlog": _num(loss.loss_db_vs_maxlog),
+        "loss_db_vs_maxlog_ci95": _num(loss.loss_db_vs_maxlog_ci95),
+        "ber_at_operating_point": _num(loss.ber_target),
+        "ber_loss_db_vs_exact": _num(loss.ber_loss_db_vs_exact),
+        "ber_loss_db_vs_exact_ci95": _num(loss.ber_loss_db_vs_exact_ci95),
+        "ber_loss_db_vs_maxlog": _num(loss.ber_loss_db_vs_maxlog),
+        "ber_loss_db_vs_maxlog_ci95": _num(loss.ber_loss_db_vs_maxlog_ci95),
+        "loss_note": loss.note,
+        "loss_grid": [point_record(st, design) for st in loss.grid],
+        "reliability_code": chain.scale_code,
+        "reliability_rule": (None if not chain.has_scale else "fixed code" if chain.scale_code is not None
+                             else "round(2^scale_fraction / N0) clamped to 1..max: an ideal 1/N0 estimate"),
+        "theory": THEORY_SOURCE if theory_applies(design) else "none: the labeling is not Gray-type square QAM",
+        "gmi_definition": GMI_SOURCE,
+        "method": ("AWGN, Es = mean energy of the mapper's output; common random numbers at every point; "
+                   f"{BATCHES} independent batches (95 % intervals by batch means, Student t); float LLRs "
+                   "of the ideal constellation on the same noise; loss = horizontal distance of the curves on a "
+                   "0.1 dB grid around the operating point, linearly interpolated"),
+    }
+    if ber_floor is not None:
+        doc["ber_floor"] = ber_floor
+    return doc
+
+
+def to_json(doc: dict[str, Any]) -> str:
+    """Deterministic JSON (sorted keys, rounded numbers, no timestamps)."""
+    return json.dumps(_clean(doc), indent=2, sort_keys=True) + "\n"
+
+
+def _clean(x: Any) -> Any:
+    if isinstance(x, dict):
+        return {str(k): _clean(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple, np.ndarray)):
+        return [_clean(v) for v in x]
+    if isinstance(x, (float, int, np.floating, np.integer)) and not isinstance(x, bool):
+        return _num(x)
+    return x
+
+
+def check_seed(seed: int) -> None:
+    if seed < 0 or seed >= 2 ** 63:
+        raise SpecError("--seed", seed, "an integer from 0 to 2^63 - 1")
+
+
+def widths_run(spec: DesignSpec, path: Path, *, budget_db: float = DEFAULT_BUDGET_DB,
+               symbols: int = DEFAULT_EXPLORE_SYMBOLS, seed: int = DEFAULT_SEED, operating_point_db: float | None = None,
+               gmi_fraction: float = DEFAULT_GMI_FRACTION) -> dict[str, Any]:
+    """`qamsmith widths`: check the arguments, explore, write the JSON table at `path`."""
+    check_seed(seed)
+    if not 0 < gmi_fraction < 1:
+        raise SpecError("--gmi-target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
+    if path.exists() and path.is_dir():
+        raise SpecError("--json", str(path), "a file path (a directory is in the way)")
+    probe_directory(path, key="--json")        # fail before the long computation, not after it
+    result = explore_widths(spec, budget_db=budget_db, symbols=symbols, seed=seed,
+                            operating_point_db=operating_point_db, gmi_fraction=gmi_fraction)
+    result["design"] = spec.name
+    write_file(path, to_json(result), key="--json")
+    return result
+
+
+__all__ = ["BATCHES", "Chain", "LossResult", "PointStats", "ber_gray_qam", "best_scale", "check_symbols",
+           "esn0_from_ebn0", "explore_widths", "gmi_direct", "implementation_loss", "input_noise", "mapper_evm",
+           "check_seed", "parse_snr", "run_analysis", "widths_run", "shannon_capacity", "sweep", "to_json", "widths_table"]

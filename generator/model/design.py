@@ -1,0 +1,283 @@
+"""`derive(spec) -> Design`: every number the model, the RTL and the manifest need, computed once.
+
+A `Design` is immutable: its arrays are read-only and its tables are built before it is. For a
+product labeling, each axis' demapper output is a function of that axis' input code alone, so
+`derive` evaluates the integer steps (`model.steps`) once over every input code; those results
+size the internal widths and become the fast path's per-axis tables.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+from types import MappingProxyType
+from typing import Mapping
+
+import numpy as np
+
+from ..errors import SpecError
+from ..numbers import Axis, Constellation, QFormat, bits_for_range, from_table, named, round_float
+from ..spec import DesignSpec
+from .steps import AxisDemap, OutputStage, axis_steps, decide, output
+
+#: int64 products must stay below this (the model's exactness limit and a sane hardware limit)
+_PRODUCT_LIMIT = 1 << 62
+
+
+@dataclass(frozen=True, eq=False)
+class Design:
+    """Everything derived from a spec: constellation, formats, tables and internal widths."""
+
+    spec: DesignSpec
+    constellation: Constellation
+    #: mapper output format and the value of one output LSB in normalized units
+    mapper_format: QFormat
+    mapper_lsb: float
+    #: mapper I and Q codes of every label, shape (M,)
+    point_i: np.ndarray
+    point_q: np.ndarray
+    #: per-axis mapper level codes, indexed by level n (product labelings); empty otherwise
+    level_codes: tuple[np.ndarray, ...]
+    input_format: QFormat
+    input_lsb: float
+    llr_format: QFormat
+    llr_lsb: float
+    scale_format: QFormat | None
+    scale_lsb: float
+    #: fraction bits of the LLR magnitude before the output stage
+    metric_fraction: int
+    output_stage: OutputStage
+    #: per-axis demapper data of the axes that carry bits (product labelings)
+    axes: tuple[AxisDemap, ...]
+    #: input codes of every point (2-D search only), shape (M,)
+    search_i: np.ndarray
+    search_q: np.ndarray
+    #: internal widths of the model's intermediates: name -> (width, signed)
+    widths: Mapping[str, tuple[int, bool]]
+    #: per-axis magnitude/negative tables over every input code (product labelings)
+    tables: tuple[tuple[np.ndarray, np.ndarray], ...]
+    #: per-axis final LLR tables (N_codes, k), when there is no reliability input
+    llr_tables: tuple[np.ndarray, ...]
+    hard_tables: tuple[np.ndarray, ...]
+
+    @property
+    def bits(self) -> int:
+        return self.constellation.bits
+
+    @property
+    def per_axis(self) -> bool:
+        return self.constellation.axes is not None
+
+    @property
+    def output_shift(self) -> int:
+        """Right shift of the output stage (negative: an exact left shift)."""
+        return self.output_stage.shift
+
+    @property
+    def input_codes(self) -> np.ndarray:
+        """Every demapper input code of one axis, from the most negative up."""
+        return np.arange(self.input_format.min_code, self.input_format.max_code + 1, dtype=np.int64)
+
+
+def constellation_of(spec: DesignSpec) -> Constellation:
+    c = spec.constellation
+    if c.labeling == "table":
+        return from_table(c.order, c.table)
+    return named(c.order, c.labeling)
+
+
+def _frozen(*arrays: np.ndarray) -> None:
+    for a in arrays:
+        a.setflags(write=False)
+
+
+@lru_cache(maxsize=64)
+def derive(spec: DesignSpec) -> Design:
+    """Derive and check everything the model, the RTL and the manifest need (raises SpecError)."""
+    const = constellation_of(spec)
+    d = spec.demapper
+    if d.algorithm == "folded" and not const.gray_type:
+        raise SpecError("demapper.algorithm", "folded",
+                        f"maxlog or hard for labeling {spec.constellation.labeling!r} at order "
+                        f"{const.order} (folded needs a Gray-type product labeling)")
+    if spec.mapper.implementation == "logic" and not _logic_capable(const):
+        raise SpecError("mapper.implementation", "logic",
+                        "rom for this labeling (logic needs a Gray-type or natural product labeling)")
+    mfmt, mlsb, pi, pq, levels = _mapper_tables(spec, const)
+    ifmt = QFormat(d.input_width, d.input_fraction)
+    f = d.input_fraction
+    _check_input_range(spec, const, ifmt)
+    lfmt = QFormat(d.llr_width, d.llr_fraction)
+    sfmt = QFormat(d.scale_width, d.scale_fraction, signed=False) if d.scale_width else None
+    kappa = const.kappa
+    axes: tuple[AxisDemap, ...] = ()
+    search_i = search_q = np.zeros(0, np.int64)
+    if const.axes is not None:
+        axes = tuple(_axis_demap(ax, f) for ax in const.axes if ax.bits)
+        metric_fraction = f
+    else:
+        search_i = round_float(const.points.real * 2.0 ** f, "half-even")
+        search_q = round_float(const.points.imag * 2.0 ** f, "half-even")
+        if len(set(zip(search_i.tolist(), search_q.tolist()))) != const.order:
+            raise SpecError("demapper.input_fraction", f, "more fraction bits: the table's points collide on the input grid")
+        metric_fraction = 2 * f + 2
+    _frozen(search_i, search_q)
+    stage = OutputStage(shift=metric_fraction + (d.scale_fraction if sfmt else 0) - d.llr_fraction,
+                        rounding=d.rounding, llr_max=lfmt.max_code)
+    # the per-axis steps over every input code: they size the widths and become the fast path's tables
+    codes = np.arange(ifmt.min_code, ifmt.max_code + 1, dtype=np.int64)
+    steps = [axis_steps(ad, d.algorithm, f, codes) for ad in axes]
+    widths = _widths(spec, ifmt, sfmt, axes, steps, search_i, search_q, codes)
+    tables, llr_tables, hard_tables = _tables(const.bits, axes, steps, stage, sfmt is None)
+    return Design(
+        spec=spec, constellation=const, mapper_format=mfmt, mapper_lsb=mlsb, point_i=pi, point_q=pq,
+        level_codes=levels, input_format=ifmt, input_lsb=kappa * 2.0 ** -f, llr_format=lfmt,
+        # one LLR LSB = 2^-llr_fraction metric units; a metric unit is (2 amplitude units)^2 = 4 kappa^2
+        llr_lsb=4.0 * kappa * kappa * 2.0 ** -d.llr_fraction, scale_format=sfmt,
+        scale_lsb=(2.0 ** -d.scale_fraction) if sfmt else 1.0, metric_fraction=metric_fraction,
+        output_stage=stage, axes=axes, search_i=search_i, search_q=search_q,
+        widths=MappingProxyType(widths), tables=tables, llr_tables=llr_tables, hard_tables=hard_tables)
+
+
+def _check_input_range(spec: DesignSpec, const: Constellation, ifmt: QFormat) -> None:
+    """The outermost level must be an input code (levels on the grid)."""
+    f = spec.demapper.input_fraction
+    peak = int(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
+    if const.on_grid and peak and (peak << f) > ifmt.max_code:
+        minimum = (max(peak, 1) << f).bit_length() + 1
+        raise SpecError("demapper.input_width", spec.demapper.input_width,
+                        f"at least {minimum} bits to hold the outermost level at input_fraction {f}")
+
+
+def _logic_capable(const: Constellation) -> bool:
+    if const.axes is None:
+        return False
+    return all(a.gray_mask is not None or a.codes == tuple(range(a.levels)) for a in const.axes if a.bits)
+
+
+def _mapper_tables(spec: DesignSpec, const: Constellation):
+    """Mapper output codes per label (and per-axis levels), checked for collisions and clipping."""
+    m = spec.mapper
+    fmt = QFormat(m.width, m.fraction if m.scaling == "unit-power" else 0)
+    kappa = const.kappa
+    peak = float(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
+    if m.scaling == "unit-power":
+        per_amp = kappa * 2.0 ** m.fraction            # output codes per amplitude unit
+        key, value = "mapper.fraction", m.fraction
+    else:
+        per_amp = fmt.max_code * 10.0 ** (-m.backoff_db / 20.0) / peak
+        key, value = "mapper.width", m.width
+
+    def codes(x: np.ndarray) -> np.ndarray:
+        return round_float(np.asarray(x, dtype=np.float64) * per_amp, m.rounding)
+
+    ci, cq = codes(const.points.real), codes(const.points.imag)
+    top = int(max(np.max(np.abs(ci)), np.max(np.abs(cq))))
+    if top > fmt.max_code or -top < fmt.min_code:
+        limit = m.fraction - (top // (fmt.max_code + 1)).bit_length()
+        raise SpecError(key, value, f"the outermost level ({top}) exceeds the {m.width}-bit output; "
+                        f"use mapper.fraction <= {limit} or a wider mapper.width")
+    if len(set(zip(ci.tolist(), cq.tolist()))) != const.order or (
+            const.axes is not None and any(len(set(codes(a.amplitudes).tolist())) != a.levels for a in const.axes)):
+        raise SpecError(key, value, f"at least {_mapper_minimum(spec, const, peak)} "
+                        f"{'fraction bits' if key == 'mapper.fraction' else 'bits'}: mapper levels collide at this resolution")
+    levels = tuple(codes(a.amplitudes) for a in const.axes) if const.axes is not None else ()
+    lsb = kappa / per_amp
+    _frozen(ci, cq, *levels)
+    return fmt, lsb, ci, cq, levels
+
+
+def _mapper_minimum(spec: DesignSpec, const: Constellation, peak: float) -> int:
+    """Smallest mapper.fraction (unit-power) or mapper.width (full-scale) keeping every level distinct."""
+    m = spec.mapper
+    start = (m.fraction if m.scaling == "unit-power" else m.width) + 1
+    for n in range(start, 63):
+        per_amp = (const.kappa * 2.0 ** n if m.scaling == "unit-power"
+                   else ((1 << (n - 1)) - 1) * 10.0 ** (-m.backoff_db / 20.0) / peak)
+        ci = round_float(const.points.real * per_amp, m.rounding)
+        cq = round_float(const.points.imag * per_amp, m.rounding)
+        if len(set(zip(ci.tolist(), cq.tolist()))) == const.order and (const.axes is None or all(
+                len(set(round_float(a.amplitudes * per_amp, m.rounding).tolist())) == a.levels for a in const.axes)):
+            return n
+    return 63
+
+
+def _axis_demap(ax: Axis, f: int) -> AxisDemap:
+    """Competitor tables by brute force over the axis labeling (exact for any labeling), and the level grid."""
+    L, m = ax.levels, ax.bits
+    codes = np.asarray(ax.codes)
+    comp = np.zeros((m, L, 2), dtype=np.int64)
+    for j in range(m):
+        bit = ax.axis_bit(codes, j)
+        for n in range(L):
+            others = np.flatnonzero(bit != bit[n])
+            left = others[others < n]
+            right = others[others > n]
+            kl = n - left.max() if left.size else None
+            kr = right.min() - n if right.size else None
+            for neg in (0, 1):
+                if kr is None or (kl is not None and (kl < kr or (kl == kr and neg))):
+                    comp[j, n, neg] = -kl
+                else:
+                    comp[j, n, neg] = kr
+    uses_sign = tuple(bool(np.any(comp[j, :, 0] != comp[j, :, 1])) for j in range(m))
+    mask = ax.gray_mask
+    inverted = tuple(bool(mask is not None and (mask >> (m - 1 - j)) & 1) for j in range(m))
+    comp.setflags(write=False)
+    return AxisDemap(ax, comp, uses_sign, inverted,
+                     level_input_codes=tuple(int(a) << f for a in ax.amplitudes),
+                     boundaries=tuple((2 * n - L + 2) << f for n in range(L - 1)))
+
+
+def _widths(spec: DesignSpec, ifmt: QFormat, sfmt: QFormat | None, axes: tuple[AxisDemap, ...], steps: list,
+            search_i: np.ndarray, search_q: np.ndarray, codes: np.ndarray) -> dict[str, tuple[int, bool]]:
+    """Widths of the model's intermediates from their exact range over every input code."""
+    d = spec.demapper
+    w: dict[str, tuple[int, bool]] = {}
+    smax = sfmt.max_code if sfmt else 1
+    if axes:
+        e_lo = e_hi = dn_max = mag_max = 0
+        for ad, (mag, _, _) in zip(axes, steps):
+            _, e = decide(ad, codes, d.input_fraction)
+            e_lo, e_hi = min(e_lo, int(e.min())), max(e_hi, int(e.max()))
+            dn_max = max(dn_max, int(np.abs(ad.competitor).max()))
+            mag_max = max(mag_max, int(mag.max()))
+        w["residual"] = bits_for_range(e_lo, e_hi)
+        w["competitor"] = bits_for_range(-dn_max, dn_max)
+        if d.algorithm == "folded":
+            w["fold"] = (ifmt.width + 1, True)
+    else:
+        corner = max(abs(ifmt.min_code), ifmt.max_code)
+        far = max(int(np.max(np.abs(search_i))), int(np.max(np.abs(search_q)))) + corner
+        mag_max = 2 * far * far
+        w["distance"] = bits_for_range(0, mag_max)
+        w["difference"] = bits_for_range(-mag_max, mag_max)
+    w["magnitude"] = bits_for_range(0, mag_max)
+    product_max = mag_max * smax
+    if product_max >= _PRODUCT_LIMIT:
+        raise SpecError("demapper.scale_width", d.scale_width,
+                        f"a narrower reliability input or demapper.input_width: the scaled metric needs "
+                        f"{product_max.bit_length()} bits, at most 62 supported")
+    w["product"] = bits_for_range(0, product_max)
+    w["llr"] = (d.llr_width, True)
+    return w
+
+
+def _tables(k: int, axes: tuple[AxisDemap, ...], steps: list, stage: OutputStage, final: bool):
+    """The fast path's tables: the per-axis steps over every input code, placed in label-bit columns."""
+    tables, llr_tables, hard_tables = [], [], []
+    for ad, (mag, neg, hard) in zip(axes, steps):
+        cols = list(ad.axis.label_bits)
+        tables.append((mag, neg))
+        full = np.zeros((mag.shape[0], k), dtype=np.int32)
+        if final:
+            full[:, cols] = output(stage, mag, neg, None)
+        llr_tables.append(full)
+        hb = np.zeros((mag.shape[0], k), dtype=np.int8)
+        hb[:, cols] = hard
+        hard_tables.append(hb)
+        _frozen(mag, neg, full, hb)
+    return tuple(tables), tuple(llr_tables), tuple(hard_tables)
+
+
+__all__ = ["Design", "constellation_of", "derive"]

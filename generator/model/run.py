@@ -1,0 +1,148 @@
+"""The bit-exact model on symbols: map labels or bits to output codes, demap input codes to LLRs.
+
+Pure numpy, integer arithmetic only: the contract the generated RTL equals bit for bit.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..numbers import bits_to_labels, label_bits, quantize
+from ..spec import DesignSpec
+from .design import Design, derive
+from .steps import axis_steps, output
+
+
+def _design(spec_or_design: DesignSpec | Design) -> Design:
+    return spec_or_design if isinstance(spec_or_design, Design) else derive(spec_or_design)
+
+
+def map_labels(spec: DesignSpec | Design, labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mapper: integer labels (b0 = MSB) to signed output codes (i, q), int64."""
+    design = _design(spec)
+    labels = np.asarray(labels, dtype=np.int64)
+    if labels.size and (labels.min() < 0 or labels.max() >= design.constellation.order):
+        raise ValueError(f"labels must be in 0..{design.constellation.order - 1}")
+    return np.take(design.point_i, labels), np.take(design.point_q, labels)
+
+
+def map_bits(spec: DesignSpec | Design, bits: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mapper: bits (N, k) of 0/1, column 0 = b0 (first in time), to output codes (i, q)."""
+    design = _design(spec)
+    bits = np.asarray(bits)
+    if bits.ndim != 2 or bits.shape[1] != design.bits:
+        raise ValueError(f"bits must have shape (N, {design.bits})")
+    return map_labels(design, bits_to_labels(bits))
+
+
+def _check_codes(design: Design, i: np.ndarray, q: np.ndarray, scale) -> tuple:
+    ifmt = design.input_format
+    i = np.asarray(i, dtype=np.int64)
+    q = np.asarray(q, dtype=np.int64)
+    if i.shape != q.shape or i.ndim != 1:
+        raise ValueError("i and q must be 1-D arrays of the same length")
+    for name, v in (("i", i), ("q", q)):
+        if v.size and (v.min() < ifmt.min_code or v.max() > ifmt.max_code):
+            raise ValueError(f"{name} codes must be in {ifmt.min_code}..{ifmt.max_code}")
+    if design.scale_format is None:
+        if scale is not None:
+            raise ValueError("this design has no reliability input (demapper.scale_width = 0)")
+    else:
+        if scale is None:
+            raise ValueError("this design needs a reliability scale code per symbol")
+        scale = np.broadcast_to(np.asarray(scale, dtype=np.int64), i.shape)
+        if scale.size and (scale.min() < 0 or scale.max() > design.scale_format.max_code):
+            raise ValueError(f"scale codes must be in 0..{design.scale_format.max_code}")
+    return i, q, scale
+
+
+def demap(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None = None) -> np.ndarray:
+    """Demapper: input codes (i, q) (and reliability codes) to LLR codes, shape (N, k), int32.
+
+    Positive means bit 0 is more likely; column 0 is b0. For algorithm 'hard' the result is
+    the hard-decided bits (0/1) instead.
+    """
+    design = _design(spec)
+    i, q, scale = _check_codes(design, i, q, scale)
+    if design.spec.demapper.algorithm == "hard":
+        return hard_decisions(design, i, q).astype(np.int32)
+    if not design.per_axis:
+        mag, neg, _ = _search(design, i, q)
+        return output(design.output_stage, mag, neg, None if scale is None else scale[:, None]).astype(np.int32)
+    offset = -design.input_format.min_code
+    idx = (i + offset, q + offset)
+    if scale is None:
+        out = np.take(design.llr_tables[0], idx[0], axis=0)
+        if len(design.axes) > 1:
+            out += np.take(design.llr_tables[1], idx[1], axis=0)
+        return out
+    k = design.bits
+    out = np.zeros((i.size, k), dtype=np.int32)
+    for ad, (mag_t, neg_t), ix in zip(design.axes, design.tables, idx):
+        cols = list(ad.axis.label_bits)
+        out[:, cols] = output(design.output_stage, mag_t[ix], neg_t[ix], scale[:, None])
+    return out
+
+
+def demap_direct(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None = None) -> np.ndarray:
+    """`demap` computed through the step functions on the given inputs (no tables); for tests."""
+    design = _design(spec)
+    i, q, scale = _check_codes(design, i, q, scale)
+    if design.spec.demapper.algorithm == "hard" or not design.per_axis:
+        return demap(design, i, q, scale)
+    out = np.zeros((i.size, design.bits), dtype=np.int32)
+    s = None if scale is None else scale[:, None]
+    for ad, y in zip(design.axes, (i, q)):
+        mag, neg, _ = axis_steps(ad, design.spec.demapper.algorithm, design.spec.demapper.input_fraction, y)
+        out[:, list(ad.axis.label_bits)] = output(design.output_stage, mag, neg, s)
+    return out
+
+
+def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray) -> np.ndarray:
+    """Hard-decided bits (N, k) of input codes: the nearest point's label (ties to the upper level)."""
+    design = _design(spec)
+    i, q, _ = _check_codes(design, i, q, 1 if design.scale_format else None)
+    if not design.per_axis:
+        return _search(design, i, q)[2]
+    offset = -design.input_format.min_code
+    out = np.take(design.hard_tables[0], i + offset, axis=0)
+    if len(design.axes) > 1:
+        out |= np.take(design.hard_tables[1], q + offset, axis=0)
+    return out
+
+
+def _search(design: Design, i: np.ndarray, q: np.ndarray, chunk: int = 4096):
+    """Exact 2-D max-log over every point: (|D|, D < 0, hard bits); D in input codes squared."""
+    if i.size > chunk:
+        parts = [_search(design, i[s:s + chunk], q[s:s + chunk], chunk) for s in range(0, i.size, chunk)]
+        return tuple(np.concatenate([p[n] for p in parts]) for n in range(3))
+    k = design.bits
+    di = i[:, None] - design.search_i[None, :]
+    dq = q[:, None] - design.search_q[None, :]
+    dist = di * di + dq * dq                                  # (N, M) int64
+    bits = label_bits(np.arange(design.constellation.order), k).astype(bool)
+    mag = np.empty((i.size, k), dtype=np.int64)
+    neg = np.empty((i.size, k), dtype=bool)
+    for b in range(k):
+        d = dist[:, bits[:, b]].min(axis=1) - dist[:, ~bits[:, b]].min(axis=1)
+        mag[:, b] = np.abs(d)
+        neg[:, b] = d < 0
+    hard = label_bits(np.argmin(dist, axis=1), k)
+    return mag, neg, hard
+
+
+def quantize_input(spec: DesignSpec | Design, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Normalized complex samples to demapper input codes (round half-even, saturate), as an ADC/AGC would."""
+    design = _design(spec)
+    amp = np.asarray(y) / design.constellation.kappa          # amplitude units
+    fmt = design.input_format
+    return quantize(amp.real, fmt, "half-even"), quantize(amp.imag, fmt, "half-even")
+
+
+def llr_scale_to_nats(spec: DesignSpec | Design, n0: float) -> float:
+    """Factor that turns LLR codes (no reliability input) into natural-log LLRs at noise density n0."""
+    return _design(spec).llr_lsb / n0
+
+
+__all__ = ["demap", "demap_direct", "hard_decisions", "llr_scale_to_nats", "map_bits", "map_labels",
+           "quantize_input"]

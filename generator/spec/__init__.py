@@ -1,0 +1,11 @@
+"""Layer 1, the spec: what the user asks for, validated and immutable (TOML, flags and Python land here)."""
+
+from __future__ import annotations
+
+from .design import (ALGORITHMS, LABELINGS, MAX_WIDTH, ORDERS, ROUNDING_MODES, SCALINGS, SECTIONS,
+                     ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec, field_docs, parse_value)
+from .sources import DEFAULT_EXAMPLE, example_summary, examples, load_spec
+
+__all__ = ["ALGORITHMS", "DEFAULT_EXAMPLE", "LABELINGS", "MAX_WIDTH", "ORDERS", "ROUNDING_MODES", "SCALINGS",
+           "SECTIONS", "ConstellationSpec", "DemapperSpec", "DesignSpec", "InterfaceSpec", "MapperSpec",
+           "example_summary", "examples", "field_docs", "load_spec", "parse_value"]

@@ -1,0 +1,3 @@
+"""The generator's version: stamped into every generated file and its content hash."""
+
+__version__ = "0.2.0"
