@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from qamsmith import ConstellationSpec, DemapperSpec, DesignSpec, MapperSpec, SpecError, derive, model
-from qamsmith import analysis as an
+from qamsmith.flows import analysis as an
 
 
 def _spec(order: int, labeling: str = "gray", **demapper) -> DesignSpec:
@@ -104,7 +104,7 @@ def test_fast_float_llrs_equal_the_model(order: int, labeling: str) -> None:
 @pytest.mark.parametrize("example", ["larkspur-spur-16"])
 def test_fast_float_llrs_2d_equal_the_model(repo, example: str) -> None:
     # a table labeling that is not a product: the engine's 2-D float LLRs against the model's references
-    design = derive(DesignSpec.from_toml(repo / "generator" / "examples" / f"{example}.toml"))
+    design = derive(DesignSpec.from_toml(repo / "generator" / "spec" / "examples" / f"{example}.toml"))
     chain = an.Chain(design)
     assert not chain.per_axis
     rng = np.random.default_rng(5)

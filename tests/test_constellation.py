@@ -20,7 +20,7 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from qamsmith.constellation import ORDERS, bits_per_symbol, from_table, label_bits, named
+from qamsmith.numbers.constellation import ORDERS, bits_per_symbol, from_table, label_bits, named
 
 SQUARE_ORDERS = [o for o in ORDERS if o > 2]
 NAMED = ("gray", "3gpp-nr", "ieee-802.11", "natural")

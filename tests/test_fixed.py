@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from fxpmath import Fxp
 
-from qamsmith.fixed import ROUNDING_MODES, QFormat, bits_for_range, quantize, saturate, shift_round
+from qamsmith.numbers.fixed import ROUNDING_MODES, QFormat, bits_for_range, quantize, saturate, shift_round
 
 FXP_ROUNDING = {"half-even": "around", "half-away": "nearest_away", "floor": "floor"}
 

@@ -11,7 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from qamsmith import emit, rtl, verify
+from qamsmith import write_design
+from qamsmith.artifacts import rtl_files
+from qamsmith.flows.tools import lint_verilog, synthesis_gate
 from qamsmith.errors import SpecError
 from qamsmith.model import derive
 from qamsmith.spec import ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec
@@ -73,10 +75,10 @@ def test_verilator_lint_clean(order: int, labeling: str, alg: str, variant: int,
             design = derive(spec)
         except SpecError:
             pytest.skip("the spec refuses this combination (asserted in test_sim)")
-    for path, text in rtl.files(design).items():
+    for path, text in rtl_files(design).items():
         f = tmp_path / Path(path).name
         f.write_text(text)
-        assert verify.lint(f) == [], path
+        assert lint_verilog(f) == [], path
 
 
 def test_lint_reports_a_warning(tmp_path: Path) -> None:
@@ -84,7 +86,7 @@ def test_lint_reports_a_warning(tmp_path: Path) -> None:
     f = tmp_path / "bad_mod.v"
     f.write_text("`default_nettype none\nmodule bad_mod(input wire a, input wire b, output wire y);\n"
                  "  assign y = a;\nendmodule\n")
-    assert any("UNUSED" in ln for ln in verify.lint(f))
+    assert any("UNUSED" in ln for ln in lint_verilog(f))
 
 
 SYNTH = [(256, "3gpp-nr", "maxlog", 0), (4096, "gray", "maxlog", 2), (64, "ieee-802.11", "folded", 1),
@@ -97,10 +99,10 @@ SYNTH = [(256, "3gpp-nr", "maxlog", 0), (4096, "gray", "maxlog", 2), (64, "ieee-
 def test_yosys_synth_no_latch(order: int, labeling: str, alg: str, variant: int, tmp_path: Path) -> None:
     spec = _spec(order, labeling, alg, variant)
     design = derive(spec)
-    emit.write_design(spec, tmp_path)
+    write_design(spec, tmp_path)
     d = tmp_path / spec.name
     for role in ("mapper", "demapper"):
-        rep = verify.synth(d / "rtl" / f"{spec.prefix}_{role}.v", f"{spec.prefix}_{role}", cwd=d)
+        rep = synthesis_gate(d / "rtl" / f"{spec.prefix}_{role}.v", f"{spec.prefix}_{role}", cwd=d)
         assert rep["ok"], (role, rep["warnings"], rep["log"])
         assert not rep["latch"]
         assert rep["cells"] and rep["cells"] > 0

@@ -20,7 +20,7 @@ import math
 import numpy as np
 import pytest
 
-from qamsmith.constellation import ORDERS, bits_per_symbol, label_bits, named
+from qamsmith.numbers.constellation import ORDERS, bits_per_symbol, label_bits, named
 from qamsmith.errors import SpecError
 from qamsmith.model import (demap, demap_direct, derive, hard_decisions, llr_exact, llr_maxlog, map_bits,
                             quantize_input)

@@ -38,11 +38,11 @@ def wheel(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 def test_wheel_holds_templates_and_examples(wheel: Path) -> None:
     names = set(zipfile.ZipFile(wheel).namelist())
-    templates = sorted(p.name for p in (REPO / "templates").glob("*.j2"))
-    examples = sorted(p.name for p in (REPO / "generator" / "examples").iterdir() if p.suffix in (".toml", ".csv"))
+    templates = sorted(p.relative_to(REPO / "templates").as_posix() for p in (REPO / "templates").glob("*/*.j2"))
+    examples = sorted(p.name for p in (REPO / "generator" / "spec" / "examples").iterdir() if p.suffix in (".toml", ".csv"))
     assert templates, "templates/ holds no *.j2"
     assert {f"qamsmith/templates/{t}" for t in templates} <= names
-    assert {f"qamsmith/examples/{e}" for e in examples} <= names
+    assert {f"qamsmith/spec/examples/{e}" for e in examples} <= names
     assert "larkspur-backhaul-256.toml" in examples and "larkspur-telemetry-qpsk.toml" in examples
     entry = next(n for n in names if n.endswith(".dist-info/entry_points.txt"))
     assert "qamsmith = qamsmith.cli:main" in zipfile.ZipFile(wheel).read(entry).decode()
@@ -52,9 +52,9 @@ def test_installed_layout_loads_templates_and_generates(wheel: Path, tmp_path: P
     site = tmp_path / "site"
     zipfile.ZipFile(wheel).extractall(site)
     script = (
-        "import sys, qamsmith, qamsmith.emit as e, qamsmith.cli as c\n"
+        "import sys, qamsmith, qamsmith.hdl as h, qamsmith.cli as c\n"
         "print(qamsmith.__file__)\n"
-        "assert any(n.endswith('.j2') for n in e.jinja_env().list_templates())\n"
+        "assert any(n.endswith('.j2') for n in h.environment().list_templates())\n"
         "sys.exit(c.main(['generate', 'larkspur-telemetry-qpsk', '--out', 'out']))\n"
     )
     env = {**os.environ, "PYTHONPATH": str(site)}

@@ -129,7 +129,7 @@ def test_widths_command(cli, tmp_path: Path) -> None:
 def test_hardware_figures_join_the_report_and_survive_a_new_analysis(tmp_path: Path) -> None:
     """`qamsmith cost` splices report/hardware.md into report.md; a later `analyze` keeps both."""
     from qamsmith.cli import main
-    from qamsmith.report import splice_hardware
+    from qamsmith.flows.report import splice_hardware
 
     assert main(["analyze", "larkspur-telemetry-qpsk", "--out", str(tmp_path), "--snr", "0:3:6", *FAST]) == 0
     report = tmp_path / "larkspur-telemetry-qpsk" / "report"

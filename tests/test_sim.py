@@ -15,8 +15,9 @@ from pathlib import Path
 
 import pytest
 
-from qamsmith import emit, verify
-from qamsmith.constellation import named
+from qamsmith import write_design
+from qamsmith.flows import verify
+from qamsmith.numbers.constellation import named
 from qamsmith.errors import SpecError
 from qamsmith.model import derive
 from qamsmith.spec import ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec
@@ -94,7 +95,7 @@ def matrix_results(tmp_path_factory: pytest.TempPathFactory) -> dict:
             else:
                 results[case] = ("refused", str(exc))
                 continue
-        emit.write_design(spec, root)
+        write_design(spec, root)
         jobs.append((case, root / spec.name))
 
     def run(job):
@@ -137,7 +138,7 @@ def test_matrix(case, matrix_results) -> None:
 def test_bench_catches_a_wrong_expected_word(tmp_path: Path) -> None:
     """Mutation check: one corrupted expected word must be reported (the bench can fail)."""
     spec = matrix_spec(16, "gray", "maxlog", 0)
-    emit.write_design(spec, tmp_path)
+    write_design(spec, tmp_path)
     d = tmp_path / spec.name
     path = d / "vectors" / "demapper_out.hex"
     lines = path.read_text().splitlines()
@@ -152,14 +153,14 @@ def test_bench_catches_a_wrong_expected_word(tmp_path: Path) -> None:
 def test_bench_catches_a_wrong_rtl_constant(tmp_path: Path) -> None:
     """Mutation check: a wrong competitor constant in the generated RTL must be caught."""
     spec = matrix_spec(64, "3gpp-nr", "maxlog", 0)
-    emit.write_design(spec, tmp_path)
+    write_design(spec, tmp_path)
     d = tmp_path / spec.name
     rtl_path = next((d / "rtl").glob("*_demapper.v"))
     text = rtl_path.read_text()
     # (|dn| << f) + (dn > 0) of axis bit 1 at level 1: 3 (dn = +1, f = 1) made 1
-    old = "3'd1: competitor_i1 = 3'd3;"
+    old = "3'd1: dp_i1_table = 3'd3;"
     assert old in text
-    rtl_path.write_text(text.replace(old, "3'd1: competitor_i1 = 3'd1;", 1))
+    rtl_path.write_text(text.replace(old, "3'd1: dp_i1_table = 3'd1;", 1))
     res = verify.run_direct(d, n_random=0)
     assert res.mismatches > 0
 
@@ -184,7 +185,7 @@ OPTIONS = {
 def test_cocotb_benches(option: str, tmp_path: Path) -> None:
     kw = OPTIONS[option]
     spec = DesignSpec(name=f"opt-{option}", constellation=ConstellationSpec(order=64, labeling="3gpp-nr"), **kw)
-    emit.write_design(spec, tmp_path)
+    write_design(spec, tmp_path)
     res = verify.run_cocotb(tmp_path / spec.name, n_random=2000, stream=600, build_dir=tmp_path / "build")
     assert res.failed_tests == 0, res.details
     assert res.mismatches == 0, res.details

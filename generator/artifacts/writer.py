@@ -16,8 +16,8 @@ from typing import Mapping, Sequence
 from ..errors import SpecError
 
 
-def _refuse(key: str, path: Path, exc: OSError) -> SpecError:
-    return SpecError(key, str(path), f"a writable location ({exc.strerror or exc})")
+def _refuse(key: str, path: Path, exc: OSError, what: str = "a writable directory") -> SpecError:
+    return SpecError(key, str(path), f"{what} ({exc.strerror or exc})")
 
 
 def write_file(path: str | Path, data: bytes | str, *, key: str = "--out") -> Path:
@@ -30,7 +30,7 @@ def write_file(path: str | Path, data: bytes | str, *, key: str = "--out") -> Pa
             raise SpecError(key, str(path), "a file path (a directory is in the way)")
         fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     except OSError as exc:
-        raise _refuse(key, path, exc) from None
+        raise _refuse(key, path, exc, "a writable location") from None
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(payload)
@@ -38,7 +38,7 @@ def write_file(path: str | Path, data: bytes | str, *, key: str = "--out") -> Pa
         os.replace(tmp, path)
     except OSError as exc:
         Path(tmp).unlink(missing_ok=True)
-        raise _refuse(key, path, exc) from None
+        raise _refuse(key, path, exc, "a writable location") from None
     return path
 
 
@@ -52,6 +52,20 @@ def probe_directory(target: str | Path, *, key: str = "--out") -> None:
         raise _refuse(key, target.parent, exc) from None
     if target.exists() and not target.is_dir():
         raise SpecError(key, str(target), "a directory (a file of that name is in the way)")
+
+
+def probe_file(path: str | Path, *, key: str = "--out") -> None:
+    """Refuse (SpecError) a file path that could not be written, before any long computation; leaves nothing."""
+    path = Path(path)
+    if path.is_dir():
+        raise SpecError(key, str(path), "a file path (a directory is in the way)")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".probe", dir=path.parent)
+        os.close(fd)
+        os.unlink(tmp)
+    except OSError as exc:
+        raise _refuse(key, path, exc, "a writable location") from None
 
 
 def _umask() -> int:
@@ -112,4 +126,4 @@ def replace_directory(target: str | Path, files: Mapping[str, bytes], *, keep: M
     return target
 
 
-__all__ = ["probe_directory", "replace_directory", "write_file"]
+__all__ = ["probe_directory", "probe_file", "replace_directory", "write_file"]

@@ -33,8 +33,8 @@ def literal(value: int, width: int, signed: bool = False) -> str:
         lo, hi = -(1 << (width - 1)), (1 << (width - 1)) - 1
         if not lo <= value <= hi:
             raise ValueError(f"{value} does not fit a signed {width}-bit literal")
-        if value == lo:
-            return f"-{width}'sh{-lo:x}" if width > 1 else "1'sb1"
+        if value == lo:                          # the most negative code has no positive twin to negate
+            return f"{width}'sh{-lo:x}" if width > 1 else "1'sb1"
         return f"-{width}'sd{-value}" if value < 0 else f"{width}'sd{value}"
     if not 0 <= value < (1 << width):
         raise ValueError(f"{value} does not fit an unsigned {width}-bit literal")
@@ -114,57 +114,69 @@ class Printer:
         self.names.read(n, 0, a.width - 1)
         return n
 
-    def ext(self, a: Operand, width: int) -> str:
-        """a extended (by its own signedness) or truncated to `width` bits."""
-        if isinstance(a, Const):
-            v = int(wrap(a.value, width, a.value < 0))
-            return literal(v, width, v < 0)
+    def sized(self, a: Signal | Bits, width: int) -> tuple[str, bool]:
+        """a extended (by its own signedness) or truncated to `width` bits: (text, whether the text is signed)."""
         w = a.width
         if w == width:
-            return self.ref(a)
-        if w > width:                            # truncation: the low bits
-            if isinstance(a, Bits):
-                return self.ref(Bits(a.signal, a.lo + width - 1, a.lo))
-            return self.ref(Bits(a, width - 1, 0))
+            return self.ref(a), a.signed
+        if w > width:                            # truncation: the low bits (a part-select is unsigned)
+            lo = a.lo if isinstance(a, Bits) else 0
+            return self.ref(Bits(a.signal if isinstance(a, Bits) else a, lo + width - 1, lo)), False
         pad = width - w
         if a.signed:
             msb = self.ref(a.msb if isinstance(a, Signal) else a)
             fill = msb if pad == 1 else f"{{{pad}{{{msb}}}}}"
-            return f"{{{fill}, {self.ref(a)}}}"
-        return f"{{{literal(0, pad)}, {self.ref(a)}}}"
+            return f"{{{fill}, {self.ref(a)}}}", False
+        return f"{{{literal(0, pad)}, {self.ref(a)}}}", False
+
+    def cast(self, a: Operand, width: int, signed: bool) -> str:
+        """a as a `width`-bit expression of the given signedness (so no expression mixes the two)."""
+        if isinstance(a, Const):
+            v = int(wrap(a.value, width, signed))
+            return literal(v, width, signed)
+        text, is_signed = self.sized(a, width)
+        if is_signed == signed:
+            return text
+        return f"$signed({text})" if signed else f"$unsigned({text})"
 
     # ---- operations -----------------------------------------------------------------------------
 
     def expression(self, op: Op, dst: Signal) -> str:
-        w = dst.width
+        w, sg = dst.width, dst.signed
+
+        def c(a: Operand) -> str:
+            return self.cast(a, w, sg)
+
         if isinstance(op, Resize):
-            return self.ext(op.a, w)
+            return c(op.a)
         if isinstance(op, Add):
             if isinstance(op.b, Const) and op.b.value < 0:
-                return f"{self.ext(op.a, w)} - {self.ext(Const(-op.b.value, op.b.width + 1, True), w)}"
-            return f"{self.ext(op.a, w)} + {self.ext(op.b, w)}"
+                return f"{c(op.a)} - {c(Const(-op.b.value, op.b.width + 1, True))}"
+            return f"{c(op.a)} + {c(op.b)}"
         if isinstance(op, Sub):
-            return f"{self.ext(op.a, w)} - {self.ext(op.b, w)}"
+            return f"{c(op.a)} - {c(op.b)}"
         if isinstance(op, Mul):
-            return f"{self.ext(op.a, w)} * {self.ext(op.b, w)}"
+            return f"{c(op.a)} * {c(op.b)}"
         if isinstance(op, Concat):
-            return "{" + ", ".join(self.ref(p) if not isinstance(p, Const) else literal(p.value & ((1 << p.width) - 1), p.width)
-                                   for p in op.parts) + "}"
+            text = "{" + ", ".join(literal(p.value & ((1 << p.width) - 1), p.width) if isinstance(p, Const)
+                                   else self.ref(p) for p in op.parts) + "}"
+            return f"$signed({text})" if sg else text
         if isinstance(op, Mux):
-            return f"{self.ref(op.select)} ? {self.ext(op.if_true, w)} : {self.ext(op.if_false, w)}"
+            return f"{self.ref(op.select)} ? {c(op.if_true)} : {c(op.if_false)}"
         if isinstance(op, Compare):
             return self.compare(op)
         if isinstance(op, Logic):
             sym = {"and": "&", "or": "|", "xor": "^"}[op.function]
-            return f"{self.ext(op.a, w)} {sym} {self.ext(op.b, w)}"
+            return f"{c(op.a)} {sym} {c(op.b)}"
         if isinstance(op, Gate):
-            mask = self.ref(op.enable) if w == 1 else f"{{{w}{{{self.ref(op.enable)}}}}}"
-            return f"{mask} & {self.ext(op.a, w)}"
+            if w == 1:
+                return f"{self.ref(op.enable)} & {c(op.a)}"
+            mask = f"{{{w}{{{self.ref(op.enable)}}}}}"
+            return f"{'$signed(' + mask + ')' if sg else mask} & {c(op.a)}"
         if isinstance(op, FlipIf):
             if isinstance(op.condition, Const):
-                return f"~{self.ext(op.a, w)}" if op.condition.value else self.ext(op.a, w)
-            mask = self.ref(op.condition) if w == 1 else f"{{{w}{{{self.ref(op.condition)}}}}}"
-            return f"{mask} ^ {self.ext(op.a, w)}"
+                return f"~{c(op.a)}" if op.condition.value else c(op.a)
+            return f"{self.ref(op.condition)} ? ~{c(op.a)} : {c(op.a)}"
         if isinstance(op, Reduce):
             return {"and": "&", "or": "|", "xor": "^"}[op.function] + self.ref(op.a)
         raise TypeError(f"the Verilog back end cannot print {type(op).__name__}")
@@ -172,17 +184,9 @@ class Printer:
     def compare(self, op: Compare) -> str:
         sym = {"lt": "<", "le": "<=", "eq": "==", "ne": "!=", "ge": ">=", "gt": ">"}[op.relation]
         a, b = op.a, op.b
-        if not (a.signed or b.signed):
-            cw = max(a.width, b.width)
-            return f"{self.ext(a, cw)} {sym} {self.ext(b, cw)}"
-        cw = max(x.width + (0 if x.signed else 1) for x in (a, b))
-        return f"{self.signed_ext(a, cw)} {sym} {self.signed_ext(b, cw)}"
-
-    def signed_ext(self, a: Operand, width: int) -> str:
-        if isinstance(a, Const):
-            return literal(a.value, width, True)
-        text = self.ext(a, width)
-        return text if isinstance(a, Signal) and a.signed and a.width == width else f"$signed({text})"
+        signed = a.signed or b.signed
+        cw = max(x.width + (1 if signed and not x.signed else 0) for x in (a, b))
+        return f"{self.cast(a, cw, signed)} {sym} {self.cast(b, cw, signed)}"
 
     # ---- statements ---------------------------------------------------------------------------
 
@@ -224,7 +228,8 @@ class Printer:
             self.emit("  end")
             self.emit("`endif")
             self.emit("end")
-            self.emit(f"{declare('wire', n, dst.width, dst.signed)} = {rom}[{key}];")
+            word = f"{rom}[{key}]"
+            self.emit(f"{declare('wire', n, dst.width, dst.signed)} = {'$signed(' + word + ')' if dst.signed else word};")
             return
         if dst.width == 1 and not dst.signed:
             table = "TABLE_" + n.upper()
@@ -232,15 +237,20 @@ class Printer:
             self.emit(f"localparam [{size - 1}:0] {table} = {size}'b{bits};  // entry k at bit k")
             self.emit(f"wire {n} = {table}[{key}];")
             return
-        self.emit(f"{declare('reg ', n, dst.width, dst.signed)};")
-        self.emit("always @* begin")
-        self.emit(f"  case ({key})")
+        # a function and a continuous assignment: evaluated from time 0 in every simulator
+        # (an `always @*` block waits for its key to change)
+        fn = f"{n}_table"
+        sign = "signed " if dst.signed else ""
+        self.emit(f"function {sign}[{dst.width - 1}:0] {fn};")
+        self.emit(f"  input [{kw - 1}:0] key;")
+        self.emit("  case (key)")
         for k, e in enumerate(op.entries):
             v = int(wrap(e, dst.width, dst.signed))
-            self.emit(f"    {literal(k, kw)}: {n} = {literal(v, dst.width, dst.signed)};")
-        self.emit(f"    default: {n} = {literal(0, dst.width, dst.signed)};")
+            self.emit(f"    {literal(k, kw)}: {fn} = {literal(v, dst.width, dst.signed)};")
+        self.emit(f"    default: {fn} = {literal(0, dst.width, dst.signed)};")
         self.emit("  endcase")
-        self.emit("end")
+        self.emit("endfunction")
+        self.emit(f"{declare('wire', n, dst.width, dst.signed)} = {fn}({key});")
 
     def bank(self, stage: int, after: str, signals: tuple[Signal, ...], handshake: bool) -> None:
         self.emit(f"// register stage {stage} (after step \"{after}\")")
@@ -282,7 +292,7 @@ class Printer:
             hi, lo = f.lsb + s.width - 1, f.lsb
             self.names.read("in_tdata", lo, hi)
             word = f"in_tdata[{hi}:{lo}]" if hi > lo else (f"in_tdata[{lo}]" if dp.in_width > 1 else "in_tdata")
-            self.emit(f"{declare('wire', n, s.width, s.signed)} = {word};")
+            self.emit(f"{declare('wire', n, s.width, s.signed)} = {'$signed(' + word + ')' if s.signed else word};")
             self.names.current[s.name] = n
             self.names.define(n, s.width)
         self.emit()
@@ -307,8 +317,8 @@ class Printer:
         final = {s.name: self.name(s) for s in self.m.carried}
         for s in self.m.carried:
             self.names.read(final[s.name], 0, s.width - 1)
-        return {"body": "\n".join(self.lines).rstrip() + "\n", "tdata": "{" + ", ".join(parts) + "}"
-                if len(parts) > 1 else parts[0], "final": final}
+        # a concatenation even of one part: the word is unsigned whatever its fields are
+        return {"body": "\n".join(self.lines).rstrip() + "\n", "tdata": "{" + ", ".join(parts) + "}", "final": final}
 
 
 def module_text(module: Module) -> str:

@@ -72,7 +72,7 @@ def mapper_datapath(design: Design, *, inline: bool) -> Datapath:
     W = design.mapper_format.width
     const = design.constellation
     b = Builder()
-    label = b.input("label", k, False, 0, doc="the label, b0 (first bit in time) in the MSB",
+    label = b.input("lab", k, False, 0, doc="the label, b0 (first bit in time) in the MSB",
                     domain="label", values=np.arange(const.order))
     if const.axes is None:
         b.step("lookup", "the point table: {Q, I} by label")

