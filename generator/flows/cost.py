@@ -116,10 +116,15 @@ def _write_module(module: Module, folder: Path, what: str) -> Path:
     return path
 
 
+REFERENCES = ("adder", "bruteforce")
+
+
 def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax: bool = True,
-             references: bool = True, seed: int = SEED, timeout: float = YOSYS_TIMEOUT_S,
+             references: bool | Sequence[str] = True, seed: int = SEED, timeout: float = YOSYS_TIMEOUT_S,
              tools: Tools | None = None, progress: Callable[[str], None] | None = None) -> dict[str, Any]:
-    """Run the flows on both modules of a design (and the references); the hardware.json content."""
+    """Run the flows on both modules of a design (and the references); the hardware.json content.
+
+    `references`: True (both), False (none) or the names to build, from REFERENCES."""
     tools = tools or find_tools(need_pnr=fmax)
     flows = available_flows(tools, flows)
     say = progress or (lambda msg: None)
@@ -151,8 +156,9 @@ def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax:
                 figures.update(_fmax(tools, sources, top, entry["ports"], cwd=dd.root, work=work, seed=seed,
                                      timeout=timeout))
             result["modules"][role] = figures
-        if references:
-            result["references"] = _references(tools, dd, flows, fmax, seed, timeout, work, say)
+        wanted = REFERENCES if references is True else () if references is False else tuple(references)
+        if wanted:
+            result["references"] = _references(tools, dd, wanted, flows, fmax, seed, timeout, work, say)
     except ToolFailed:
         raise  # the temporary directory stays for its logs
     except BaseException:
@@ -163,8 +169,8 @@ def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax:
     return result
 
 
-def _references(tools: Tools, dd: DesignDirectory, flows: Sequence[str], fmax: bool, seed: int,
-                timeout: float, work: Path, say: Callable[[str], None]) -> dict[str, Any]:
+def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows: Sequence[str], fmax: bool,
+                seed: int, timeout: float, work: Path, say: Callable[[str], None]) -> dict[str, Any]:
     refs: dict[str, Any] = {}
     folder = work / "ref"
     folder.mkdir()
@@ -181,6 +187,8 @@ def _references(tools: Tools, dd: DesignDirectory, flows: Sequence[str], fmax: b
         ports = [{"name": p.name, "dir": p.direction, "width": p.width} for p in adder.ports]
         refs["adder"].update(_fmax(tools, [apath], adder.name, ports, cwd=folder, work=work, seed=seed,
                                    timeout=timeout))
+    if "bruteforce" not in wanted:
+        return refs
     if not design.per_axis:
         refs["bruteforce_demapper"] = {"skipped": "a 2-D search design has no per-axis brute-force reference"}
         return refs
@@ -306,5 +314,5 @@ def write_report(dd: DesignDirectory, result: dict[str, Any]) -> tuple[Path, Pat
     return paths
 
 
-__all__ = ["DEFAULT_FLOWS", "ROLES", "build_source", "estimate", "markdown", "maxlog_variant", "reference_banner",
+__all__ = ["DEFAULT_FLOWS", "REFERENCES", "ROLES", "build_source", "estimate", "markdown", "maxlog_variant", "reference_banner",
            "summary_lines", "wrapper_context", "write_report"]
