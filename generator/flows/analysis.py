@@ -33,11 +33,11 @@ import re
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
 
-from ..artifacts import probe_directory, write_file
+from ..artifacts import probe_file, write_file
 from ..errors import SpecError
 from ..model import Design, demap, derive, hard_decisions
 from ..numbers import label_bits, quantize
@@ -52,6 +52,8 @@ FLOAT_BLOCK = 1 << 14
 #: float LLR histograms: bins per natural-log unit and the clipping magnitude (nats)
 FLOAT_BINS_PER_NAT = 64
 FLOAT_LLR_CLIP = 512.0
+#: offset (bins) of zero in the float histograms: the clipping magnitude in bins
+_FLOAT_OFFSET = int(FLOAT_LLR_CLIP * FLOAT_BINS_PER_NAT)
 #: range of the GMI-maximizing scalar factor, relative to the natural scale
 FACTOR_RANGE = (2.0 ** -6, 2.0 ** 6)
 #: default operating point: float exact GMI at this fraction of log2(M)
@@ -338,17 +340,207 @@ def _row_sum(a: np.ndarray, rows: np.ndarray) -> np.ndarray:
     return out
 
 
+def _bit_rows(bits: np.ndarray) -> tuple[list[np.ndarray], list[np.ndarray]]:
+    """Rows of a 0/1 table (levels or points x label bits) where bit j is 0, and where it is 1, for every j."""
+    cols = range(bits.shape[1])
+    return [np.flatnonzero(bits[:, j] == 0) for j in cols], [np.flatnonzero(bits[:, j] == 1) for j in cols]
+
+
+def _exact_weights(d2: np.ndarray, n0: float) -> np.ndarray:
+    """Weights exp(-(d2 - min d2) / N0) per column of squared distances d2 (rows, N), float32; d2 is overwritten.
+
+    The exponent is formed in float64, exp() and the sums run in float32 (SIMD; LLR error < 1e-5 nats);
+    exponents are clamped at -80 (w >= 1.8e-35, normal in float32), so |LLR| is capped near 80 nats,
+    where a bit's GMI term is below 1e-34.
+    """
+    d2 -= d2.min(axis=0)
+    d2 *= -1.0 / n0
+    np.maximum(d2, -80.0, out=d2)
+    return np.exp(d2.astype(np.float32))
+
+
+def _log_ratio(w: np.ndarray, rows0: np.ndarray, rows1: np.ndarray) -> np.ndarray:
+    """Exact LLR (nats) per column: log of the summed weights of the bit-0 rows over those of the bit-1 rows."""
+    s0 = _row_sum(w, rows0)
+    s0 /= _row_sum(w, rows1)
+    return np.log(s0)
+
+
+def _batch_sizes(symbols: int) -> list[int]:
+    """Symbols in each of the BATCHES batches: near-equal parts, the first `symbols % BATCHES` one larger."""
+    return [symbols // BATCHES + (1 if b < symbols % BATCHES else 0) for b in range(BATCHES)]
+
+
+def _ber(errors: np.ndarray, nb: np.ndarray, bits: int, symbols: int) -> tuple[float, np.ndarray]:
+    """Bit error rate over all `symbols` and per batch, from per-batch bit error counts (nb: symbols per batch)."""
+    return float(errors.sum() / (symbols * bits)), errors / (nb * bits)
+
+
+def _add_float_hist(h: _Hist, b: int, binned: np.ndarray) -> None:
+    """Add float s * LLR values, already in histogram bins, to batch b: clipped, rounded (`binned` is overwritten)."""
+    np.clip(binned, -_FLOAT_OFFSET, _FLOAT_OFFSET, out=binned)
+    np.rint(binned, out=binned)
+    idx = binned.astype(np.int64)
+    idx += _FLOAT_OFFSET
+    h.add(b, idx)
+
+
+def _gmi_batches(h: _Hist, natural: float, nb: np.ndarray, bits: int,
+                 optimize: bool = True) -> tuple[float, np.ndarray, float]:
+    """GMI (bits/symbol) of all batches, the per-batch GMIs and the LLR factor used (relative to `natural` nats/unit).
+
+    With `optimize` the factor maximizes the pooled GMI (a decoder's input scaling); otherwise it is 1.
+    """
+    values, counts = h.arrays()
+    total = counts.sum(axis=0)
+    used = total > 0
+    values, counts, total = values[used], counts[:, used], total[used]
+    n = int(nb.sum())
+    if optimize:
+        factor, gmi = best_scale(values, total, natural, bits, n)
+    else:
+        factor = 1.0
+        gmi = float(_gmi_of(values, total.astype(np.float64), natural, bits, n))
+    batches = _gmi_of(values, counts.astype(np.float64), natural * factor, bits, nb)
+    return gmi, batches, factor
+
+
+@dataclass
+class _Tally:
+    """Per-batch accumulators of one Es/N0 point: bit errors, input quantization, s * LLR histograms, kept symbols."""
+
+    err_fixed: np.ndarray            # (BATCHES,) bit errors of the fixed chain's hard decisions
+    err_maxlog: np.ndarray           # (BATCHES,) sign errors of the float max-log LLRs
+    err_exact: np.ndarray            # (BATCHES,) sign errors of the float exact LLRs
+    quant_noise: np.ndarray          # (BATCHES,) summed squared input rounding error (amplitude units^2)
+    clipped: np.ndarray              # (BATCHES,) input components at the most negative or positive code
+    h_fixed: _Hist | None
+    h_maxlog: _Hist | None
+    h_exact: _Hist | None
+    keep: int                        # how many of the first symbols to keep for the received-cloud plot
+    kept: dict[str, list[np.ndarray]] = field(default_factory=lambda: {"labels": [], "i": [], "q": []})
+    kept_n: int = 0
+
+    @classmethod
+    def make(cls, fixed_offset: int, dense: bool, *, fixed: bool, floats: bool, keep: int) -> "_Tally":
+        """Empty accumulators; histograms only for the chains that run (fixed codes dense or sparse)."""
+        return cls(np.zeros(BATCHES, np.int64), np.zeros(BATCHES, np.int64), np.zeros(BATCHES, np.int64),
+                   np.zeros(BATCHES), np.zeros(BATCHES, np.int64),
+                   _Hist.make(fixed_offset, dense) if fixed else None,
+                   _Hist.make(_FLOAT_OFFSET, True) if floats else None,
+                   _Hist.make(_FLOAT_OFFSET, True) if floats else None, keep)
+
+    def keep_symbols(self, lab: np.ndarray, ci: np.ndarray, cq: np.ndarray) -> None:
+        """Keep labels and input codes of a chunk's leading symbols until `keep` symbols are kept."""
+        if self.keep and self.kept_n < self.keep:
+            take = min(self.keep - self.kept_n, lab.size)
+            self.kept["labels"].append(lab[:take])
+            self.kept["i"].append(ci[:take])
+            self.kept["q"].append(cq[:take])
+            self.kept_n += take
+
+    def kept_arrays(self) -> dict[str, np.ndarray]:
+        """The kept labels and I/Q input codes, each one array (empty when nothing was kept)."""
+        return {key: np.concatenate(v) if v else np.zeros(0, np.int64) for key, v in self.kept.items()}
+
+
+class _FloatReference:
+    """Float max-log metrics and exact log-MAP LLRs of the ideal (unquantized) constellation, per axis or in 2-D."""
+
+    def __init__(self, design: Design, txbits: np.ndarray) -> None:
+        const = design.constellation
+        self.design = design
+        self.const = const
+        self.k = const.bits
+        self.txbits = txbits                                                             # (M, k) int8
+        self.points = const.normalized.astype(np.complex128)
+        self.per_axis = const.axes is not None
+        self.axes = [self._axis_tables(n, ax) for n, ax in enumerate(const.axes) if ax.bits] if self.per_axis else []
+        #: 2-D search: the points whose bit j is 0, and 1
+        self.rows0, self.rows1 = ([], []) if self.per_axis else _bit_rows(txbits)
+
+    def _axis_tables(self, n: int, ax) -> dict[str, Any]:
+        """Tables of one axis (component n): levels, bit-0/bit-1 rows and max-log competitor offsets."""
+        kappa = self.const.kappa
+        L = ax.levels
+        codes = np.asarray(ax.codes)
+        cb = np.stack([ax.axis_bit(codes, j) for j in range(ax.bits)], axis=1).astype(np.float64)   # (L, m)
+        ad = self.design.axes[n]
+        comp = ad.competitor.astype(np.float64)                                          # (m, L, 2)
+        rows0, rows1 = _bit_rows(cb)
+        # max-log: decided level, competitor offset by residual sign, sign from decided level's bit
+        return {"component": n, "cols": list(ax.label_bits), "levels": L, "lev": ax.amplitudes * kappa,
+                "rows0": rows0, "rows1": rows1,
+                "comp": comp.transpose(1, 2, 0).reshape(2 * L, ax.bits).T.copy(),     # (m, 2L)
+                "neg": (1.0 - 2.0 * cb).T.copy()}                                     # (m, L): +1 for bit 0
+
+    def llrs(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
+        """(max-log metric in normalized units, exact LLR in nats), both (k, N), of normalized samples."""
+        if not self.per_axis:
+            return self._llrs_2d(y, n0)
+        mx = np.empty((self.k, y.size))
+        ex = np.empty((self.k, y.size))
+        for t in self.axes:
+            self._axis_llrs(t, y.real if t["component"] == 0 else y.imag, n0, mx, ex)
+        return mx, ex
+
+    def _axis_llrs(self, t: dict[str, Any], comp: np.ndarray, n0: float, mx: np.ndarray, ex: np.ndarray) -> None:
+        """One axis's bits from one component (normalized units): max-log into mx, exact (nats) into ex."""
+        kappa = self.const.kappa
+        L = t["levels"]
+        amp = comp / kappa
+        n_hat = np.clip(np.floor((amp + L) / 2.0), 0, L - 1).astype(np.int64)
+        e = amp - (2.0 * n_hat - (L - 1))
+        idx = 2 * n_hat + (e < 0)
+        dn = np.take(t["comp"], idx, axis=1)                                              # (m, N)
+        metric = 4.0 * kappa * kappa * dn * (dn - e)
+        metric *= np.take(t["neg"], n_hat, axis=1)
+        d2 = comp[None, :] - t["lev"][:, None]                                             # (L, N)
+        d2 *= d2
+        w = _exact_weights(d2, n0)
+        for j, col in enumerate(t["cols"]):
+            mx[col] = metric[j]
+            ex[col] = _log_ratio(w, t["rows0"][j], t["rows1"][j])
+
+    def _llrs_2d(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
+        """Float LLRs over every point (no per-axis structure), (k, N): the same method in 2-D."""
+        pts = self.points
+        d2 = y.real[None, :] - pts.real[:, None]                                         # (M, N)
+        d2 *= d2
+        dq = y.imag[None, :] - pts.imag[:, None]
+        dq *= dq
+        d2 += dq
+        mx = np.empty((self.k, y.size))
+        ex = np.empty((self.k, y.size))
+        for j in range(self.k):
+            one = self.txbits[:, j].astype(bool)
+            mx[j] = d2[one].min(axis=0) - d2[~one].min(axis=0)
+        w = _exact_weights(d2, n0)
+        for j in range(self.k):
+            ex[j] = _log_ratio(w, self.rows0[j], self.rows1[j])
+        return mx, ex
+
+
 class Chain:
     """Precomputed tables for the Monte-Carlo of one design (fixed chain and float references)."""
 
     def __init__(self, design: Design, *, ideal_mapper: bool = False, scale_code: int | None = None) -> None:
+        """Label bits, transmitted points, demapper settings and float-reference tables of `design`."""
         self.design = design
         const = design.constellation
         self.const = const
         self.M, self.k = const.order, const.bits
-        labels = np.arange(self.M)
-        self.txbits = label_bits(labels, self.k)                                      # (M, k) int8
+        self.txbits = label_bits(np.arange(self.M), self.k)                              # (M, k) int8
         self.sign = (1.0 - 2.0 * self.txbits).T.copy()                                  # (k, M) +-1
+        self._init_mapper(ideal_mapper)
+        self._init_demapper(scale_code)
+        self.chunk = CHUNK if const.axes is not None else max(1024, (1 << 21) // self.M)
+        self.floats = _FloatReference(design, self.txbits)
+        self.per_axis = self.floats.per_axis
+
+    def _init_mapper(self, ideal_mapper: bool) -> None:
+        """What is sent: the ideal points (unit power) and the fixed mapper's (or the ideal) points."""
+        design, const = self.design, self.const
         self.tx_ideal = const.normalized.astype(np.complex128)
         if ideal_mapper:
             self.tx_fixed = self.tx_ideal
@@ -359,6 +551,12 @@ class Chain:
         self.es_fixed = float(np.mean(np.abs(self.tx_fixed) ** 2))
         #: fixed mapper output per component in amplitude units (the demapper input's scale)
         self.tx_amp = (self.tx_fixed.real / const.kappa, self.tx_fixed.imag / const.kappa)
+        #: noise (already times sigma) to amplitude units, with the Es of the fixed mapper
+        self.amp_noise = math.sqrt(self.es_fixed) / const.kappa
+
+    def _init_demapper(self, scale_code: int | None) -> None:
+        """The demapper's algorithm, reliability input, LLR code range (histogram layout) and input LSB."""
+        design = self.design
         d = design.spec.demapper
         self.algorithm = d.algorithm
         self.hard = d.algorithm == "hard"
@@ -367,91 +565,17 @@ class Chain:
         self.has_scale = design.scale_format is not None
         self.llr_max = 1 if self.hard else design.llr_format.max_code
         self.dense = self.llr_max <= (1 << 15)
-        off = self.llr_max
         # fixed histogram index: s * llr + offset = llr * (1 - 2 b) + offset
         self.fixed_sign = (1 - 2 * self.txbits).astype(np.int32)                         # (M, k)
-        self.fixed_offset = off
-        self.chunk = CHUNK if const.axes is not None else max(1024, (1 << 21) // self.M)
-        self.per_axis = const.axes is not None
-        self.axes = [self._axis_tables(n, ax) for n, ax in enumerate(const.axes) if ax.bits] if self.per_axis else []
-
-    def _axis_tables(self, n: int, ax) -> dict[str, Any]:
-        kappa = self.const.kappa
-        L = ax.levels
-        codes = np.asarray(ax.codes)
-        cb = np.stack([ax.axis_bit(codes, j) for j in range(ax.bits)], axis=1).astype(np.float64)   # (L, m)
-        ad = self.design.axes[n]
-        comp = ad.competitor.astype(np.float64)                                          # (m, L, 2)
-        # max-log: decided level, competitor offset by residual sign, sign from decided level's bit
-        return {"component": n, "cols": list(ax.label_bits), "levels": L, "lev": ax.amplitudes * kappa,
-                "rows0": [np.flatnonzero(cb[:, j] == 0) for j in range(ax.bits)],
-                "rows1": [np.flatnonzero(cb[:, j] == 1) for j in range(ax.bits)],
-                "comp": comp.transpose(1, 2, 0).reshape(2 * L, ax.bits).T.copy(),     # (m, 2L)
-                "neg": (1.0 - 2.0 * cb).T.copy()}                                     # (m, L): +1 for bit 0
+        self.fixed_offset = self.llr_max
+        #: one demapper input code in amplitude units
+        self.input_lsb_amp = 2.0 ** -design.input_format.fraction
 
     # ---- float references ------------------------------------------------------------
 
     def float_llrs(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
         """(max-log metric in normalized units, exact LLR in nats), both (k, N), of normalized samples."""
-        N = y.size
-        if not self.per_axis:
-            return self._float_llrs_2d(y, n0)
-        kappa = self.const.kappa
-        mx = np.empty((self.k, N))
-        ex = np.empty((self.k, N))
-        for t in self.axes:
-            comp = y.real if t["component"] == 0 else y.imag
-            L = t["levels"]
-            amp = comp / kappa
-            n_hat = np.clip(np.floor((amp + L) / 2.0), 0, L - 1).astype(np.int64)
-            e = amp - (2.0 * n_hat - (L - 1))
-            idx = 2 * n_hat + (e < 0)
-            dn = np.take(t["comp"], idx, axis=1)                                          # (m, N)
-            metric = 4.0 * kappa * kappa * dn * (dn - e)
-            metric *= np.take(t["neg"], n_hat, axis=1)
-            # exact: log(sum_{b=0} w / sum_{b=1} w), w = exp(-(d2 - d2_min) / N0). The exponent is
-            # formed in float64, exp() and the sums run in float32 (SIMD; LLR error < 1e-5 nats);
-            # exponents are clamped at -80 (w >= 1.8e-35, normal in float32), so |LLR| is capped
-            # near 80 nats, where a bit's GMI term is below 1e-34.
-            d2 = comp[None, :] - t["lev"][:, None]                                         # (L, N)
-            d2 *= d2
-            d2 -= d2.min(axis=0)
-            d2 *= -1.0 / n0
-            np.maximum(d2, -80.0, out=d2)
-            w = np.exp(d2.astype(np.float32))
-            for j, col in enumerate(t["cols"]):
-                s0 = _row_sum(w, t["rows0"][j])
-                s1 = _row_sum(w, t["rows1"][j])
-                s0 /= s1
-                mx[col] = metric[j]
-                ex[col] = np.log(s0)
-        return mx, ex
-
-    def _float_llrs_2d(self, y: np.ndarray, n0: float) -> tuple[np.ndarray, np.ndarray]:
-        """Float LLRs over every point (no per-axis structure), (k, N): the same method in 2-D."""
-        pts = self.tx_ideal
-        d2 = y.real[None, :] - pts.real[:, None]                                         # (M, N)
-        d2 *= d2
-        dq = y.imag[None, :] - pts.imag[:, None]
-        dq *= dq
-        d2 += dq
-        k = self.k
-        mx = np.empty((k, y.size))
-        ex = np.empty((k, y.size))
-        for j in range(k):
-            one = self.txbits[:, j].astype(bool)
-            mx[j] = d2[one].min(axis=0) - d2[~one].min(axis=0)
-        d2 -= d2.min(axis=0)
-        d2 *= -1.0 / n0
-        np.maximum(d2, -80.0, out=d2)
-        w = np.exp(d2.astype(np.float32))
-        for j in range(k):
-            rows1 = np.flatnonzero(self.txbits[:, j])
-            rows0 = np.flatnonzero(self.txbits[:, j] == 0)
-            s0 = _row_sum(w, rows0)
-            s0 /= _row_sum(w, rows1)
-            ex[j] = np.log(s0)
-        return mx, ex
+        return self.floats.llrs(y, n0)
 
     # ---- Monte-Carlo -------------------------------------------------------------------
 
@@ -480,33 +604,31 @@ class Chain:
         Returns the statistics and, when `keep` > 0, the first `keep` symbols' labels and
         fixed-chain input codes (for the received-cloud plot).
         """
-        design = self.design
         n0 = 10.0 ** (-esn0_db / 10.0)
-        sigma = math.sqrt(n0 / 2.0)
-        k = self.k
-        st = PointStats(esn0_db=esn0_db, ebn0_db=esn0_db - 10.0 * math.log10(k), n0=n0, symbols=symbols, bits=k)
+        st = PointStats(esn0_db=esn0_db, ebn0_db=esn0_db - 10.0 * math.log10(self.k), n0=n0, symbols=symbols,
+                        bits=self.k)
+        st.reliability_code = self.reliability(n0)
+        scale = None if st.reliability_code is None else np.int64(st.reliability_code)
+        tally = _Tally.make(self.fixed_offset, self.dense, fixed=fixed, floats=floats, keep=keep)
+        per_batch = _batch_sizes(symbols)
+        for b, lab, z in self._draws(seed, per_batch, math.sqrt(n0 / 2.0)):
+            if fixed:
+                self._fixed_chunk(b, lab, z, scale, tally)
+            if floats:
+                self._float_chunk(b, lab, z, n0, tally)
+        nb = np.asarray(per_batch, dtype=np.float64)
+        if fixed:
+            self._fixed_stats(st, tally, nb)
+        if floats:
+            self._float_stats(st, tally, nb)
+        return st, tally.kept_arrays()
+
+    def _draws(self, seed: int, per_batch: list[int], sigma: float) -> Iterator[tuple[int, np.ndarray, np.ndarray]]:
+        """(batch, labels, noise (2, n) times sigma) chunk by chunk; batch b draws from child b of `seed`.
+
+        The same seed gives the same draws at every Es/N0 (common random numbers): labels, then noise.
+        """
         children = np.random.SeedSequence(seed).spawn(BATCHES)
-        per_batch = [symbols // BATCHES + (1 if b < symbols % BATCHES else 0) for b in range(BATCHES)]
-        err_f = np.zeros(BATCHES, np.int64)
-        err_x = np.zeros(BATCHES, np.int64)
-        err_m = np.zeros(BATCHES, np.int64)
-        qn = np.zeros(BATCHES)
-        clip = np.zeros(BATCHES, np.int64)
-        h_fixed = _Hist.make(self.fixed_offset, self.dense) if fixed else None
-        foff = int(FLOAT_LLR_CLIP * FLOAT_BINS_PER_NAT)
-        h_max = _Hist.make(foff, True) if floats else None
-        h_ex = _Hist.make(foff, True) if floats else None
-        kept: dict[str, list[np.ndarray]] = {"labels": [], "i": [], "q": []}
-        kept_n = 0
-        ifmt = design.input_format
-        kappa = self.const.kappa
-        mscale = FLOAT_BINS_PER_NAT / n0
-        fixed_gain = math.sqrt(self.es_fixed)
-        amp_noise = fixed_gain / kappa          # noise (already times sigma) in amplitude units
-        lsb_amp = 2.0 ** -ifmt.fraction
-        rel = self.reliability(n0)
-        scale = None if rel is None else np.int64(rel)
-        st.reliability_code = rel
         for b in range(BATCHES):
             rng = np.random.Generator(np.random.PCG64(children[b]))
             left = per_batch[b]
@@ -516,95 +638,82 @@ class Chain:
                 lab = rng.integers(0, self.M, size=n)
                 z = rng.standard_normal((2, n))
                 z *= sigma
-                if fixed:
-                    # received samples in amplitude units (the demapper's AGC scale), per component
-                    codes = []
-                    for comp in (0, 1):
-                        amp = np.take(self.tx_amp[comp], lab)
-                        amp += z[comp] * amp_noise
-                        c = quantize(amp, ifmt, "half-even")
-                        r = c * lsb_amp
-                        r -= amp
-                        qn[b] += float(np.dot(r, r))
-                        clip[b] += int(np.count_nonzero(c == ifmt.max_code) + np.count_nonzero(c == ifmt.min_code))
-                        codes.append(c)
-                    ci, cq = codes
-                    txb = np.take(self.txbits, lab, axis=0)
-                    if self.hard:
-                        hb = demap(design, ci, cq)
-                        llr = (1 - 2 * hb).astype(np.int32)
-                    else:
-                        llr = demap(design, ci, cq, scale)
-                        hb = hard_decisions(design, ci, cq)
-                    err_f[b] += int(np.count_nonzero(hb != txb))
-                    signed = llr * np.take(self.fixed_sign, lab, axis=0)
-                    if self.dense:
-                        signed += self.fixed_offset
-                    h_fixed.add(b, signed)
-                    if keep and kept_n < keep:
-                        take = min(keep - kept_n, n)
-                        kept["labels"].append(lab[:take])
-                        kept["i"].append(ci[:take])
-                        kept["q"].append(cq[:take])
-                        kept_n += take
-                if floats:
-                    y0 = np.take(self.tx_ideal, lab) + (z[0] + 1j * z[1])
-                    for lo in range(0, n, FLOAT_BLOCK):          # cache-sized blocks of the chunk
-                        sl = slice(lo, lo + FLOAT_BLOCK)
-                        self._float_block(b, y0[sl], lab[sl], n0, mscale, foff, h_max, h_ex, err_m, err_x)
-        nb = np.asarray(per_batch, dtype=np.float64)
-        total_bits = symbols * k
-        if fixed:
-            st.ber_fixed_batches = err_f / (nb * k)
-            st.ber_fixed = float(err_f.sum() / total_bits)
-            st.bit_errors_fixed = int(err_f.sum())
-            nat = self.natural_nats(n0)
-            st.gmi_fixed, st.gmi_fixed_batches, st.factor_fixed = self._gmi_batches(h_fixed, nat, nb)
-            st.nats_per_code = st.factor_fixed * nat
-            st.input_noise_db = 10.0 * math.log10(max(float(qn.sum()) * kappa * kappa / symbols, 1e-300))
-            st.input_clip_percent = 100.0 * float(clip.sum()) / (2 * symbols)
-        if floats:
-            st.ber_maxlog_batches = err_m / (nb * k)
-            st.ber_maxlog = float(err_m.sum() / total_bits)
-            st.ber_exact_batches = err_x / (nb * k)
-            st.ber_exact = float(err_x.sum() / total_bits)
-            unit = 1.0 / FLOAT_BINS_PER_NAT
-            st.gmi_maxlog, st.gmi_maxlog_batches, st.factor_maxlog = self._gmi_batches(h_max, unit, nb)
-            st.gmi_exact, st.gmi_exact_batches, st.factor_exact = self._gmi_batches(h_ex, unit, nb, optimize=False)
-        out = {key: np.concatenate(v) if v else np.zeros(0, np.int64) for key, v in kept.items()}
-        return st, out
+                yield b, lab, z
 
-    def _float_block(self, b: int, y0: np.ndarray, lab: np.ndarray, n0: float, mscale: float, foff: int,
-                     h_max: _Hist, h_ex: _Hist, err_m: np.ndarray, err_x: np.ndarray) -> None:
+    def _fixed_chunk(self, b: int, lab: np.ndarray, z: np.ndarray, scale: np.int64 | None, tally: _Tally) -> None:
+        """The bit-exact chain on one chunk: quantized input, demapper, bit errors and histogram of s * LLR codes."""
+        ci = self._input_codes(b, lab, z[0], 0, tally)
+        cq = self._input_codes(b, lab, z[1], 1, tally)
+        txb = np.take(self.txbits, lab, axis=0)
+        hb, llr = self._demap(ci, cq, scale)
+        tally.err_fixed[b] += int(np.count_nonzero(hb != txb))
+        signed = llr * np.take(self.fixed_sign, lab, axis=0)
+        if self.dense:
+            signed += self.fixed_offset
+        tally.h_fixed.add(b, signed)
+        tally.keep_symbols(lab, ci, cq)
+
+    def _input_codes(self, b: int, lab: np.ndarray, noise: np.ndarray, comp: int, tally: _Tally) -> np.ndarray:
+        """Demapper input codes of one component (0: I, 1: Q) as the AGC delivers them (amplitude units),
+        rounded half to even and saturated; tallies the rounding noise and the clipped samples."""
+        ifmt = self.design.input_format
+        amp = np.take(self.tx_amp[comp], lab)
+        amp += noise * self.amp_noise
+        c = quantize(amp, ifmt, "half-even")
+        r = c * self.input_lsb_amp
+        r -= amp
+        tally.quant_noise[b] += float(np.dot(r, r))
+        tally.clipped[b] += int(np.count_nonzero(c == ifmt.max_code) + np.count_nonzero(c == ifmt.min_code))
+        return c
+
+    def _demap(self, ci: np.ndarray, cq: np.ndarray, scale: np.int64 | None) -> tuple[np.ndarray, np.ndarray]:
+        """Hard bits and LLR codes (both (N, k)) of the bit-exact model; a hard demapper's bits become +-1 codes."""
+        if self.hard:
+            hb = demap(self.design, ci, cq)
+            return hb, (1 - 2 * hb).astype(np.int32)
+        llr = demap(self.design, ci, cq, scale)
+        return hard_decisions(self.design, ci, cq), llr
+
+    def _float_chunk(self, b: int, lab: np.ndarray, z: np.ndarray, n0: float, tally: _Tally) -> None:
+        """The float references on one chunk of ideal points plus noise, in cache-sized blocks of FLOAT_BLOCK."""
+        y0 = np.take(self.tx_ideal, lab) + (z[0] + 1j * z[1])
+        for lo in range(0, lab.size, FLOAT_BLOCK):
+            sl = slice(lo, lo + FLOAT_BLOCK)
+            self._float_block(b, y0[sl], lab[sl], n0, tally)
+
+    def _float_block(self, b: int, y0: np.ndarray, lab: np.ndarray, n0: float, tally: _Tally) -> None:
         """Float max-log and exact LLRs of one block: errors of their signs and histograms of s * LLR."""
         mx, ex = self.float_llrs(y0, n0)
         sg = np.take(self.sign, lab, axis=1)
         mx *= sg
         ex *= sg
-        err_m[b] += int(np.count_nonzero(mx < 0))
-        err_x[b] += int(np.count_nonzero(ex < 0))
-        mx *= mscale
+        tally.err_maxlog[b] += int(np.count_nonzero(mx < 0))
+        tally.err_exact[b] += int(np.count_nonzero(ex < 0))
+        mx *= FLOAT_BINS_PER_NAT / n0           # max-log metric (normalized units) to bins of 1/64 nat
         ex *= FLOAT_BINS_PER_NAT
-        for arr, h in ((mx, h_max), (ex, h_ex)):
-            np.clip(arr, -foff, foff, out=arr)
-            np.rint(arr, out=arr)
-            idx = arr.astype(np.int64)
-            idx += foff
-            h.add(b, idx)
+        _add_float_hist(tally.h_maxlog, b, mx)
+        _add_float_hist(tally.h_exact, b, ex)
 
-    def _gmi_batches(self, h: _Hist, natural: float, nb: np.ndarray, optimize: bool = True):
-        values, counts = h.arrays()
-        total = counts.sum(axis=0)
-        used = total > 0
-        values, counts, total = values[used], counts[:, used], total[used]
-        n = int(nb.sum())
-        if optimize:
-            factor, gmi = best_scale(values, total, natural, self.k, n)
-        else:
-            factor = 1.0
-            gmi = float(_gmi_of(values, total.astype(np.float64), natural, self.k, n))
-        batches = _gmi_of(values, counts.astype(np.float64), natural * factor, self.k, nb)
-        return gmi, batches, factor
+    def _fixed_stats(self, st: PointStats, tally: _Tally, nb: np.ndarray) -> None:
+        """The fixed chain's BER, GMI at its best LLR factor, and input quantization noise (dB) and clipping (%)."""
+        symbols = st.symbols
+        st.ber_fixed, st.ber_fixed_batches = _ber(tally.err_fixed, nb, self.k, symbols)
+        st.bit_errors_fixed = int(tally.err_fixed.sum())
+        nat = self.natural_nats(st.n0)
+        st.gmi_fixed, st.gmi_fixed_batches, st.factor_fixed = _gmi_batches(tally.h_fixed, nat, nb, self.k)
+        st.nats_per_code = st.factor_fixed * nat
+        kappa = self.const.kappa
+        st.input_noise_db = 10.0 * math.log10(max(float(tally.quant_noise.sum()) * kappa * kappa / symbols, 1e-300))
+        st.input_clip_percent = 100.0 * float(tally.clipped.sum()) / (2 * symbols)
+
+    def _float_stats(self, st: PointStats, tally: _Tally, nb: np.ndarray) -> None:
+        """The float references' BERs (signs of the LLRs) and GMIs (max-log at its best factor, exact as is)."""
+        st.ber_maxlog, st.ber_maxlog_batches = _ber(tally.err_maxlog, nb, self.k, st.symbols)
+        st.ber_exact, st.ber_exact_batches = _ber(tally.err_exact, nb, self.k, st.symbols)
+        unit = 1.0 / FLOAT_BINS_PER_NAT
+        st.gmi_maxlog, st.gmi_maxlog_batches, st.factor_maxlog = _gmi_batches(tally.h_maxlog, unit, nb, self.k)
+        st.gmi_exact, st.gmi_exact_batches, st.factor_exact = _gmi_batches(tally.h_exact, unit, nb, self.k,
+                                                                           optimize=False)
 
 
 # --------------------------------------------------------------------------- sweeps
@@ -700,6 +809,105 @@ def _interval(full: float, batches: list[float]) -> tuple[float, float] | None:
     return (full - half, full + half)
 
 
+def _starting_point(chain: Chain, operating_point_db: float | None, gmi_fraction: float,
+                    seed: int) -> tuple[float, float | None]:
+    """Es/N0 (dB) of the operating point to start from, and the GMI target (bits/symbol; None when the point is given).
+
+    Without a given point: where the float exact GMI reaches gmi_fraction x log2(M).
+    """
+    if operating_point_db is not None:
+        return float(operating_point_db), None
+    if not 0.0 < gmi_fraction < 1.0:
+        raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
+    target = gmi_fraction * chain.k
+    return find_operating_point(chain, target, seed), target
+
+
+#: the float references the fixed chain is measured against
+_REFERENCES = ("exact", "maxlog")
+
+
+def _all_below(st: PointStats, target: float, ber0: float) -> bool:
+    """True when every batch of every chain is short of the targets: GMI below `target` bits, BER above `ber0`."""
+    gmi_ok = all(np.all(getattr(st, f"gmi_{c}_batches") < target) for c in ("exact", "maxlog", "fixed"))
+    ber_ok = all(np.all(getattr(st, f"ber_{c}_batches") > ber0) for c in ("exact", "maxlog", "fixed"))
+    return gmi_ok and ber_ok
+
+
+def _all_above(st: PointStats, target: float, ber0: float) -> bool:
+    """True when every batch has crossed: all three GMIs at least `target` bits, the fixed BER below 0.8 x `ber0`."""
+    gmi_ok = all(np.all(getattr(st, f"gmi_{c}_batches") >= target) for c in ("fixed", "maxlog", "exact"))
+    return bool(gmi_ok and np.all(st.ber_fixed_batches < ber0 * 0.8))
+
+
+class _LossGrid:
+    """Monte-Carlo points of all three chains around the operating point, each Es/N0 (dB, to 1e-6) run once."""
+
+    def __init__(self, chain: Chain, symbols: int, seed: int, label: str) -> None:
+        self.chain, self.symbols, self.seed = chain, symbols, seed
+        self.points: dict[float, PointStats] = {}
+        self.bar = _progress(24, label)
+
+    def at(self, esn0_db: float) -> PointStats:
+        """The statistics at Es/N0 `esn0_db` (dB), run on first use."""
+        s = round(esn0_db, 6)
+        if s not in self.points:
+            self.points[s] = self.chain.run(s, self.symbols, self.seed)[0]
+            self.bar(min(len(self.points), 23))
+        return self.points[s]
+
+    def grow(self, op0: float, target: float, ber0: float) -> None:
+        """Add points left of op0 (0.1 dB steps, 0.3 to 3 dB) until every batch starts short of the targets,
+        and right of it (`_grid_right`, up to 10 dB) until every batch has crossed them."""
+        for i in range(3, 31):
+            if _all_below(self.at(op0 - 0.1 * i), target, ber0):
+                break
+        for s in _grid_right(op0):
+            if _all_above(self.at(s), target, ber0):
+                break
+        self.bar(24)
+
+    def stats(self) -> list[PointStats]:
+        """The points in increasing Es/N0."""
+        return [self.points[s] for s in sorted(self.points)]
+
+
+class _Curves:
+    """Curves of the grid against Es/N0 (dB), over all batches or per batch, and where they cross a target."""
+
+    def __init__(self, grid: list[PointStats]) -> None:
+        self.grid = grid
+        self.x = np.asarray([g.esn0_db for g in grid])
+
+    def values(self, attr: str, b: int | None = None) -> np.ndarray:
+        """The figure `attr` at every grid point: over all batches, or that of batch b."""
+        if b is None:
+            return np.asarray([getattr(g, attr) for g in self.grid])
+        return np.asarray([getattr(g, attr + "_batches")[b] for g in self.grid])
+
+    def cross(self, attr: str, tgt: float, b: int | None = None, rising: bool = True) -> float:
+        """Es/N0 (dB) where the curve first reaches tgt: a rising GMI linearly, a falling BER in log10 (nan: never)."""
+        y = self.values(attr, b)
+        if not rising:
+            y = np.log10(np.maximum(y, 1e-300))
+            tgt = math.log10(max(tgt, 1e-300))
+        return _crossing(self.x, y, tgt, rising)
+
+    def ber_at(self, esn0_db: float, ref: str, b: int | None = None) -> float:
+        """BER of the float reference `ref` at `esn0_db` (dB), log-linearly interpolated; all batches or batch b."""
+        y = np.log10(np.maximum(self.values(f"ber_{ref}", b), 1e-300))
+        return 10.0 ** float(np.interp(esn0_db, self.x, y))
+
+    def gap(self, quantity: str, ref: str, target: float, batch_targets: Sequence[float],
+            rising: bool) -> tuple[float | None, tuple[float, float] | None]:
+        """Horizontal distance (dB) of the fixed chain's curve right of the reference's at the target (None if
+        the fixed curve never gets there), and its 95 % batch-means interval (batch b at batch_targets[b])."""
+        fixed, other = f"{quantity}_fixed", f"{quantity}_{ref}"
+        full = self.cross(fixed, target, rising=rising) - self.cross(other, target, rising=rising)
+        per = [self.cross(fixed, t, b, rising) - self.cross(other, t, b, rising) for b, t in enumerate(batch_targets)]
+        return (full if math.isfinite(full) else None, _interval(full, per))
+
+
 def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: int = DEFAULT_SEED, *,
                         operating_point_db: float | None = None, gmi_fraction: float = DEFAULT_GMI_FRACTION,
                         chain: Chain | None = None, label: str = "loss") -> LossResult:
@@ -712,94 +920,30 @@ def implementation_loss(design: Design, symbols: int = DEFAULT_SYMBOLS, seed: in
     batch of the fixed chain has crossed it (at most 10 dB).
     """
     chain = chain or Chain(design)
-    k = chain.k
-    if operating_point_db is None:
-        if not 0.0 < gmi_fraction < 1.0:
-            raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
-        target = gmi_fraction * k
-        op0 = find_operating_point(chain, target, seed)
-    else:
-        op0 = float(operating_point_db)
-        target = None
-    bar = _progress(24, label)
-    points: dict[float, PointStats] = {}
-
-    def at(s: float) -> PointStats:
-        s = round(s, 6)
-        if s not in points:
-            points[s] = chain.run(s, symbols, seed)[0]
-            bar(min(len(points), 23))
-        return points[s]
-
-    centre = at(op0)
+    op0, target = _starting_point(chain, operating_point_db, gmi_fraction, seed)
+    grid = _LossGrid(chain, symbols, seed, label)
+    centre = grid.at(op0)
     if target is None:
         target = centre.gmi_exact
-    ber0 = min(centre.ber_exact, centre.ber_maxlog)
-
-    def below(st: PointStats) -> bool:
-        gmi_ok = all(np.all(getattr(st, f"gmi_{c}_batches") < target) for c in ("exact", "maxlog", "fixed"))
-        ber_ok = all(np.all(getattr(st, f"ber_{c}_batches") > ber0) for c in ("exact", "maxlog", "fixed"))
-        return gmi_ok and ber_ok
-
-    def above(st: PointStats) -> bool:
-        return bool(np.all(st.gmi_fixed_batches >= target) and np.all(st.gmi_maxlog_batches >= target)
-                    and np.all(st.gmi_exact_batches >= target) and np.all(st.ber_fixed_batches < ber0 * 0.8))
-
-    left = op0
-    for i in range(1, 31):
-        left = op0 - 0.1 * i
-        if i >= 3 and below(at(left)):
-            break
-    for s in _grid_right(op0):
-        if above(at(s)):
-            break
-    bar(24)
-    grid = [points[s] for s in sorted(points)]
-    grid_x = sorted(points)
-    x = np.asarray([g.esn0_db for g in grid])
-
-    def cross(attr: str, tgt, b: int | None = None, rising: bool = True) -> float:
-        if b is None:
-            y = np.asarray([getattr(g, attr) for g in grid])
-        else:
-            y = np.asarray([getattr(g, attr + "_batches")[b] for g in grid])
-        if not rising:
-            y = np.log10(np.maximum(y, 1e-300))
-            tgt = math.log10(max(tgt, 1e-300))
-        return _crossing(x, y, tgt, rising)
-
-    s_exact = cross("gmi_exact", target)
+    grid.grow(op0, target, min(centre.ber_exact, centre.ber_maxlog))
+    curves = _Curves(grid.stats())
+    s_exact = curves.cross("gmi_exact", target)
     op = s_exact if math.isfinite(s_exact) else op0
-    note = ""
-    results: dict[str, Any] = {}
-    for ref in ("exact", "maxlog"):
-        full = cross("gmi_fixed", target) - cross(f"gmi_{ref}", target)
-        per = [cross("gmi_fixed", target, b) - cross(f"gmi_{ref}", target, b) for b in range(BATCHES)]
-        results[f"loss_{ref}"] = (full if math.isfinite(full) else None, _interval(full, per))
+    gmi = {ref: curves.gap("gmi", ref, target, [target] * BATCHES, rising=True) for ref in _REFERENCES}
     # BER: the reference BER at the operating point (log-linear interpolation), fixed chain crossing it
-    ber_target = None
-    for ref in ("exact", "maxlog"):
-        yref = np.log10(np.maximum([getattr(g, f"ber_{ref}") for g in grid], 1e-300))
-        tgt = 10.0 ** float(np.interp(op, x, yref))
-        if ref == "exact":
-            ber_target = tgt
-        full = cross("ber_fixed", tgt, rising=False) - cross(f"ber_{ref}", tgt, rising=False)
-        per = []
-        for b in range(BATCHES):
-            yb = np.log10(np.maximum([getattr(g, f"ber_{ref}_batches")[b] for g in grid], 1e-300))
-            tb = 10.0 ** float(np.interp(op, x, yb))
-            per.append(cross("ber_fixed", tb, b, rising=False) - cross(f"ber_{ref}", tb, b, rising=False))
-        results[f"ber_{ref}"] = (full if math.isfinite(full) else None, _interval(full, per))
-    if results["loss_exact"][0] is None:
-        note = (f"the fixed-point GMI stays below the target {target:.4g} bits up to "
-                f"{grid_x[-1]:.1f} dB Es/N0: the loss is larger than {grid_x[-1] - op:.1f} dB")
+    ber = {ref: curves.gap("ber", ref, curves.ber_at(op, ref), [curves.ber_at(op, ref, b) for b in range(BATCHES)],
+                           rising=False) for ref in _REFERENCES}
+    last = max(grid.points)
+    note = "" if gmi["exact"][0] is not None else (
+        f"the fixed-point GMI stays below the target {target:.4g} bits up to "
+        f"{last:.1f} dB Es/N0: the loss is larger than {last - op:.1f} dB")
     return LossResult(operating_point_esn0_db=op, gmi_target=float(target),
-                      loss_db_vs_exact=results["loss_exact"][0], loss_db_vs_exact_ci95=results["loss_exact"][1],
-                      loss_db_vs_maxlog=results["loss_maxlog"][0], loss_db_vs_maxlog_ci95=results["loss_maxlog"][1],
-                      ber_target=ber_target,
-                      ber_loss_db_vs_exact=results["ber_exact"][0], ber_loss_db_vs_exact_ci95=results["ber_exact"][1],
-                      ber_loss_db_vs_maxlog=results["ber_maxlog"][0],
-                      ber_loss_db_vs_maxlog_ci95=results["ber_maxlog"][1], grid=grid, note=note)
+                      loss_db_vs_exact=gmi["exact"][0], loss_db_vs_exact_ci95=gmi["exact"][1],
+                      loss_db_vs_maxlog=gmi["maxlog"][0], loss_db_vs_maxlog_ci95=gmi["maxlog"][1],
+                      ber_target=curves.ber_at(op, "exact"),
+                      ber_loss_db_vs_exact=ber["exact"][0], ber_loss_db_vs_exact_ci95=ber["exact"][1],
+                      ber_loss_db_vs_maxlog=ber["maxlog"][0], ber_loss_db_vs_maxlog_ci95=ber["maxlog"][1],
+                      grid=curves.grid, note=note)
 
 
 # --------------------------------------------------------------------------- width explorer
@@ -878,6 +1022,229 @@ class _Probe:
         return {"loss_db": full, "loss_db_ci95": [full - half, full + half], "gmi": st.gmi_fixed,
                 "llr_factor": st.factor_fixed}
 
+    def row(self, spec: DesignSpec, width: int, fraction: int | None, *, ideal_mapper: bool) -> dict[str, Any]:
+        """One row of a stage's sweep: the candidate's width and fraction (bits) and its loss (dB)."""
+        return {"width": width, "fraction": fraction, **self.loss(spec, ideal_mapper=ideal_mapper)}
+
+
+def _reference_probe(spec: DesignSpec, op: float, symbols: int, seed: int) -> tuple[DesignSpec, PointStats, _Probe]:
+    """The wide reference at Es/N0 op (dB), its statistics there, and the probe measuring candidates against it.
+
+    The probe's slope (bits per dB) is that of the reference GMI over op +- 0.1 dB.
+    """
+    ref = reference_spec(spec, op)
+    ref_chain = Chain(derive(ref), ideal_mapper=True)
+    st0 = ref_chain.run(op, symbols, seed)[0]
+    lo = ref_chain.run(op - 0.1, symbols, seed, floats=False)[0].gmi_fixed
+    hi = ref_chain.run(op + 0.1, symbols, seed, floats=False)[0].gmi_fixed
+    slope = max((hi - lo) / 0.2, 1e-6)
+    return ref, st0, _Probe(op, symbols, seed, st0.gmi_fixed, st0.gmi_fixed_batches, slope)
+
+
+class _Steps:
+    """A progress bar of `total` steps, advanced one step per call."""
+
+    def __init__(self, total: int, label: str) -> None:
+        self.total, self.done = total, 0
+        self.bar = _progress(total, label)
+
+    def __call__(self) -> None:
+        self.done += 1
+        self.bar(self.done)
+
+    def finish(self) -> None:
+        self.bar(self.total)
+
+
+def _no_progress() -> None:
+    """A progress step that shows nothing."""
+
+
+def _fitting_mapper(ref: DesignSpec, scaling: str, spec_fraction: int, width: int) -> tuple[int, DesignSpec] | None:
+    """The mapper fraction (bits) and candidate for a `width`-bit mapper on the reference, or None if none derives.
+
+    Unit-power: the largest fraction that fits; full-scale: the spec's fraction (0 if it does not fit the width).
+    """
+    fracs = range(width - 1, -1, -1) if scaling == "unit-power" else (spec_fraction if spec_fraction < width else 0,)
+    for f in fracs:
+        try:
+            cand = ref.with_settings({"mapper.width": width, "mapper.fraction": f})
+            derive(cand)
+        except SpecError:
+            continue
+        return f, cand
+    return None
+
+
+def _sweep_mapper(spec: DesignSpec, ref: DesignSpec, probe: _Probe, step: Callable[[], None]) -> list[dict[str, Any]]:
+    """Loss (dB) and EVM (dB) of every mapper width, the rest of the chain at reference precision."""
+    m = spec.mapper
+    rows = []
+    for w in MAPPER_WIDTHS:
+        step()
+        fit = _fitting_mapper(ref, m.scaling, m.fraction, w)
+        if fit is None:
+            continue
+        f, cand = fit
+        row = probe.row(cand, w, f if m.scaling == "unit-power" else None, ideal_mapper=False)
+        row["evm_db"] = mapper_evm(derive(cand))["evm_db"]
+        rows.append(row)
+    return rows
+
+
+def _input_candidate(ref: DesignSpec, width: int, fraction: int) -> DesignSpec | None:
+    """The reference with a `width`-bit demapper input of `fraction` bits and exact LLR words; None if invalid."""
+    try:
+        cand = ref.with_settings({"demapper.input_width": width, "demapper.input_fraction": fraction})
+        return cand.with_settings(_exact_llr_settings(cand))
+    except SpecError:
+        return None
+
+
+def _sweep_input(ref: DesignSpec, probe: _Probe, step: Callable[[], None]) -> list[dict[str, Any]]:
+    """Loss (dB) of demapper input words: each fraction from its narrowest width up to INPUT_EXTRA_BITS wider."""
+    rows = []
+    for f in INPUT_FRACTIONS:
+        wmin = _min_input_width(ref, f)
+        for extra in range(INPUT_EXTRA_BITS + 1):
+            step()
+            if wmin is None or wmin + extra > 20:
+                continue
+            cand = _input_candidate(ref, wmin + extra, f)
+            if cand is not None:
+                rows.append(probe.row(cand, wmin + extra, f, ideal_mapper=True))
+    return rows
+
+
+def _llr_rows(base: DesignSpec, width: int, probe: _Probe, *, ideal_mapper: bool,
+              step: Callable[[], None] = _no_progress) -> list[dict[str, Any]]:
+    """Loss (dB) of a `width`-bit LLR word at every fraction (0 .. width - 1) on `base`."""
+    rows = []
+    for f in range(width):
+        step()
+        cand = base.with_settings({"demapper.llr_width": width, "demapper.llr_fraction": f})
+        rows.append(probe.row(cand, width, f, ideal_mapper=ideal_mapper))
+    return rows
+
+
+def _sweep_stages(spec: DesignSpec, ref: DesignSpec, probe: _Probe, stages: list[str],
+                  label: str) -> dict[str, list[dict[str, Any]]]:
+    """Every candidate of every stage, each with the other two at reference precision (LLR only if soft)."""
+    steps = _Steps(len(MAPPER_WIDTHS) + len(INPUT_FRACTIONS) * (INPUT_EXTRA_BITS + 1) + sum(LLR_WIDTHS), label)
+    rows = {"mapper": _sweep_mapper(spec, ref, probe, steps), "input": _sweep_input(ref, probe, steps), "llr": []}
+    if "llr" in stages:
+        for w in LLR_WIDTHS:
+            rows["llr"] += _llr_rows(ref, w, probe, ideal_mapper=True, step=steps)
+    steps.finish()
+    return rows
+
+
+def _best_row(rows: list[dict[str, Any]]) -> dict[str, Any] | None:
+    """The row of least loss (the first of equals), ignoring rows that could not be measured; None if none was."""
+    best = None
+    for r in rows:
+        if r.get("loss_db") is not None and (best is None or r["loss_db"] < best["loss_db"]):
+            best = r
+    return best
+
+
+def _best_per_width(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The best measured row of each width, in increasing width (the stage's loss-against-width curve)."""
+    by_width: dict[int, list[dict[str, Any]]] = {}
+    for r in rows:
+        by_width.setdefault(r["width"], []).append(r)
+    best = {w: _best_row(group) for w, group in by_width.items()}
+    return [best[w] for w in sorted(best) if best[w] is not None]
+
+
+def _first_within(curve: list[dict[str, Any]], share: float) -> dict[str, Any] | None:
+    """The narrowest width whose loss is within `share` dB; the widest if none is; None for an empty curve."""
+    for r in curve:
+        if r["loss_db"] <= share:
+            return r
+    return curve[-1] if curve else None
+
+
+def _next_wider(curve: list[dict[str, Any]], width: int) -> dict[str, Any] | None:
+    """The next width on the curve above `width` bits, or None at the widest."""
+    return next((r for r in curve if r["width"] > width), None)
+
+
+def _combined(spec: DesignSpec, chosen: dict[str, dict[str, Any]], probe: _Probe) -> tuple[DesignSpec, dict[str, Any]]:
+    """The spec with every stage's chosen width (the LLR word at its best fraction) and its measured loss (dB)."""
+    settings: dict[str, Any] = {"mapper.width": chosen["mapper"]["width"]}
+    if spec.mapper.scaling == "unit-power":
+        settings["mapper.fraction"] = chosen["mapper"]["fraction"]
+    settings["demapper.input_width"] = chosen["input"]["width"]
+    settings["demapper.input_fraction"] = chosen["input"]["fraction"]
+    cand = spec.with_settings(settings)
+    if "llr" not in chosen:
+        return cand, {"settings": settings, **probe.loss(cand, ideal_mapper=False)}
+    w = chosen["llr"]["width"]
+    best = _best_row(_llr_rows(cand, w, probe, ideal_mapper=False))
+    llr = {"demapper.llr_width": w, "demapper.llr_fraction": best["fraction"]}
+    settings.update(llr)
+    measured = {key: v for key, v in best.items() if key not in ("width", "fraction")}
+    return cand.with_settings(llr), {"settings": settings, **measured}
+
+
+def _widen_one(chosen: dict[str, dict[str, Any]], curves: dict[str, list[dict[str, Any]]], stages: list[str]) -> bool:
+    """Move the stage of largest loss that has a wider candidate to its next width; False when none can widen."""
+    for s in sorted(stages, key=lambda s: -chosen[s]["loss_db"]):
+        nxt = _next_wider(curves[s], chosen[s]["width"])
+        if nxt is not None:
+            chosen[s] = nxt
+            return True
+    return False
+
+
+def _fit_budget(spec: DesignSpec, chosen: dict[str, dict[str, Any]], curves: dict[str, list[dict[str, Any]]],
+                stages: list[str], probe: _Probe, budget_db: float) -> tuple[DesignSpec, dict[str, Any]]:
+    """Measure the chosen combination and widen it stage by stage (at most 12 rounds) until within `budget_db`."""
+    combo_spec, combo = _combined(spec, chosen, probe)
+    rounds = 0
+    while combo["loss_db"] > budget_db and rounds < 12:
+        rounds += 1
+        if not _widen_one(chosen, curves, stages):
+            break
+        combo_spec, combo = _combined(spec, chosen, probe)
+    return combo_spec, combo
+
+
+def _current(spec: DesignSpec, probe: _Probe) -> dict[str, Any]:
+    """The loss (dB) of the spec as it stands, with its width settings."""
+    m, d = spec.mapper, spec.demapper
+    current = probe.loss(spec, ideal_mapper=False)
+    current["settings"] = {"mapper.width": m.width, "mapper.fraction": m.fraction,
+                           "demapper.input_width": d.input_width, "demapper.input_fraction": d.input_fraction,
+                           "demapper.llr_width": d.llr_width, "demapper.llr_fraction": d.llr_fraction}
+    return current
+
+
+def _add_float_losses(combo: dict[str, Any], combo_spec: DesignSpec, budget_db: float, symbols: int, seed: int,
+                      operating_point_db: float | None, gmi_fraction: float) -> None:
+    """Add the recommendation's loss (dB) against the float references and whether it is within budget.
+
+    The float losses come from a full `implementation_loss` of the recommended spec.
+    """
+    full = implementation_loss(derive(combo_spec), symbols, seed, operating_point_db=operating_point_db,
+                               gmi_fraction=gmi_fraction, label="check")
+    combo["loss_db_vs_exact"] = full.loss_db_vs_exact
+    combo["loss_db_vs_exact_ci95"] = full.loss_db_vs_exact_ci95
+    combo["loss_db_vs_maxlog"] = full.loss_db_vs_maxlog
+    combo["loss_db_vs_maxlog_ci95"] = full.loss_db_vs_maxlog_ci95
+    combo["within_budget"] = bool(combo["loss_db"] <= budget_db)
+
+
+def _reference_record(ref: DesignSpec, st0: PointStats, slope: float) -> dict[str, Any]:
+    """The explorer's reference: its settings, GMI (bits/symbol), slope (bits/dB) and loss to float exact (dB)."""
+    return {"reference": {"mapper": "ideal (float points)", "demapper.input_width": ref.demapper.input_width,
+                          "demapper.input_fraction": ref.demapper.input_fraction,
+                          "demapper.llr_width": ref.demapper.llr_width,
+                          "demapper.llr_fraction": ref.demapper.llr_fraction},
+            "reference_gmi": st0.gmi_fixed, "slope_bits_per_db": slope,
+            "reference_loss_db_vs_exact": (st0.gmi_exact - st0.gmi_fixed) / slope}
+
 
 def explore_widths(spec: DesignSpec, *, budget_db: float = DEFAULT_BUDGET_DB,
                    symbols: int = DEFAULT_EXPLORE_SYMBOLS, seed: int = DEFAULT_SEED,
@@ -894,160 +1261,22 @@ def explore_widths(spec: DesignSpec, *, budget_db: float = DEFAULT_BUDGET_DB,
     if not isinstance(budget_db, (int, float)) or not 0 < budget_db <= 10:
         raise SpecError("budget_db", budget_db, "a loss budget in dB, above 0 and at most 10")
     check_symbols(symbols, spec.bits)
-    base = derive(spec)
-    k = base.bits
-    exact_chain = Chain(base)
-    if operating_point_db is None:
-        if not 0.0 < gmi_fraction < 1.0:
-            raise SpecError("gmi_target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
-        op = find_operating_point(exact_chain, gmi_fraction * k, seed)
-    else:
-        op = float(operating_point_db)
-    ref = reference_spec(spec, op)
-    ref_chain = Chain(derive(ref), ideal_mapper=True)
-    st0 = ref_chain.run(op, symbols, seed)[0]
-    lo = ref_chain.run(op - 0.1, symbols, seed, floats=False)[0].gmi_fixed
-    hi = ref_chain.run(op + 0.1, symbols, seed, floats=False)[0].gmi_fixed
-    slope = max((hi - lo) / 0.2, 1e-6)
-    probe = _Probe(op, symbols, seed, st0.gmi_fixed, st0.gmi_fixed_batches, slope)
+    op, _ = _starting_point(Chain(derive(spec)), operating_point_db, gmi_fraction, seed)
+    ref, st0, probe = _reference_probe(spec, op, symbols, seed)
     algorithm = spec.demapper.algorithm
     stages = ["mapper", "input"] + ([] if algorithm == "hard" else ["llr"])
     share = budget_db / len(stages)
-    m = spec.mapper
-    input_keys = {"demapper.input_width": ref.demapper.input_width,
-                  "demapper.input_fraction": ref.demapper.input_fraction}
-    steps = len(MAPPER_WIDTHS) + len(INPUT_FRACTIONS) * (INPUT_EXTRA_BITS + 1) + sum(LLR_WIDTHS)
-    bar = _progress(steps, label)
-    done = 0
-
-    # mapper: the largest fraction that fits each width (unit-power), or the width alone (full-scale)
-    mapper_rows = []
-    for w in MAPPER_WIDTHS:
-        done += 1
-        bar(done)
-        fracs = range(w - 1, -1, -1) if m.scaling == "unit-power" else (m.fraction if m.fraction < w else 0,)
-        for f in fracs:
-            try:
-                cand = ref.with_settings({"mapper.width": w, "mapper.fraction": f})
-                derive(cand)
-            except SpecError:
-                continue
-            row = {"width": w, "fraction": f if m.scaling == "unit-power" else None}
-            row.update(probe.loss(cand, ideal_mapper=False))
-            row["evm_db"] = mapper_evm(derive(cand))["evm_db"]
-            mapper_rows.append(row)
-            break
-
-    # demapper input: width and fraction, with exact LLR words for each
-    input_rows = []
-    for f in INPUT_FRACTIONS:
-        wmin = _min_input_width(ref, f)
-        for extra in range(INPUT_EXTRA_BITS + 1):
-            done += 1
-            bar(done)
-            if wmin is None or wmin + extra > 20:
-                continue
-            try:
-                cand = ref.with_settings({"demapper.input_width": wmin + extra, "demapper.input_fraction": f})
-                cand = cand.with_settings(_exact_llr_settings(cand))
-            except SpecError:
-                continue
-            row = {"width": wmin + extra, "fraction": f}
-            row.update(probe.loss(cand, ideal_mapper=True))
-            input_rows.append(row)
-
-    # LLR words: every fraction of each width, the best kept
-    llr_rows = []
-    if "llr" in stages:
-        for w in LLR_WIDTHS:
-            for f in range(w):
-                done += 1
-                bar(done)
-                cand = ref.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": f})
-                row = {"width": w, "fraction": f}
-                row.update(probe.loss(cand, ideal_mapper=True))
-                llr_rows.append(row)
-    bar(steps)
-
-    def best_per_width(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
-        best: dict[int, dict[str, Any]] = {}
-        for r in rows:
-            if r.get("loss_db") is None:
-                continue
-            cur = best.get(r["width"])
-            if cur is None or r["loss_db"] < cur["loss_db"]:
-                best[r["width"]] = r
-        return [best[w] for w in sorted(best)]
-
-    curves = {"mapper": best_per_width(mapper_rows), "input": best_per_width(input_rows),
-              "llr": best_per_width(llr_rows)}
-
-    def pick(stage: str, start_after: int | None = None) -> dict[str, Any] | None:
-        rows = curves[stage]
-        for r in rows:
-            if start_after is not None and r["width"] <= start_after:
-                continue
-            if r["loss_db"] <= share or start_after is not None:
-                return r
-        return rows[-1] if rows and start_after is None else None
-
-    chosen = {s: pick(s) for s in stages}
-
-    def combined_spec(ch: dict[str, dict[str, Any]]) -> tuple[DesignSpec, dict[str, Any]]:
-        settings: dict[str, Any] = {"mapper.width": ch["mapper"]["width"]}
-        if m.scaling == "unit-power":
-            settings["mapper.fraction"] = ch["mapper"]["fraction"]
-        settings["demapper.input_width"] = ch["input"]["width"]
-        settings["demapper.input_fraction"] = ch["input"]["fraction"]
-        cand = spec.with_settings(settings)
-        if "llr" in ch:
-            w = ch["llr"]["width"]
-            best = None
-            for f in range(w):
-                trial = cand.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": f})
-                r = probe.loss(trial, ideal_mapper=False)
-                if r["loss_db"] is not None and (best is None or r["loss_db"] < best[1]["loss_db"]):
-                    best = (f, r)
-            settings["demapper.llr_width"] = w
-            settings["demapper.llr_fraction"] = best[0]
-            return cand.with_settings({"demapper.llr_width": w, "demapper.llr_fraction": best[0]}), \
-                {"settings": settings, **best[1]}
-        return cand, {"settings": settings, **probe.loss(cand, ideal_mapper=False)}
-
-    combo_spec, combo = combined_spec(chosen)
-    rounds = 0
-    while combo["loss_db"] > budget_db and rounds < 12:
-        rounds += 1
-        order = sorted(stages, key=lambda s: -chosen[s]["loss_db"])
-        for s in order:
-            nxt = pick(s, start_after=chosen[s]["width"])
-            if nxt is not None:
-                chosen[s] = nxt
-                break
-        else:
-            break
-        combo_spec, combo = combined_spec(chosen)
-    current = probe.loss(spec, ideal_mapper=False)
-    current["settings"] = {"mapper.width": m.width, "mapper.fraction": m.fraction,
-                           "demapper.input_width": spec.demapper.input_width,
-                           "demapper.input_fraction": spec.demapper.input_fraction,
-                           "demapper.llr_width": spec.demapper.llr_width,
-                           "demapper.llr_fraction": spec.demapper.llr_fraction}
-    full = implementation_loss(derive(combo_spec), symbols, seed, operating_point_db=op if operating_point_db is not None else None,
-                               gmi_fraction=gmi_fraction, label="check")
-    combo["loss_db_vs_exact"] = full.loss_db_vs_exact
-    combo["loss_db_vs_exact_ci95"] = full.loss_db_vs_exact_ci95
-    combo["loss_db_vs_maxlog"] = full.loss_db_vs_maxlog
-    combo["loss_db_vs_maxlog_ci95"] = full.loss_db_vs_maxlog_ci95
-    combo["within_budget"] = bool(combo["loss_db"] <= budget_db)
-    ref_settings = {"mapper": "ideal (float points)", **input_keys,
-                    "demapper.llr_width": ref.demapper.llr_width, "demapper.llr_fraction": ref.demapper.llr_fraction}
+    rows = _sweep_stages(spec, ref, probe, stages, label)
+    curves = {s: _best_per_width(r) for s, r in rows.items()}
+    chosen = {s: _first_within(curves[s], share) for s in stages}
+    combo_spec, combo = _fit_budget(spec, chosen, curves, stages, probe, budget_db)
+    current = _current(spec, probe)
+    _add_float_losses(combo, combo_spec, budget_db, symbols, seed,
+                      op if operating_point_db is not None else None, gmi_fraction)
     return {
         "operating_point_esn0_db": op, "budget_db": budget_db, "stage_share_db": share, "symbols": symbols,
-        "seed": seed, "batches": BATCHES, "algorithm": algorithm,
-        "reference": ref_settings, "reference_gmi": st0.gmi_fixed, "slope_bits_per_db": slope,
-        "reference_loss_db_vs_exact": (st0.gmi_exact - st0.gmi_fixed) / slope,
-        "mapper": mapper_rows, "input": input_rows, "llr": llr_rows,
+        "seed": seed, "batches": BATCHES, "algorithm": algorithm, **_reference_record(ref, st0, probe.slope),
+        "mapper": rows["mapper"], "input": rows["input"], "llr": rows["llr"],
         "mapper_best": curves["mapper"], "input_best": curves["input"], "llr_best": curves["llr"],
         "chosen": {s: {"width": chosen[s]["width"], "fraction": chosen[s]["fraction"],
                        "loss_db": chosen[s]["loss_db"]} for s in stages},
@@ -1235,7 +1464,7 @@ def widths_run(spec: DesignSpec, path: Path, *, budget_db: float = DEFAULT_BUDGE
         raise SpecError("--gmi-target", gmi_fraction, "a fraction of log2(M) between 0 and 1")
     if path.exists() and path.is_dir():
         raise SpecError("--json", str(path), "a file path (a directory is in the way)")
-    probe_directory(path, key="--json")        # fail before the long computation, not after it
+    probe_file(path, key="--json")             # fail before the long computation, not after it
     result = explore_widths(spec, budget_db=budget_db, symbols=symbols, seed=seed,
                             operating_point_db=operating_point_db, gmi_fraction=gmi_fraction)
     result["design"] = spec.name

@@ -262,89 +262,115 @@ def splice_hardware(report_md: str, hardware_md: str) -> str:
     return head + hardware_section(hardware_md) + tail
 
 
+def _f_ci(doc: dict[str, Any], key: str, sep: str = " ") -> str:
+    """A loss in dB and its 95 % interval, from doc[key] and doc[key + '_ci95']."""
+    return f"{_f(doc[key])} dB{sep}{_ci(doc[key + '_ci95'])}"
+
+
+def _md_header(spec: DesignSpec, design: Design, doc: dict[str, Any]) -> list[str]:
+    """Title and one paragraph naming the constellation and every word format."""
+    d, m = spec.demapper, spec.mapper
+    reliability = (f", reliability input {d.scale_width}-bit (driven with {doc['reliability_rule']})"
+                   if doc.get("reliability_rule") else "")
+    return [f"# Design review: {spec.name}\n",
+            f"qamsmith {__version__}. {doc['order']}-point {doc['labeling']} constellation, "
+            f"{doc['bits_per_symbol']} bits per symbol; mapper {m.width}-bit {design.mapper_format} ({m.scaling}); "
+            f"demapper {d.algorithm}, input {d.input_width}-bit {design.input_format}, LLR {d.llr_width}-bit "
+            f"{design.llr_format}{reliability}.\n"]
+
+
+def _md_summary(doc: dict[str, Any]) -> list[str]:
+    """The summary table: operating point, implementation losses (dB), EVM, input noise, Monte-Carlo size."""
+    out = ["## Summary\n", "| figure | value |\n| --- | --- |",
+           f"| operating point ({doc['operating_point_rule']}) | Es/N0 {_f(doc['operating_point_esn0_db'], '.2f')} dB, "
+           f"Eb/N0 {_f(doc['operating_point_ebn0_db'], '.2f')} dB, GMI {_f(doc['operating_point_gmi'], '.3f')} bits |",
+           f"| implementation loss vs float exact log-MAP (GMI) | {_f_ci(doc, 'loss_db_vs_exact', ', 95 % ')} |",
+           f"| implementation loss vs float max-log (GMI) | {_f_ci(doc, 'loss_db_vs_maxlog', ', 95 % ')} |",
+           f"| BER loss vs float exact / max-log hard decisions at BER {_f(doc['ber_at_operating_point'], '.3g')} | "
+           f"{_f_ci(doc, 'ber_loss_db_vs_exact')} / {_f_ci(doc, 'ber_loss_db_vs_maxlog')} |",
+           f"| mapper quantization EVM | {_f(doc['evm_db'], '.2f')} dB ({_f(doc['evm_percent'], '.4f')} %); "
+           f"uniform-noise estimate {_f(doc['evm_uniform_model_db'], '.2f')} dB; output power "
+           f"{_f(doc['mapper_power_db'], '.4f')} dB |",
+           f"| demapper input quantization noise | {_f(doc['input_noise_db'], '.2f')} dB re unit symbol power, "
+           f"{_f(doc['input_noise_to_n0_db'], '.2f')} dB re N0 at the operating point; full scale "
+           f"{_f(doc['input_headroom_db'], '.2f')} dB above the outermost level |",
+           f"| Monte-Carlo | {doc['symbols']} symbols per point, seed {doc['seed']}, {doc['batches']} batches |\n"]
+    if doc.get("loss_note"):
+        out.append(f"**Note:** {doc['loss_note']}.\n")
+    return out
+
+
+def _md_points(doc: dict[str, Any]) -> list[str]:
+    """The BER and GMI plots and a table of every Es/N0 point (dB), with what the figures mean."""
+    out = ["## BER and GMI against Es/N0\n", "![BER](ber.png)\n\n![GMI](gmi.png)\n",
+           "| Es/N0 dB | Eb/N0 dB | BER fixed | BER theory | GMI fixed | GMI max-log | GMI exact | LLR factor fixed "
+           "| input clip % |",
+           "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
+    for p in doc["points"]:
+        ber = _f(p["ber_fixed"], ".3e") if p["bit_errors_fixed"] else f"< {_f(p['ber_fixed_upper95'], '.1e')}"
+        out.append(f"| {p['esn0_db']:.2f} | {p['ebn0_db']:.2f} | {ber} | {_f(p['ber_theory'], '.3e')} | "
+                   f"{_f(p['gmi_fixed'])} | {_f(p['gmi_maxlog'])} | {_f(p['gmi_exact'])} | "
+                   f"{_f(p['llr_factor_fixed'], '.3f')} | {_f(p['input_clip_percent'], '.3f')} |")
+    out += ["",
+            f"BER theory: {doc['theory']}. GMI: {doc['gmi_definition']}. The fixed-point LLR factor is the decoder "
+            "input scaling (relative to code x llr_lsb / N0 nats) that maximizes the GMI; "
+            "`nats_per_llr_code` in analysis.json gives it in nats per LLR code.\n",
+            "## Constellation, received cloud and LLR transfer\n",
+            "![mapper constellation](constellation.png)\n\n![received cloud](cloud.png)\n\n"
+            "![LLR transfer](llr_transfer.png)\n"]
+    return out
+
+
+def _md_widths(widths: dict[str, Any]) -> list[str]:
+    """The width explorer's part: its reference, the loss (dB) of each stage's widths, and the recommendation."""
+    ref = widths["reference"]
+    out = ["## Widths against the loss budget\n",
+           f"Budget {widths['budget_db']:g} dB at Es/N0 {widths['operating_point_esn0_db']:.2f} dB, "
+           f"{widths['stage_share_db']:.3f} dB per stage; {widths['symbols']} symbols per candidate. Loss here is "
+           f"against the same algorithm with wide words (reference: ideal mapper, input "
+           f"{ref['demapper.input_width']}-bit with fraction {ref['demapper.input_fraction']}, exact LLR words), "
+           f"linearized at the operating point; "
+           f"the reference itself is {widths['reference_loss_db_vs_exact']:.4f} dB from float exact log-MAP. "
+           "The mapper row counts quantization only: keep whatever headroom the transmit filter or DAC needs "
+           "on top of the width shown.\n",
+           "![loss against width](loss_vs_width.png)\n",
+           "| stage | width | fraction | loss dB | 95 % interval |\n| --- | ---: | ---: | ---: | --- |"]
+    for s in ("mapper", "input", "llr"):
+        for r in widths.get(f"{s}_best", []):
+            mark = " (chosen)" if widths["chosen"].get(s, {}).get("width") == r["width"] else ""
+            frac = "-" if r["fraction"] is None else r["fraction"]
+            out.append(f"| {s}{mark} | {r['width']} | {frac} | {r['loss_db']:.4f} | {_ci(r['loss_db_ci95'])} |")
+    rec = widths["recommended"]
+    out += ["",
+            "**Recommended:** " + ", ".join(f"`{key} = {v}`" for key, v in rec["settings"].items())
+            + f": loss {rec['loss_db']:.4f} dB {_ci(rec.get('loss_db_ci95'))} against the reference "
+            f"({'within' if rec['within_budget'] else 'over'} budget); against float exact log-MAP "
+            f"{_f(rec.get('loss_db_vs_exact'))} dB, float max-log {_f(rec.get('loss_db_vs_maxlog'))} dB. "
+            f"The current spec: {_f(widths['current'].get('loss_db'))} dB against the reference.\n"]
+    return out
+
+
+def _md_method(doc: dict[str, Any], widths: dict[str, Any] | None) -> list[str]:
+    """How the figures were obtained (channel, input quantization, bit-exact model) and where the data is."""
+    return ["## Method\n",
+            f"{doc['method']}. Es/N0 is the mean energy of the mapper's actual output codes over N0; the demapper "
+            "input is quantized as the AGC/equalizer would deliver it (levels at odd multiples of 2^input_fraction "
+            "codes, round half to even, saturation). Fixed-point LLRs come from the bit-exact model "
+            "(`qamsmith.model.demap`), the same function the RTL is checked against. The float references use the "
+            "ideal constellation on the same noise. Data: analysis.json (this directory)"
+            + (", widths.json" if widths else "") + ".\n"]
+
+
 def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], widths: dict[str, Any] | None,
                     hardware_md: str | None = None) -> str:
     """The design-review text: what was simulated, what it cost, which widths to pick."""
-    d, m = spec.demapper, spec.mapper
-    k = doc["bits_per_symbol"]
-    out: list[str] = []
-    w = out.append
-    w(f"# Design review: {spec.name}\n")
-    w(f"qamsmith {__version__}. {doc['order']}-point {doc['labeling']} constellation, {k} bits per symbol; "
-      f"mapper {m.width}-bit {design.mapper_format} ({m.scaling}); demapper {d.algorithm}, input "
-      f"{d.input_width}-bit {design.input_format}, LLR {d.llr_width}-bit {design.llr_format}"
-      + (f", reliability input {d.scale_width}-bit (driven with {doc['reliability_rule']})"
-         if doc.get("reliability_rule") else "") + ".\n")
-    w("## Summary\n")
-    w("| figure | value |\n| --- | --- |")
-    w(f"| operating point ({doc['operating_point_rule']}) | Es/N0 {_f(doc['operating_point_esn0_db'], '.2f')} dB, "
-      f"Eb/N0 {_f(doc['operating_point_ebn0_db'], '.2f')} dB, GMI {_f(doc['operating_point_gmi'], '.3f')} bits |")
-    w(f"| implementation loss vs float exact log-MAP (GMI) | {_f(doc['loss_db_vs_exact'])} dB, 95 % "
-      f"{_ci(doc['loss_db_vs_exact_ci95'])} |")
-    w(f"| implementation loss vs float max-log (GMI) | {_f(doc['loss_db_vs_maxlog'])} dB, 95 % "
-      f"{_ci(doc['loss_db_vs_maxlog_ci95'])} |")
-    w(f"| BER loss vs float exact / max-log hard decisions at BER {_f(doc['ber_at_operating_point'], '.3g')} | "
-      f"{_f(doc['ber_loss_db_vs_exact'])} dB {_ci(doc['ber_loss_db_vs_exact_ci95'])} / "
-      f"{_f(doc['ber_loss_db_vs_maxlog'])} dB {_ci(doc['ber_loss_db_vs_maxlog_ci95'])} |")
-    w(f"| mapper quantization EVM | {_f(doc['evm_db'], '.2f')} dB ({_f(doc['evm_percent'], '.4f')} %); "
-      f"uniform-noise estimate {_f(doc['evm_uniform_model_db'], '.2f')} dB; output power "
-      f"{_f(doc['mapper_power_db'], '.4f')} dB |")
-    w(f"| demapper input quantization noise | {_f(doc['input_noise_db'], '.2f')} dB re unit symbol power, "
-      f"{_f(doc['input_noise_to_n0_db'], '.2f')} dB re N0 at the operating point; full scale "
-      f"{_f(doc['input_headroom_db'], '.2f')} dB above the outermost level |")
-    w(f"| Monte-Carlo | {doc['symbols']} symbols per point, seed {doc['seed']}, {doc['batches']} batches |\n")
-    if doc.get("loss_note"):
-        w(f"**Note:** {doc['loss_note']}.\n")
-    w("## BER and GMI against Es/N0\n")
-    w("![BER](ber.png)\n\n![GMI](gmi.png)\n")
-    w("| Es/N0 dB | Eb/N0 dB | BER fixed | BER theory | GMI fixed | GMI max-log | GMI exact | LLR factor fixed "
-      "| input clip % |")
-    w("| ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |")
-    for p in doc["points"]:
-        ber = _f(p["ber_fixed"], ".3e") if p["bit_errors_fixed"] else f"< {_f(p['ber_fixed_upper95'], '.1e')}"
-        w(f"| {p['esn0_db']:.2f} | {p['ebn0_db']:.2f} | {ber} | {_f(p['ber_theory'], '.3e')} | "
-          f"{_f(p['gmi_fixed'])} | {_f(p['gmi_maxlog'])} | {_f(p['gmi_exact'])} | {_f(p['llr_factor_fixed'], '.3f')} | "
-          f"{_f(p['input_clip_percent'], '.3f')} |")
-    w("")
-    w(f"BER theory: {doc['theory']}. GMI: {doc['gmi_definition']}. The fixed-point LLR factor is the decoder "
-      "input scaling (relative to code x llr_lsb / N0 nats) that maximizes the GMI; "
-      "`nats_per_llr_code` in analysis.json gives it in nats per LLR code.\n")
-    w("## Constellation, received cloud and LLR transfer\n")
-    w("![mapper constellation](constellation.png)\n\n![received cloud](cloud.png)\n\n"
-      "![LLR transfer](llr_transfer.png)\n")
+    out = _md_header(spec, design, doc) + _md_summary(doc) + _md_points(doc)
     if widths:
-        w("## Widths against the loss budget\n")
-        w(f"Budget {widths['budget_db']:g} dB at Es/N0 {widths['operating_point_esn0_db']:.2f} dB, "
-          f"{widths['stage_share_db']:.3f} dB per stage; {widths['symbols']} symbols per candidate. Loss here is "
-          f"against the same algorithm with wide words (reference: ideal mapper, input "
-          f"{widths['reference']['demapper.input_width']}-bit with fraction "
-          f"{widths['reference']['demapper.input_fraction']}, exact LLR words), linearized at the operating point; "
-          f"the reference itself is {widths['reference_loss_db_vs_exact']:.4f} dB from float exact log-MAP. "
-          "The mapper row counts quantization only: keep whatever headroom the transmit filter or DAC needs "
-          "on top of the width shown.\n")
-        w("![loss against width](loss_vs_width.png)\n")
-        w("| stage | width | fraction | loss dB | 95 % interval |\n| --- | ---: | ---: | ---: | --- |")
-        for s in ("mapper", "input", "llr"):
-            for r in widths.get(f"{s}_best", []):
-                mark = " (chosen)" if widths["chosen"].get(s, {}).get("width") == r["width"] else ""
-                frac = "-" if r["fraction"] is None else r["fraction"]
-                w(f"| {s}{mark} | {r['width']} | {frac} | {r['loss_db']:.4f} | {_ci(r['loss_db_ci95'])} |")
-        rec = widths["recommended"]
-        w("")
-        w("**Recommended:** " + ", ".join(f"`{k_} = {v}`" for k_, v in rec["settings"].items())
-          + f": loss {rec['loss_db']:.4f} dB {_ci(rec.get('loss_db_ci95'))} against the reference "
-          f"({'within' if rec['within_budget'] else 'over'} budget); against float exact log-MAP "
-          f"{_f(rec.get('loss_db_vs_exact'))} dB, float max-log {_f(rec.get('loss_db_vs_maxlog'))} dB. "
-          f"The current spec: {_f(widths['current'].get('loss_db'))} dB against the reference.\n")
-    w(hardware_section(hardware_md))
-    w("## Method\n")
-    w(f"{doc['method']}. Es/N0 is the mean energy of the mapper's actual output codes over N0; the demapper "
-      "input is quantized as the AGC/equalizer would deliver it (levels at odd multiples of 2^input_fraction codes, "
-      "round half to even, saturation). Fixed-point LLRs come from the bit-exact model (`qamsmith.model.demap`), "
-      "the same function the RTL is checked against. The float references use the ideal constellation on the same "
-      "noise. Data: analysis.json (this directory)"
-      + (", widths.json" if widths else "") + ".\n")
+        out += _md_widths(widths)
+    out.append(hardware_section(hardware_md))
+    out += _md_method(doc, widths)
     return "\n".join(out)
+
 
 
 # --------------------------------------------------------------------------- writing
