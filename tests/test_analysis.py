@@ -153,7 +153,7 @@ def test_hard_gmi_is_bsc_capacity() -> None:
 
 
 def _pam_bicm_capacity(levels: int, esn0_db: float, nodes: int = 96) -> float:
-    """BICM capacity (bits per real dimension) of Gray L-PAM, each axis of unit-power square QAM,
+    """BICM capacity (bits per real dimension) of Gray L-PAM, each axis of normalized square QAM,
     by Gauss-Hermite quadrature: sum_j 1 - E[log2(sum_a p(y|a) / sum_{a: b_j(a) = b_j(x)} p(y|a))].
 
     Written here independently of qamsmith: levels (2n - L + 1) kappa with kappa^2 = 3 / (2 (L^2 - 1))

@@ -2,9 +2,10 @@
 
 - fxpmath (PyPI, 0.4.x) for `quantize`: the same word/fraction widths, saturation, and the rounding
   names mapped from fxpmath's own code (Fxp._round): 'around' is numpy.around, i.e. round half to
-  even; 'nearest_away' rounds ties away from zero; 'floor' is floor. Overflow 'saturate'.
+  even; 'nearest_away' rounds ties away from zero; 'floor' is floor; 'trunc' is numpy.trunc, toward
+  zero. Overflow 'saturate'.
 - Python's exact rationals (fractions.Fraction) for `shift_round`: round() of a Fraction is round
-  half to even, math.floor is floor; half-away is sign * floor(|x| + 1/2).
+  half to even, math.floor is floor, math.trunc is toward zero; half-away is sign * floor(|x| + 1/2).
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ from fxpmath import Fxp
 
 from qamsmith.numbers.fixed import ROUNDING_MODES, QFormat, bits_for_range, quantize, saturate, shift_round
 
-FXP_ROUNDING = {"half-even": "around", "half-away": "nearest_away", "floor": "floor"}
+FXP_ROUNDING = {"half-even": "around", "half-away": "nearest_away", "floor": "floor", "toward-zero": "trunc"}
 
 FORMATS = [QFormat(2, 0), QFormat(4, 2), QFormat(8, 3), QFormat(12, 10), QFormat(16, 0), QFormat(20, 19),
            QFormat(8, 4, signed=False), QFormat(18, 6, signed=False)]
@@ -91,6 +92,8 @@ def _exact_round(num: int, shift: int, mode: str) -> int:
         return round(x)                       # Fraction.__round__: ties to even
     if mode == "floor":
         return math.floor(x)
+    if mode == "toward-zero":
+        return math.trunc(x)
     mag = math.floor(abs(x) + Fraction(1, 2))
     return -mag if x < 0 else mag
 

@@ -34,7 +34,7 @@ def test_register_plan(steps: int, stages: int) -> None:
 
 
 @pytest.mark.parametrize("order", [2, 4, 16, 64, 256, 1024, 4096])
-@pytest.mark.parametrize("scaling", ["unit-power", "full-scale"])
+@pytest.mark.parametrize("scaling", ["normalized", "full-scale"])
 @pytest.mark.parametrize("rounding", ["half-even", "half-away", "floor"])
 def test_level_multiply_reproduces_every_level(order: int, scaling: str, rounding: str) -> None:
     d = derive(DesignSpec(name="t").with_settings({
@@ -130,7 +130,7 @@ SETTINGS = [
     {"demapper.scale_width": 4, "demapper.scale_fraction": 2, "demapper.llr_width": 10, "demapper.rounding": "half-even",
      "mapper.implementation": "logic", "mapper.scaling": "full-scale"},
     {"demapper.input_fraction": 1, "demapper.input_width": 8, "demapper.llr_width": 5, "demapper.llr_fraction": 1,
-     "demapper.rounding": "floor", "mapper.rom_style": "inline"},
+     "demapper.rounding": "toward-zero", "mapper.tables": "inline"},
     {"demapper.llr_width": 12, "demapper.llr_fraction": 6},                      # an exact left shift
 ]
 

@@ -30,10 +30,10 @@ def _spec(order: int, labeling: str, alg: str, variant: int) -> DesignSpec:
     table = user_table(order) if labeling == "table" else ()
     levels = 2 if order == 2 else 1 << ((order.bit_length() - 1) // 2)
     w = ((levels - 1) << 2).bit_length() + 2
-    mapper = (MapperSpec(implementation="rom", rom_style="file"), MapperSpec(implementation="rom", rom_style="inline"),
+    mapper = (MapperSpec(implementation="rom", tables="readmemh"), MapperSpec(implementation="rom", tables="inline"),
               MapperSpec(implementation="logic"))[variant]
     dem = DemapperSpec(algorithm=alg, input_width=w, input_fraction=2, llr_width=6 + variant,
-                       scale_width=(0, 5, 0)[variant], rounding=("half-away", "half-even", "floor")[variant])
+                       scale_width=(0, 5, 0)[variant], rounding=("half-away", "half-even", "toward-zero")[variant])
     spec = DesignSpec(name="lint", constellation=ConstellationSpec(order=order, labeling=labeling, table=table),
                       mapper=mapper, demapper=dem,
                       interface=InterfaceSpec(tlast=variant != 1, tuser_width=(0, 2, 7)[variant],

@@ -151,7 +151,7 @@ def expected_llr(design, d: np.ndarray, scale: np.ndarray | None = None) -> tupl
         quo, rem = num >> den_exp, num & ((1 << den_exp) - 1)
         half = 1 << (den_exp - 1)
         mode = dm.rounding
-        if mode == "floor":
+        if mode == "toward-zero":                          # the magnitude truncated, then signed
             mag = quo
         elif mode == "half-away":
             mag = quo + (rem >= half)
@@ -244,10 +244,10 @@ def test_rotated_table_search() -> None:
 ROUND_CASES = [(16, "gray"), (256, "3gpp-nr"), (64, "natural"), (4096, "ieee-802.11"), (16, "table16-scrambled")]
 
 
-@pytest.mark.parametrize("rounding", ["half-even", "half-away", "floor"])
+@pytest.mark.parametrize("rounding", ["half-even", "half-away", "toward-zero"])
 @pytest.mark.parametrize("order,labeling", ROUND_CASES, ids=[f"{_oid(o)}-{lab}" for o, lab in ROUND_CASES])
 def test_rounding_and_saturation(order: int, labeling: str, rounding: str) -> None:
-    """Right shift with rounding and 5-bit symmetric saturation: within half an LSB (floor: one) before saturation."""
+    """Right shift with rounding and 5-bit symmetric saturation: within half an LSB (toward-zero: one) before saturation."""
     search = labeling.startswith("table16-s")
     spec = make_spec(order, labeling, f=4, llr_width=5, llr_fraction=1, rounding=rounding)
     design = derive(spec)
@@ -261,7 +261,7 @@ def test_rounding_and_saturation(order: int, labeling: str, rounding: str) -> No
     assert top == 15 and got.max() == top and got.min() == -top      # symmetric, both ends reached
     inside = np.abs(exact) < top - 1
     err = got[inside] - exact[inside]
-    if rounding == "floor":
+    if rounding == "toward-zero":
         assert np.all((np.abs(got[inside]) <= np.abs(exact[inside])) & (np.abs(err) < 1))
     else:
         assert np.abs(err).max() <= 0.5
@@ -272,7 +272,7 @@ def test_rounding_and_saturation(order: int, labeling: str, rounding: str) -> No
                                                                           np.array([0, lo, lo])))[0])
 
 
-@pytest.mark.parametrize("rounding", ["half-even", "half-away", "floor"])
+@pytest.mark.parametrize("rounding", ["half-even", "half-away", "toward-zero"])
 def test_rounding_with_scale(rounding: str) -> None:
     """Scale multiply then rounding shift then saturation, against the exact product (256-QAM Gray)."""
     design = derive(make_spec(256, "gray", f=3, llr_width=8, llr_fraction=2, rounding=rounding,

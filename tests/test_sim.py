@@ -88,7 +88,7 @@ def matrix_results(tmp_path_factory: pytest.TempPathFactory) -> dict:
             derive(spec)
         except SpecError as exc:
             if "mapper.implementation" in str(exc):
-                spec = spec.with_settings({"mapper.implementation": "rom", "mapper.rom_style": "inline"})
+                spec = spec.with_settings({"mapper.implementation": "rom", "mapper.tables": "inline"})
                 try:
                     derive(spec)
                 except SpecError as exc2:
@@ -170,8 +170,8 @@ def test_bench_catches_a_wrong_rtl_constant(tmp_path: Path) -> None:
 # --------------------------------------------------------------------------- cocotb benches
 
 OPTIONS = {
-    "rom-file-tlast": dict(mapper=MapperSpec(implementation="rom", rom_style="file"), interface=InterfaceSpec(tlast=True)),
-    "rom-inline-tuser-stages1": dict(mapper=MapperSpec(implementation="rom", rom_style="inline"),
+    "rom-file-tlast": dict(mapper=MapperSpec(implementation="rom", tables="readmemh"), interface=InterfaceSpec(tlast=True)),
+    "rom-inline-tuser-stages1": dict(mapper=MapperSpec(implementation="rom", tables="inline"),
                                      interface=InterfaceSpec(tlast=True, tuser_width=5, mapper_stages=1, demapper_stages=1)),
     "logic-scale-stages4": dict(mapper=MapperSpec(implementation="logic"),
                                 demapper=DemapperSpec(scale_width=5, scale_fraction=3, llr_width=7),

@@ -67,7 +67,7 @@ def test_unknown_algorithm() -> None:
 def test_unknown_toml_key_in_a_section(tmp_path: Path) -> None:
     path = _toml(tmp_path, "[mapper]\nwidht = 12\n")
     _raises(r"mapper\.widht = 12: a known key of \[mapper\]: width, scaling, fraction, backoff_db, rounding, "
-            r"implementation, rom_style", lambda: DesignSpec.from_toml(path))
+            r"implementation, tables", lambda: DesignSpec.from_toml(path))
 
 
 def test_unknown_top_level_toml_key(tmp_path: Path) -> None:

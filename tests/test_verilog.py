@@ -155,10 +155,10 @@ def test_search_for_non_product_tables() -> None:
     assert "wire [" in text and "d_0" in text and "d_1" in text
 
 
-def test_rom_styles_and_logic() -> None:
-    f = rtl_files(_design(64, **{"mapper.rom_style": "file"}))["rtl/t_mapper.v"]
+def test_tabless_and_logic() -> None:
+    f = rtl_files(_design(64, **{"mapper.tables": "readmemh"}))["rtl/t_mapper.v"]
     assert "$readmemh(ROM_I_FILE" in f and 'parameter ROM_Q_FILE = "rom/mapper_q.hex"' in f
-    i = rtl_files(_design(64, **{"mapper.rom_style": "inline"}))["rtl/t_mapper.v"]
+    i = rtl_files(_design(64, **{"mapper.tables": "inline"}))["rtl/t_mapper.v"]
     assert "$readmemh" not in i and "lvl_i_table(idx_i)" in i
     g = rtl_files(_design(64, "3gpp-nr", **{"mapper.implementation": "logic"}))["rtl/t_mapper.v"]
     assert "$readmemh" not in g and "gray_i" in g and "acc_i" in g

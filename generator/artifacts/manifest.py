@@ -115,7 +115,7 @@ def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, A
             "points": [[int(lab), int(a), int(b)] for lab, a, b in zip(labels, design.point_i, design.point_q)],
             "lsb": design.mapper_lsb, "width": design.mapper_format.width, "scaling": spec.mapper.scaling,
             "rounding": spec.mapper.rounding, "implementation": spec.mapper.implementation,
-            "rom": {"style": spec.mapper.rom_style, "images": rom_manifest(design)},
+            "rom": {"style": spec.mapper.tables, "images": rom_manifest(design)},
         },
         "demapper": dem,
         "packing": packing(design),

@@ -1065,7 +1065,7 @@ def _fitting_mapper(ref: DesignSpec, scaling: str, spec_fraction: int, width: in
 
     Unit-power: the largest fraction that fits; full-scale: the spec's fraction (0 if it does not fit the width).
     """
-    fracs = range(width - 1, -1, -1) if scaling == "unit-power" else (spec_fraction if spec_fraction < width else 0,)
+    fracs = range(width - 1, -1, -1) if scaling == "normalized" else (spec_fraction if spec_fraction < width else 0,)
     for f in fracs:
         try:
             cand = ref.with_settings({"mapper.width": width, "mapper.fraction": f})
@@ -1086,7 +1086,7 @@ def _sweep_mapper(spec: DesignSpec, ref: DesignSpec, probe: _Probe, step: Callab
         if fit is None:
             continue
         f, cand = fit
-        row = probe.row(cand, w, f if m.scaling == "unit-power" else None, ideal_mapper=False)
+        row = probe.row(cand, w, f if m.scaling == "normalized" else None, ideal_mapper=False)
         row["evm_db"] = mapper_evm(derive(cand))["evm_db"]
         rows.append(row)
     return rows
@@ -1173,7 +1173,7 @@ def _next_wider(curve: list[dict[str, Any]], width: int) -> dict[str, Any] | Non
 def _combined(spec: DesignSpec, chosen: dict[str, dict[str, Any]], probe: _Probe) -> tuple[DesignSpec, dict[str, Any]]:
     """The spec with every stage's chosen width (the LLR word at its best fraction) and its measured loss (dB)."""
     settings: dict[str, Any] = {"mapper.width": chosen["mapper"]["width"]}
-    if spec.mapper.scaling == "unit-power":
+    if spec.mapper.scaling == "normalized":
         settings["mapper.fraction"] = chosen["mapper"]["fraction"]
     settings["demapper.input_width"] = chosen["input"]["width"]
     settings["demapper.input_fraction"] = chosen["input"]["fraction"]

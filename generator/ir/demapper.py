@@ -454,7 +454,7 @@ def _round(b: Builder, ident: str, p: Signal, sh: int, stage: OutputStage, lw: i
             return v, None
         ovf = b.reduce(f"ovf_{ident}", "or", v[v.width - 1:lw - 1], note="v > the largest LLR")
         return b.resize(f"vo_{ident}", v[lw - 2:0], lw - 1, False), ovf
-    half = 0 if stage.rounding == "floor" else 1 << (sh - 1)
+    half = 0 if stage.rounding == "toward-zero" else 1 << (sh - 1)    # the magnitude: toward zero is a plain shift
     hval = max(half - (1 if stage.rounding == "half-even" else 0), 0)
     odd = stage.rounding == "half-even" and sh < p.width
     if odd:

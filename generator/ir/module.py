@@ -108,7 +108,7 @@ def _summary(design: Design, role: str, latency: int) -> tuple[str, ...]:
     if role == "mapper":
         w = design.mapper_format.width
         kind = ("a table of {Q, I} points" if design.constellation.axes is None
-                else spec.mapper.implementation + (f" ({'inline tables' if spec.mapper.rom_style == 'inline' else '$readmemh images'})"
+                else spec.mapper.implementation + (f" ({'inline tables' if spec.mapper.tables == 'inline' else '$readmemh images'})"
                                                    if spec.mapper.implementation == "rom" else ""))
         return (f"QAM mapper, {c.order} points, labeling {c.labeling}.",
                 f"Input: a {k}-bit label per transfer, b0 (the first bit in time) in the MSB.",
@@ -137,7 +137,7 @@ def build_module(design: Design, role: str) -> Module:
     spec = design.spec
     i = spec.interface
     if role == "mapper":
-        inline = spec.mapper.rom_style == "inline" or spec.mapper.implementation == "logic"
+        inline = spec.mapper.tables == "inline" or spec.mapper.implementation == "logic"
         dp = mapper_datapath(design, inline=inline)
         params = () if inline else tuple(
             Parameter(r["parameter"], r["path"], f"$readmemh image of the {r['table']} table "

@@ -158,10 +158,10 @@ def _logic_capable(const: Constellation) -> bool:
 def _mapper_tables(spec: DesignSpec, const: Constellation):
     """Mapper output codes per label (and per-axis levels), checked for collisions and clipping."""
     m = spec.mapper
-    fmt = QFormat(m.width, m.fraction if m.scaling == "unit-power" else 0)
+    fmt = QFormat(m.width, m.fraction if m.scaling == "normalized" else 0)
     kappa = const.kappa
     peak = float(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
-    if m.scaling == "unit-power":
+    if m.scaling == "normalized":
         per_amp = kappa * 2.0 ** m.fraction            # output codes per amplitude unit
         key, value = "mapper.fraction", m.fraction
     else:
@@ -188,11 +188,11 @@ def _mapper_tables(spec: DesignSpec, const: Constellation):
 
 
 def _mapper_minimum(spec: DesignSpec, const: Constellation, peak: float) -> int:
-    """Smallest mapper.fraction (unit-power) or mapper.width (full-scale) keeping every level distinct."""
+    """Smallest mapper.fraction (normalized) or mapper.width (full-scale) keeping every level distinct."""
     m = spec.mapper
-    start = (m.fraction if m.scaling == "unit-power" else m.width) + 1
+    start = (m.fraction if m.scaling == "normalized" else m.width) + 1
     for n in range(start, 63):
-        per_amp = (const.kappa * 2.0 ** n if m.scaling == "unit-power"
+        per_amp = (const.kappa * 2.0 ** n if m.scaling == "normalized"
                    else ((1 << (n - 1)) - 1) * 10.0 ** (-m.backoff_db / 20.0) / peak)
         ci = round_float(const.points.real * per_amp, m.rounding)
         cq = round_float(const.points.imag * per_amp, m.rounding)

@@ -57,6 +57,8 @@ def round_float(x: np.ndarray, mode: str) -> np.ndarray:
         r = np.copysign(np.floor(np.abs(x) + 0.5), x)
     elif mode == "floor":
         r = np.floor(x)
+    elif mode == "toward-zero":
+        r = np.trunc(x)
     else:
         raise ValueError(f"unknown rounding mode {mode!r}")
     return r.astype(np.int64)
@@ -77,13 +79,17 @@ def shift_round(x: np.ndarray, shift: int, mode: str) -> np.ndarray:
     """Integer x / 2^shift rounded with `mode`, as hardware does it (shift <= 0 is an exact left shift).
 
     half-away adds 2^(shift-1) to |x| before the shift (the sign is re-applied after);
-    half-even adds 2^(shift-1) - 1 plus the LSB of the truncated quotient; floor is an arithmetic shift.
+    half-even adds 2^(shift-1) - 1 plus the LSB of the truncated quotient; floor is an arithmetic
+    shift; toward-zero shifts |x| (the sign is re-applied after).
     """
     x = np.asarray(x, dtype=np.int64)
     if shift <= 0:
         return x << (-shift)
     if mode == "floor":
         return x >> shift
+    if mode == "toward-zero":
+        mag = np.abs(x) >> shift
+        return np.where(x < 0, -mag, mag)
     half = np.int64(1) << (shift - 1)
     if mode == "half-away":
         mag = (np.abs(x) + half) >> shift

@@ -22,12 +22,18 @@ from .files import read_table_csv, read_toml
 ORDERS = (2, 4, 16, 64, 256, 1024, 4096)
 #: Named labelings, plus "table" for a user table.
 LABELINGS = ("gray", "3gpp-nr", "ieee-802.11", "natural", "table")
-#: Rounding modes, as spelled in the spec.
-ROUNDING_MODES = ("half-even", "half-away", "floor")
+#: Rounding of the mapper's levels (real values to codes): to nearest with ties to even or away
+#: from zero, or down (a true floor of the signed value).
+MAPPER_ROUNDING = ("half-even", "half-away", "floor")
+#: Rounding of the LLR: the magnitude is rounded, then signed, so every mode is symmetric about
+#: zero: to nearest with ties to even or away from zero, or toward zero (the magnitude truncated).
+LLR_ROUNDING = ("half-even", "half-away", "toward-zero")
+#: Every rounding mode, as spelled in the spec.
+ROUNDING_MODES = ("half-even", "half-away", "floor", "toward-zero")
 ALGORITHMS = ("maxlog", "folded", "hard")
-SCALINGS = ("unit-power", "full-scale")
+SCALINGS = ("normalized", "full-scale")
 MAPPER_IMPLEMENTATIONS = ("rom", "logic")
-ROM_STYLES = ("file", "inline")
+TABLE_SOURCES = ("inline", "readmemh")
 FLOW_CONTROLS = ("shared", "per-stage")
 #: widest input / output word the model handles exactly in int64 and tests exhaustively
 MAX_WIDTH = 20
@@ -51,12 +57,12 @@ class ConstellationSpec:
 @dataclass(frozen=True, kw_only=True)
 class MapperSpec:
     width: int = _f(12, "output width W of each signed I and Q component, bits")
-    scaling: str = _f("unit-power", "unit-power (average symbol energy 1) or full-scale (for a DAC)")
-    fraction: int = _f(10, "unit-power: fraction bits, one output LSB = 2^-fraction normalized units")
+    scaling: str = _f("normalized", "normalized (average symbol energy 1) or full-scale (for a DAC)")
+    fraction: int = _f(10, "normalized: fraction bits, one output LSB = 2^-fraction normalized units")
     backoff_db: float = _f(1.0, "full-scale: outermost level this many dB below signed full scale")
     rounding: str = _f("half-even", "rounding of the level values: half-even, half-away or floor")
     implementation: str = _f("rom", "rom (level tables) or logic (levels computed from the label bits)")
-    rom_style: str = _f("file", "rom: file ($readmemh image) or inline (case statement)")
+    tables: str = _f("inline", "rom: inline (constant tables in the RTL) or readmemh (a $readmemh image, path a module parameter)")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -67,7 +73,7 @@ class DemapperSpec:
         4, "input fraction bits in units of half the minimum distance: levels sit at odd multiples of 2^fraction codes")
     llr_width: int = _f(8, "width of each signed LLR, bits (saturates symmetrically)")
     llr_fraction: int = _f(2, "LLR fraction bits; one LLR unit = the max-log metric divided by d_min^2")
-    rounding: str = _f("half-away", "rounding of the LLR magnitude: half-even, half-away or floor")
+    rounding: str = _f("half-away", "rounding of the LLR, symmetric about zero: half-even, half-away or toward-zero")
     scale_width: int = _f(0, "width of the unsigned per-symbol reliability input (0: no input)")
     scale_fraction: int = _f(0, "fraction bits of the reliability input")
 
@@ -126,21 +132,24 @@ class DesignSpec:
             raise SpecError("constellation.table", f"{len(c.table)} rows", "no table unless labeling = 'table'")
         _int("mapper.width", m.width, 2, MAX_WIDTH)
         _choice("mapper.scaling", m.scaling, SCALINGS)
-        if m.scaling == "unit-power":
+        if m.scaling == "normalized":
             _int("mapper.fraction", m.fraction, 0, m.width - 1, " (fraction bits inside mapper.width)")
         else:  # full-scale ignores the fraction; only its type is checked
             _int("mapper.fraction", m.fraction, 0, MAX_WIDTH, " (unused with full-scale scaling)")
         if not isinstance(m.backoff_db, (int, float)) or isinstance(m.backoff_db, bool) or not 0 <= m.backoff_db <= 40 or math.isnan(m.backoff_db):
             raise SpecError("mapper.backoff_db", m.backoff_db, "a number of dB from 0 to 40")
-        _choice("mapper.rounding", m.rounding, ROUNDING_MODES)
+        _choice("mapper.rounding", m.rounding, MAPPER_ROUNDING)
         _choice("mapper.implementation", m.implementation, MAPPER_IMPLEMENTATIONS)
-        _choice("mapper.rom_style", m.rom_style, ROM_STYLES)
+        _choice("mapper.tables", m.tables, TABLE_SOURCES)
         _choice("demapper.algorithm", d.algorithm, ALGORITHMS)
         _int("demapper.input_width", d.input_width, 2, MAX_WIDTH)
         _int("demapper.input_fraction", d.input_fraction, 0, d.input_width - 2, " (fraction bits inside demapper.input_width)")
         _int("demapper.llr_width", d.llr_width, 2, 32)
         _int("demapper.llr_fraction", d.llr_fraction, 0, d.llr_width - 1, " (fraction bits inside demapper.llr_width)")
-        _choice("demapper.rounding", d.rounding, ROUNDING_MODES)
+        if d.rounding == "floor":
+            raise SpecError("demapper.rounding", d.rounding, "one of half-even, half-away, toward-zero (the LLR "
+                            "magnitude is rounded, then signed; toward-zero is what floor of the magnitude does)")
+        _choice("demapper.rounding", d.rounding, LLR_ROUNDING)
         _int("demapper.scale_width", d.scale_width, 0, 18)
         _int("demapper.scale_fraction", d.scale_fraction, 0, d.scale_width, " (fraction bits inside demapper.scale_width)")
         if not isinstance(i.prefix, str) or (i.prefix and not _PREFIX_RE.match(i.prefix)):
@@ -272,6 +281,7 @@ def parse_value(text: str) -> Any:
         return text
 
 
-__all__ = ["ALGORITHMS", "LABELINGS", "MAX_WIDTH", "ORDERS", "ROUNDING_MODES", "SCALINGS", "SECTIONS",
+__all__ = ["ALGORITHMS", "LABELINGS", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_WIDTH", "ORDERS", "ROUNDING_MODES",
+           "SCALINGS", "SECTIONS", "TABLE_SOURCES",
            "ConstellationSpec", "DemapperSpec", "DesignSpec", "InterfaceSpec", "MapperSpec", "field_docs",
            "parse_value"]

@@ -38,7 +38,7 @@ import subprocess  # noqa: E402
 import time  # noqa: E402
 
 from qamsmith import __version__  # noqa: E402
-from qamsmith import analysis as an  # noqa: E402
+from qamsmith.flows import analysis as an  # noqa: E402
 from qamsmith.model import derive  # noqa: E402
 from qamsmith.spec import ConstellationSpec, DesignSpec  # noqa: E402
 

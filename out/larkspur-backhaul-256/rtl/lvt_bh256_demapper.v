@@ -6,12 +6,12 @@
 //   constellation.labeling = "3gpp-nr"
 //   constellation.table = []
 //   mapper.width = 12
-//   mapper.scaling = "unit-power"
+//   mapper.scaling = "normalized"
 //   mapper.fraction = 9
 //   mapper.backoff_db = 1.0
 //   mapper.rounding = "half-even"
 //   mapper.implementation = "rom"
-//   mapper.rom_style = "file"
+//   mapper.tables = "inline"
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 12
 //   demapper.input_fraction = 6
@@ -28,7 +28,7 @@
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: fbcdab559dfdc14f
+// Content hash: 9bfc16aca7cde8f6
 `timescale 1ns / 1ps
 `default_nettype none
 

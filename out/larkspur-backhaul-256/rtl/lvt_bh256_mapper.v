@@ -6,12 +6,12 @@
 //   constellation.labeling = "3gpp-nr"
 //   constellation.table = []
 //   mapper.width = 12
-//   mapper.scaling = "unit-power"
+//   mapper.scaling = "normalized"
 //   mapper.fraction = 9
 //   mapper.backoff_db = 1.0
 //   mapper.rounding = "half-even"
 //   mapper.implementation = "rom"
-//   mapper.rom_style = "file"
+//   mapper.tables = "inline"
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 12
 //   demapper.input_fraction = 6
@@ -28,20 +28,15 @@
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: fbcdab559dfdc14f
+// Content hash: 9bfc16aca7cde8f6
 `timescale 1ns / 1ps
 `default_nettype none
 
 // QAM mapper, 256 points, labeling 3gpp-nr.
 // Input: a 8-bit label per transfer, b0 (the first bit in time) in the MSB.
 // Output: {Q, I}, each a signed 12-bit code, I in the low half.
-// Implementation: rom ($readmemh images); latency 1 cycles, one symbol per clock.
-module lvt_bh256_mapper #(
-  // $readmemh image of the i table (16 words of 12 bits)
-  parameter ROM_I_FILE = "rom/mapper_i.hex",
-  // $readmemh image of the q table (16 words of 12 bits)
-  parameter ROM_Q_FILE = "rom/mapper_q.hex"
-) (
+// Implementation: rom (inline tables); latency 1 cycles, one symbol per clock.
+module lvt_bh256_mapper (
   // clock and reset
   input  wire           aclk,
   input  wire           aresetn,
@@ -91,33 +86,55 @@ module lvt_bh256_mapper #(
   // I axis label: b0, b2, b4, b6, the first the MSB
   wire [3:0] idx_i = {lab[7], lab[5], lab[3], lab[1]};
   // I level code by axis label
-  reg  [11:0] rom_lvl_i [0:15];
-  initial begin
-    $readmemh(ROM_I_FILE, rom_lvl_i);
-  `ifndef SYNTHESIS
-    if (^rom_lvl_i[15] === 1'bx) begin
-      // Verilog-2001 has no $error: report and stop
-      $display("ERROR: lvt_bh256_mapper: ROM image %0s not loaded (pass its path as ROM_I_FILE)", ROM_I_FILE);
-      $finish;
-    end
-  `endif
-  end
-  wire signed [11:0] lvl_i = $signed(rom_lvl_i[idx_i]);
+  function signed [11:0] lvl_i_table;
+    input [3:0] key;
+    case (key)
+      4'd0: lvl_i_table = 12'sd196;
+      4'd1: lvl_i_table = 12'sd275;
+      4'd2: lvl_i_table = 12'sd118;
+      4'd3: lvl_i_table = 12'sd39;
+      4'd4: lvl_i_table = 12'sd432;
+      4'd5: lvl_i_table = 12'sd353;
+      4'd6: lvl_i_table = 12'sd510;
+      4'd7: lvl_i_table = 12'sd589;
+      4'd8: lvl_i_table = -12'sd196;
+      4'd9: lvl_i_table = -12'sd275;
+      4'd10: lvl_i_table = -12'sd118;
+      4'd11: lvl_i_table = -12'sd39;
+      4'd12: lvl_i_table = -12'sd432;
+      4'd13: lvl_i_table = -12'sd353;
+      4'd14: lvl_i_table = -12'sd510;
+      4'd15: lvl_i_table = -12'sd589;
+      default: lvl_i_table = 12'sd0;
+    endcase
+  endfunction
+  wire signed [11:0] lvl_i = lvl_i_table(idx_i);
   // Q axis label: b1, b3, b5, b7, the first the MSB
   wire [3:0] idx_q = {lab[6], lab[4], lab[2], lab[0]};
   // Q level code by axis label
-  reg  [11:0] rom_lvl_q [0:15];
-  initial begin
-    $readmemh(ROM_Q_FILE, rom_lvl_q);
-  `ifndef SYNTHESIS
-    if (^rom_lvl_q[15] === 1'bx) begin
-      // Verilog-2001 has no $error: report and stop
-      $display("ERROR: lvt_bh256_mapper: ROM image %0s not loaded (pass its path as ROM_Q_FILE)", ROM_Q_FILE);
-      $finish;
-    end
-  `endif
-  end
-  wire signed [11:0] lvl_q = $signed(rom_lvl_q[idx_q]);
+  function signed [11:0] lvl_q_table;
+    input [3:0] key;
+    case (key)
+      4'd0: lvl_q_table = 12'sd196;
+      4'd1: lvl_q_table = 12'sd275;
+      4'd2: lvl_q_table = 12'sd118;
+      4'd3: lvl_q_table = 12'sd39;
+      4'd4: lvl_q_table = 12'sd432;
+      4'd5: lvl_q_table = 12'sd353;
+      4'd6: lvl_q_table = 12'sd510;
+      4'd7: lvl_q_table = 12'sd589;
+      4'd8: lvl_q_table = -12'sd196;
+      4'd9: lvl_q_table = -12'sd275;
+      4'd10: lvl_q_table = -12'sd118;
+      4'd11: lvl_q_table = -12'sd39;
+      4'd12: lvl_q_table = -12'sd432;
+      4'd13: lvl_q_table = -12'sd353;
+      4'd14: lvl_q_table = -12'sd510;
+      4'd15: lvl_q_table = -12'sd589;
+      default: lvl_q_table = 12'sd0;
+    endcase
+  endfunction
+  wire signed [11:0] lvl_q = lvl_q_table(idx_q);
 
   // register stage 0 (after step "lookup")
   reg  tlast_s0_reg = 1'd0;

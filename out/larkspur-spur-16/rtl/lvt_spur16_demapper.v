@@ -6,12 +6,12 @@
 //   constellation.labeling = "table"
 //   constellation.table = [16 rows, see design.toml]
 //   mapper.width = 10
-//   mapper.scaling = "unit-power"
+//   mapper.scaling = "normalized"
 //   mapper.fraction = 8
 //   mapper.backoff_db = 1.0
 //   mapper.rounding = "half-even"
 //   mapper.implementation = "rom"
-//   mapper.rom_style = "file"
+//   mapper.tables = "inline"
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 10
 //   demapper.input_fraction = 4
@@ -28,7 +28,7 @@
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 332bf94cfe585ff1
+// Content hash: 8b6d7a5617a68786
 `timescale 1ns / 1ps
 `default_nettype none
 

@@ -6,12 +6,12 @@
 //   constellation.labeling = "table"
 //   constellation.table = [16 rows, see design.toml]
 //   mapper.width = 10
-//   mapper.scaling = "unit-power"
+//   mapper.scaling = "normalized"
 //   mapper.fraction = 8
 //   mapper.backoff_db = 1.0
 //   mapper.rounding = "half-even"
 //   mapper.implementation = "rom"
-//   mapper.rom_style = "file"
+//   mapper.tables = "inline"
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 10
 //   demapper.input_fraction = 4
@@ -28,7 +28,7 @@
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 332bf94cfe585ff1
+// Content hash: 8b6d7a5617a68786
 `timescale 1ns / 1ps
 `default_nettype none
 
@@ -36,10 +36,7 @@
 // Input: a 4-bit label per transfer, b0 (the first bit in time) in the MSB.
 // Output: {Q, I}, each a signed 10-bit code, I in the low half.
 // Implementation: a table of {Q, I} points; latency 1 cycles, one symbol per clock.
-module lvt_spur16_mapper #(
-  // $readmemh image of the points table (16 words of 20 bits)
-  parameter ROM_POINTS_FILE = "rom/mapper_points.hex"
-) (
+module lvt_spur16_mapper (
   // clock and reset
   input  wire           aclk,
   input  wire           aresetn,
@@ -86,18 +83,29 @@ module lvt_spur16_mapper #(
 
   // ---------------------------------------------------------------- step 1: lookup
   // the point table: {Q, I} by label
-  reg  [19:0] rom_point_word [0:15];
-  initial begin
-    $readmemh(ROM_POINTS_FILE, rom_point_word);
-  `ifndef SYNTHESIS
-    if (^rom_point_word[15] === 1'bx) begin
-      // Verilog-2001 has no $error: report and stop
-      $display("ERROR: lvt_spur16_mapper: ROM image %0s not loaded (pass its path as ROM_POINTS_FILE)", ROM_POINTS_FILE);
-      $finish;
-    end
-  `endif
-  end
-  wire [19:0] point_word = rom_point_word[lab];
+  function [19:0] point_word_table;
+    input [3:0] key;
+    case (key)
+      4'd0: point_word_table = 20'd800525;
+      4'd1: point_word_table = 20'd966413;
+      4'd2: point_word_table = 20'd249613;
+      4'd3: point_word_table = 20'd83725;
+      4'd4: point_word_table = 20'd800687;
+      4'd5: point_word_table = 20'd966575;
+      4'd6: point_word_table = 20'd965875;
+      4'd7: point_word_table = 20'd83887;
+      4'd8: point_word_table = 20'd799987;
+      4'd9: point_word_table = 20'd249775;
+      4'd10: point_word_table = 20'd249075;
+      4'd11: point_word_table = 20'd83187;
+      4'd12: point_word_table = 20'd799825;
+      4'd13: point_word_table = 20'd965713;
+      4'd14: point_word_table = 20'd248913;
+      4'd15: point_word_table = 20'd83025;
+      default: point_word_table = 20'd0;
+    endcase
+  endfunction
+  wire [19:0] point_word = point_word_table(lab);
   wire signed [9:0] lvl_i = $signed(point_word[9:0]);
   wire signed [9:0] lvl_q = $signed(point_word[19:10]);
 

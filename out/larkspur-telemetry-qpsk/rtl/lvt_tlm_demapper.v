@@ -11,7 +11,7 @@
 //   mapper.backoff_db = 3.0
 //   mapper.rounding = "half-even"
 //   mapper.implementation = "rom"
-//   mapper.rom_style = "file"
+//   mapper.tables = "inline"
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 8
 //   demapper.input_fraction = 4
@@ -28,7 +28,7 @@
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 47cf417a3d233b87
+// Content hash: 4f87aafb27629c01
 `timescale 1ns / 1ps
 `default_nettype none
 

@@ -11,7 +11,7 @@
 //   mapper.backoff_db = 3.0
 //   mapper.rounding = "half-even"
 //   mapper.implementation = "rom"
-//   mapper.rom_style = "file"
+//   mapper.tables = "inline"
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 8
 //   demapper.input_fraction = 4
@@ -28,20 +28,15 @@
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 47cf417a3d233b87
+// Content hash: 4f87aafb27629c01
 `timescale 1ns / 1ps
 `default_nettype none
 
 // QAM mapper, 4 points, labeling gray.
 // Input: a 2-bit label per transfer, b0 (the first bit in time) in the MSB.
 // Output: {Q, I}, each a signed 10-bit code, I in the low half.
-// Implementation: rom ($readmemh images); latency 1 cycles, one symbol per clock.
-module lvt_tlm_mapper #(
-  // $readmemh image of the i table (2 words of 10 bits)
-  parameter ROM_I_FILE = "rom/mapper_i.hex",
-  // $readmemh image of the q table (2 words of 10 bits)
-  parameter ROM_Q_FILE = "rom/mapper_q.hex"
-) (
+// Implementation: rom (inline tables); latency 1 cycles, one symbol per clock.
+module lvt_tlm_mapper (
   // clock and reset
   input  wire           aclk,
   input  wire           aresetn,
@@ -91,33 +86,27 @@ module lvt_tlm_mapper #(
   // I axis label: b0
   wire idx_i = lab[1];
   // I level code by axis label
-  reg  [9:0] rom_lvl_i [0:1];
-  initial begin
-    $readmemh(ROM_I_FILE, rom_lvl_i);
-  `ifndef SYNTHESIS
-    if (^rom_lvl_i[1] === 1'bx) begin
-      // Verilog-2001 has no $error: report and stop
-      $display("ERROR: lvt_tlm_mapper: ROM image %0s not loaded (pass its path as ROM_I_FILE)", ROM_I_FILE);
-      $finish;
-    end
-  `endif
-  end
-  wire signed [9:0] lvl_i = $signed(rom_lvl_i[idx_i]);
+  function signed [9:0] lvl_i_table;
+    input [0:0] key;
+    case (key)
+      1'd0: lvl_i_table = -10'sd362;
+      1'd1: lvl_i_table = 10'sd362;
+      default: lvl_i_table = 10'sd0;
+    endcase
+  endfunction
+  wire signed [9:0] lvl_i = lvl_i_table(idx_i);
   // Q axis label: b1
   wire idx_q = lab[0];
   // Q level code by axis label
-  reg  [9:0] rom_lvl_q [0:1];
-  initial begin
-    $readmemh(ROM_Q_FILE, rom_lvl_q);
-  `ifndef SYNTHESIS
-    if (^rom_lvl_q[1] === 1'bx) begin
-      // Verilog-2001 has no $error: report and stop
-      $display("ERROR: lvt_tlm_mapper: ROM image %0s not loaded (pass its path as ROM_Q_FILE)", ROM_Q_FILE);
-      $finish;
-    end
-  `endif
-  end
-  wire signed [9:0] lvl_q = $signed(rom_lvl_q[idx_q]);
+  function signed [9:0] lvl_q_table;
+    input [0:0] key;
+    case (key)
+      1'd0: lvl_q_table = -10'sd362;
+      1'd1: lvl_q_table = 10'sd362;
+      default: lvl_q_table = 10'sd0;
+    endcase
+  endfunction
+  wire signed [9:0] lvl_q = lvl_q_table(idx_q);
 
   // register stage 0 (after step "lookup")
   reg  tlast_s0_reg = 1'd0;
