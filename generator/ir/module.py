@@ -15,7 +15,7 @@ from .core import Datapath, Signal, value_range
 from .demapper import demapper_datapath
 from .mapper import mapper_datapath, rom_images
 from .pipeline import Schedule, schedule
-from .timing import stages_for
+from .timing import FAMILIES, stages_for
 
 ROLES = ("mapper", "demapper")
 
@@ -97,7 +97,7 @@ def sideband(tlast: bool, tuser_width: int) -> tuple[Signal, ...]:
 def _stages(design: Design, role: str, dp: Datapath) -> int:
     i = design.spec.interface
     if i.target_mhz > 0:
-        return stages_for(dp, role, float(i.target_mhz))
+        return stages_for(dp, role, float(i.target_mhz), FAMILIES[i.family])
     return getattr(i, f"{role}_stages")
 
 

@@ -35,6 +35,10 @@ SCALINGS = ("normalized", "full-scale")
 MAPPER_IMPLEMENTATIONS = ("rom", "logic")
 TABLE_SOURCES = ("inline", "readmemh")
 FLOW_CONTROLS = ("shared", "per-stage")
+#: FPGA families the delay model behind interface.target_mhz is calibrated for
+FAMILIES = ("ice40", "ecp5")
+#: hardware description languages of the generated RTL
+LANGUAGES = ("verilog", "vhdl", "both")
 #: widest input / output word the model handles exactly in int64 and tests exhaustively
 MAX_WIDTH = 20
 
@@ -84,6 +88,7 @@ class InterfaceSpec:
     mapper_stages: int = _f(0, "mapper register stages, latency in cycles (0: as many as it has steps)")
     demapper_stages: int = _f(0, "demapper register stages, latency in cycles (0: as many as it has steps)")
     target_mhz: float = _f(0.0, "target clock, MHz: the generator chooses both stage counts (0: off, use the *_stages)")
+    family: str = _f("ice40", "FPGA family whose delay model interface.target_mhz uses: ice40 or ecp5")
     tlast: bool = _f(True, "carry s_axis_tlast to m_axis_tlast with its symbol")
     tuser_width: int = _f(0, "width of a tuser field carried with each symbol (0: none)")
     flow_control: str = _f("shared", "shared (one enable for every stage: fastest) or per-stage (empty stages fill while the output waits)")
@@ -166,6 +171,7 @@ class DesignSpec:
             raise SpecError("interface.tlast", i.tlast, "true or false")
         _int("interface.tuser_width", i.tuser_width, 0, 64)
         _choice("interface.flow_control", i.flow_control, FLOW_CONTROLS)
+        _choice("interface.family", i.family, FAMILIES)
         if not isinstance(i.skid, bool):
             raise SpecError("interface.skid", i.skid, "true or false")
 
@@ -281,7 +287,7 @@ def parse_value(text: str) -> Any:
         return text
 
 
-__all__ = ["ALGORITHMS", "LABELINGS", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_WIDTH", "ORDERS", "ROUNDING_MODES",
+__all__ = ["ALGORITHMS", "FAMILIES", "LABELINGS", "LANGUAGES", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_WIDTH", "ORDERS", "ROUNDING_MODES",
            "SCALINGS", "SECTIONS", "TABLE_SOURCES",
            "ConstellationSpec", "DemapperSpec", "DesignSpec", "InterfaceSpec", "MapperSpec", "field_docs",
            "parse_value"]

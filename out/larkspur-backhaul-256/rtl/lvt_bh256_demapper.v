@@ -24,11 +24,12 @@
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
 //   interface.target_mhz = 0.0
+//   interface.family = "ice40"
 //   interface.tlast = true
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 9bfc16aca7cde8f6
+// Content hash: 7c4f120bb8da428c
 `timescale 1ns / 1ps
 `default_nettype none
 

@@ -24,11 +24,12 @@
 //   interface.mapper_stages = 0
 //   interface.demapper_stages = 0
 //   interface.target_mhz = 0.0
+//   interface.family = "ice40"
 //   interface.tlast = true
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 8b6d7a5617a68786
+// Content hash: 8577ce8be92cc156
 `timescale 1ns / 1ps
 `default_nettype none
 
