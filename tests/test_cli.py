@@ -45,14 +45,62 @@ def test_generate_without_arguments_builds_the_default_example(cli, tmp_path: Pa
     (["--set", "mapper.width"], r"--set = 'mapper\.width': section\.key=value"),
     (["--table", "missing.csv"], r"constellation\.table_file = 'missing\.csv': a readable CSV file"),
     (["no-such-example"], r"spec = 'no-such-example': a TOML file, a design directory or a built-in example: larkspur-"),
+    (["--set", "constellation.order=16.0"], r"constellation\.order = 16\.0: one of 2, 4, 16, 64, 256, 1024, 4096 "
+                                            r"\(an integer: 16, not 16\.0\)$"),
+    (["--order", "16.0"], r"constellation\.order = 16\.0: one of 2, 4, 16, 64, 256, 1024, 4096 \(an integer: 16, not 16\.0\)$"),
+    (["--order", "sixteen"], r"constellation\.order = 'sixteen': one of 2, 4, 16, 64, 256, 1024, 4096$"),
+    (["--set", "mapper.width=" + "9" * 5000], r"mapper\.width = 9999999999999999… \(5000 digits\): an integer from 2 to 20$"),
+    (["--mapper-width", "9" * 5000], r"mapper\.width = 9999999999999999… \(5000 digits\): an integer from 2 to 20$"),
+    (["--set", "mapper.width=" + "[" * 3000 + "]" * 3000],
+     r"mapper\.width = \[\[\[\[\[…\]\]\]\]\] \(1 item, nested 3000 deep\): an integer from 2 to 20$"),
+    (["--set", "interface.target_mhz=" + "9" * 400],
+     r"interface\.target_mhz = 9999999999999999… \(400 digits\): 0 \(off\) or a clock from 1 to 1000 MHz$"),
+    (["--mapper-width", "2"], r"mapper\.width = 2: at least 11 bits for mapper\.fraction = 10 \(the default\), "
+                              r"or set a smaller mapper\.fraction$"),
+    (["--order", "64", "--input-width", "4"], r"demapper\.input_width = 4: at least 8 bits for demapper\.input_fraction = 4 "
+                                              r"\(the default\), or set demapper\.input_fraction <= 0$"),
+    (["--order", "4096", "--input-fraction", "6"], r"demapper\.input_fraction = 6: at most 5 to hold the outermost level "
+                                                   r"\(63 amplitude units\) in demapper\.input_width = 12 \(the default\), "
+                                                   r"or set demapper\.input_width >= 13$"),
 ], ids=["order32", "labeling", "llr-width", "fraction", "input-width", "folded-natural", "toml-key", "set-syntax",
-        "table-file", "example"])
+        "table-file", "example", "set-float-order", "float-order", "word-order", "set-5000-digits", "flag-5000-digits",
+        "set-3000-deep", "set-400-digits", "mapper-width-alone", "input-width-alone", "input-fraction-alone"])
 def test_bad_input_exits_2_and_writes_nothing(cli, tmp_path: Path, argv: list[str], pattern: str) -> None:
     r = cli("generate", *argv, "--out", str(tmp_path / "out"))
     assert r.code == 2 and r.out == ""
     assert len(r.err.splitlines()) == 1
     assert re.match(r"qamsmith: error: " + pattern, r.err), r.err
     assert not (tmp_path / "out").exists()
+
+
+def test_table_csv_sets_the_order_from_its_rows(cli, tmp_path: Path) -> None:
+    """--table without --order: the order is the CSV's row count, and a count that is no order names the CSV."""
+    csv = tmp_path / "qpsk.csv"
+    csv.write_text("label,i,q\n0,-1,-1\n1,-1,1\n2,1,-1\n3,1,1\n")
+    r = cli("generate", "--table", str(csv), "--out", str(tmp_path / "out"))
+    assert r.code == 0, r.err
+    assert json.loads((tmp_path / "out" / "qam4-table-maxlog" / MANIFEST).read_text())["spec"]["constellation"]["order"] == 4
+    csv.write_text("label,i,q\n0,-1,-1\n1,-1,1\n2,1,-1\n")
+    r = cli("generate", "--table", str(csv), "--out", str(tmp_path / "bad"))
+    assert r.code == 2 and r.err == ("qamsmith: error: constellation.table_file = '3 rows': one row per label: 2, 4, 16, "
+                                     "64, 256, 1024, 4096 rows (constellation.order, not set, is the number of rows)\n")
+    assert not (tmp_path / "bad").exists()
+
+
+def test_spec_file_errors_are_one_line(cli, tmp_path: Path) -> None:
+    """A spec file that is not UTF-8, an integer of 5,000 digits, an array 3,000 deep: one line, exit 2."""
+    cases = {b"[mapper]\nwidth = 12 # \xff\n": r"spec = '.*spec\.toml': a UTF-8 text file \(byte 0xff on line 2 is not UTF-8\)",
+             b"[mapper]\nwidth = " + b"9" * 5000 + b"\n": r"mapper\.width = 9999999999999999… \(5000 digits\): an integer",
+             b"[mapper]\nwidth = " + b"[" * 3000 + b"]" * 3000 + b"\n": r"mapper\.width = \[\[\[\[\[…\]\]\]\]\] \(1 item",
+             b"[constellation]\norder = 16.0\n": r"constellation\.order = 16\.0: one of .* \(an integer: 16, not 16\.0\)",
+             b'[constellation]\nlabeling = "table"\ntable = 1.5\n': r"constellation\.table = 1\.5: an array of rows"}
+    for text, pattern in cases.items():
+        path = tmp_path / "spec.toml"
+        path.write_bytes(text)
+        r = cli("generate", str(path), "--out", str(tmp_path / "out"))
+        assert r.code == 2 and len(r.err.splitlines()) == 1, r.err
+        assert re.match(r"qamsmith: error: " + pattern, r.err), r.err
+        assert not (tmp_path / "out").exists()
 
 
 def test_argparse_errors_exit_2(cli) -> None:

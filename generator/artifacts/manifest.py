@@ -11,6 +11,7 @@ from ..ir import rom_images
 from ..model import Design
 from ..numbers import QFormat
 from ..version import __version__
+from .kit import kit_entry
 from .texts import GENERATOR, banner, content_hash
 from .words import format_words, pack_words, packing
 
@@ -73,7 +74,7 @@ def _axis_entry(design: Design, n: int) -> dict[str, Any] | None:
 
 def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, Any], rtl: dict[str, Any],
                    testbench: dict[str, Any]) -> dict[str, Any]:
-    """The manifest: every derived number the RTL, testbenches and reports read, and the file list."""
+    """The manifest: every derived number the RTL, testbenches and reports read, the kit's files, the file list."""
     spec = design.spec
     d = spec.demapper
     const = design.constellation
@@ -122,8 +123,9 @@ def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, A
         "vectors": vectors,
         "rtl": rtl,
         "testbench": testbench,
-        "files": [{"path": p, "sha256": hashlib.sha256(b).hexdigest()} for p, b in sorted(files.items())],
     }
+    manifest["kit"] = kit_entry(manifest)
+    manifest["files"] = [{"path": p, "sha256": hashlib.sha256(b).hexdigest()} for p, b in sorted(files.items())]
     return manifest
 
 

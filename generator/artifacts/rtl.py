@@ -69,8 +69,8 @@ def rtl_manifest(design: Design) -> dict[str, Any]:
             "ports": [{"name": p.name, "dir": p.direction, "width": p.width} for p in module.ports],
             "parameters": {p.name: p.default for p in module.parameters},
             "latency": module.latency, "initiation_interval": 1,
-            "pipeline": [{"step": st.name, "registers": regs} for st, regs in zip(module.datapath.steps,
-                                                                                module.schedule.plan)],
+            "pipeline": [{"stage": b.stage, "steps": list(b.steps), "logic_ns": round(d, 3)}
+                         for b, d in zip(module.schedule.banks, module.schedule.delays_ns)],
             "flow_control": i.flow_control, "tready": _TREADY[(i.skid, i.flow_control)],
             "input_fields": [{"name": f.value.name, "lsb": f.lsb, "width": f.width} for f in module.datapath.inputs],
             "signals": _signals(module), "tables": _tables(module),

@@ -1,12 +1,14 @@
 """`qamsmith cost`: what the hardware costs: LUTs, flip-flops, block RAM, multipliers, Fmax and latency.
 
 Yosys runs the generic `synth -lut 4` and the family flows the installed Yosys has (iCE40, ECP5,
-optionally Xilinx 7-series) on each generated module; nextpnr-ice40 places the module inside a
-register wrapper for an Fmax figure on one iCE40 part. In the same run two reference modules are
-built through the IR and the Verilog back end, never shipped: a brute-force per-axis demapper at
-the maxlog demapper's widths (the LUT ratio) and a bare registered adder of the demapper's widest
-adder word (the Fmax ratio). Module names, files and ports come from the design's manifest.
-Results go to `report/hardware.json` and a markdown section `report/hardware.md`.
+optionally Xilinx 7-series) on each generated module; nextpnr places the module inside a register
+wrapper for an Fmax figure on one part per family (tools.PARTS: iCE40 HX8K with nextpnr-ice40,
+ECP5 LFE5U-45F with nextpnr-ecp5). In the same run two reference modules are built through the IR
+and the Verilog back end, never shipped: a brute-force per-axis demapper at the maxlog demapper's
+widths (synthesized on every flow: the LUT ratio) and a bare registered adder of the demapper's
+widest adder word (placed on every family: the Fmax ratio). Module names, files and ports come
+from the design's manifest. Results go to `report/hardware.json` and a markdown section
+`report/hardware.md`.
 
 Every tool runs in a temporary directory, with a timeout and fixed options (`--seed`), so the same
 design and tool versions give the same figures.
@@ -21,6 +23,7 @@ from pathlib import Path
 from typing import Any, Callable, Sequence
 
 from ..artifacts import REPORT_DIR, DesignDirectory, build_files, write_file
+from ..errors import SpecError
 from ..hdl import render, verilog
 from ..ir import Module, design_modules
 from ..ir.references import adder_module, bruteforce_module, widest_adder
@@ -28,8 +31,9 @@ from ..model import derive
 from ..spec import DesignSpec
 from ..version import __version__
 from .report import splice_hardware
-from .tools import (PART, PNR_TARGET_MHZ, SEED, YOSYS_TIMEOUT_S, ToolFailed, Tools, available_flows, find_tools,
-                    place_route, synthesize)
+from .tools import (FLOWS, PART_KEYS, PARTS, PNR_FAMILIES, PNR_TARGET_MHZ, SEED, YOSYS_TIMEOUT_S, ToolFailed,
+                    Tools, available_flows, check_families, find_tools, nextpnr_missing, part_title, place_route,
+                    synthesize)
 
 DEFAULT_FLOWS: tuple[str, ...] = ("generic", "ice40", "ecp5")
 ROLES = ("mapper", "demapper")
@@ -76,16 +80,32 @@ def wrapper_context(name: str, dut: str, ports: Sequence[dict[str, Any]], clock:
 
 
 
-def _fmax(tools: Tools, sources: Sequence[Path], top: str, ports: Sequence[dict[str, Any]], *, cwd: Path,
-          work: Path, seed: int, timeout: float) -> dict[str, Any]:
-    """Fmax of `top` on PART inside the register wrapper."""
+def _fmax(tools: Tools, families: Sequence[str], sources: Sequence[Path], top: str, ports: Sequence[dict[str, Any]],
+          *, cwd: Path, work: Path, seed: int, timeout: float,
+          say: Callable[[str], None]) -> dict[str, dict[str, Any]]:
+    """Fmax of `top` inside the register wrapper on each family's part: {family: figures}."""
     wname = f"{top}_fmax_wrap"
     wfile = work / f"{wname}.v"
     wfile.write_text(render("cost/timing_wrapper.v.j2", **wrapper_context(wname, top, ports)), encoding="utf-8")
-    return place_route(tools, sources, wname, wfile, cwd=cwd, work=work, seed=seed, timeout=timeout)
+    out = {}
+    for fam in families:
+        say(f"{top}: nextpnr-{fam} {part_title(fam)}")
+        out[fam] = place_route(tools, sources, wname, wfile, cwd=cwd, work=work, family=fam, seed=seed,
+                               timeout=timeout)
+    return out
 
 
 # --------------------------------------------------------------------------- the estimate
+
+
+def missing_families(tools: Tools) -> list[str]:
+    """One line per family of PNR_FAMILIES whose nextpnr was not found (left out of a default run)."""
+    out = []
+    for fam in PNR_FAMILIES:
+        if fam not in tools.nextpnr:
+            p = PARTS[fam]
+            out.append(f"no {p['family']} Fmax: {p['nextpnr'][0]} not found on PATH (install it with `{p['install']}`)")
+    return out
 
 
 def build_source(spec: DesignSpec, where: Path) -> DesignDirectory:
@@ -119,21 +139,33 @@ def _write_module(module: Module, folder: Path, what: str) -> Path:
 REFERENCES = ("adder", "bruteforce")
 
 
-def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax: bool = True,
-             references: bool | Sequence[str] = True, seed: int = SEED, timeout: float = YOSYS_TIMEOUT_S,
-             tools: Tools | None = None, progress: Callable[[str], None] | None = None) -> dict[str, Any]:
+def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, families: Sequence[str] | None = None,
+             fmax: bool = True, references: bool | Sequence[str] = True, seed: int = SEED,
+             timeout: float = YOSYS_TIMEOUT_S, tools: Tools | None = None,
+             progress: Callable[[str], None] | None = None) -> dict[str, Any]:
     """Run the flows on both modules of a design (and the references); the hardware.json content.
 
+    `families`: the parts placed for Fmax (PNR_FAMILIES; None: every family whose nextpnr is
+    installed); each family's Yosys flow joins `flows`. `fmax=False`: synthesis only.
     `references`: True (both), False (none) or the names to build, from REFERENCES."""
-    tools = tools or find_tools(need_pnr=fmax)
-    flows = available_flows(tools, flows)
+    wanted = [] if not fmax else None if families is None else check_families(families)
+    tools = tools or find_tools(families=wanted)
+    if wanted is None:
+        wanted = list(tools.families)
+    for fam in wanted:
+        if fam not in tools.nextpnr:
+            raise nextpnr_missing(fam)
+    for f in flows:
+        if f not in FLOWS:
+            raise SpecError("--flows", f, f"one of {', '.join(FLOWS)}")
+    flows = available_flows(tools, [f for f in FLOWS if f in flows or f in wanted])
     say = progress or (lambda msg: None)
     result: dict[str, Any] = {
         "design": dd.spec.name,
         "tools": dict(sorted(tools.versions.items())),
-        "part": {k: v for k, v in PART.items() if k != "nextpnr_args"} if fmax else None,
-        "settings": {"flows": list(flows), "seed": seed if fmax else None,
-                     "pnr_target_mhz": PNR_TARGET_MHZ if fmax else None,
+        "parts": {fam: {k: PARTS[fam][k] for k in PART_KEYS} for fam in wanted},
+        "settings": {"flows": list(flows), "families": list(wanted), "seed": seed if wanted else None,
+                     "pnr_target_mhz": PNR_TARGET_MHZ if wanted else None,
                      "wrapper": "registers on every input and output (input shift chain, output XOR tree)"},
         "modules": {}, "references": {},
     }
@@ -151,14 +183,13 @@ def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax:
             }
             if role == "demapper":
                 figures["algorithm"] = dd.spec.demapper.algorithm
-            if fmax:
-                say(f"{role}: {top}: nextpnr-ice40 {PART['device']}")
-                figures.update(_fmax(tools, sources, top, entry["ports"], cwd=dd.root, work=work, seed=seed,
-                                     timeout=timeout))
+            if wanted:
+                figures["fmax"] = _fmax(tools, wanted, sources, top, entry["ports"], cwd=dd.root, work=work,
+                                        seed=seed, timeout=timeout, say=say)
             result["modules"][role] = figures
-        wanted = REFERENCES if references is True else () if references is False else tuple(references)
-        if wanted:
-            result["references"] = _references(tools, dd, wanted, flows, fmax, seed, timeout, work, say)
+        refs = REFERENCES if references is True else () if references is False else tuple(references)
+        if refs:
+            result["references"] = _references(tools, dd, refs, flows, wanted, seed, timeout, work, say)
     except ToolFailed:
         raise  # the temporary directory stays for its logs
     except BaseException:
@@ -169,8 +200,9 @@ def estimate(dd: DesignDirectory, *, flows: Sequence[str] = DEFAULT_FLOWS, fmax:
     return result
 
 
-def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows: Sequence[str], fmax: bool,
-                seed: int, timeout: float, work: Path, say: Callable[[str], None]) -> dict[str, Any]:
+def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows: Sequence[str],
+                families: Sequence[str], seed: int, timeout: float, work: Path,
+                say: Callable[[str], None]) -> dict[str, Any]:
     refs: dict[str, Any] = {}
     folder = work / "ref"
     folder.mkdir()
@@ -181,12 +213,12 @@ def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows:
     width = adder.datapath.out_width
     say(f"reference: {width}-bit registered adder")
     refs["adder"] = {"module": adder.name, "width": width,
-                     "flows": _synth_all(tools, [f for f in flows if f == "ice40"] or flows[:1], [apath], adder.name,
+                     "flows": _synth_all(tools, [f for f in flows if f in families] or flows[:1], [apath], adder.name,
                                          folder, work, timeout)}
-    if fmax:
+    if families:
         ports = [{"name": p.name, "dir": p.direction, "width": p.width} for p in adder.ports]
-        refs["adder"].update(_fmax(tools, [apath], adder.name, ports, cwd=folder, work=work, seed=seed,
-                                   timeout=timeout))
+        refs["adder"]["fmax"] = _fmax(tools, families, [apath], adder.name, ports, cwd=folder, work=work, seed=seed,
+                                      timeout=timeout, say=say)
     if "bruteforce" not in wanted:
         return refs
     if not design.per_axis:
@@ -213,17 +245,17 @@ def _ratio(a: float | None, b: float | None) -> float | None:
 
 
 def _ratios(result: dict[str, Any]) -> None:
-    """maxlog / brute-force LUTs per flow, and each module's Fmax / the adder's."""
+    """maxlog / brute-force LUTs per flow, and each module's Fmax / the adder's per family."""
     refs = result["references"]
     brute = refs.get("bruteforce_demapper", {})
     if "flows" in brute:
         ml = refs.get("maxlog_demapper") or result["modules"]["demapper"]
         brute["maxlog_lut_ratio"] = {f: _ratio(ml["flows"][f]["luts"], brute["flows"][f]["luts"])
                                      for f in brute["flows"] if f in ml["flows"]}
-    adder_f = refs.get("adder", {}).get("fmax_mhz")
+    adder = refs.get("adder", {}).get("fmax", {})
     for fig in result["modules"].values():
-        if "fmax_mhz" in fig:
-            fig["fmax_vs_adder"] = _ratio(fig["fmax_mhz"], adder_f)
+        for fam, fm in fig.get("fmax", {}).items():
+            fm["fmax_vs_adder"] = _ratio(fm["fmax_mhz"], adder.get(fam, {}).get("fmax_mhz"))
 
 
 
@@ -241,26 +273,24 @@ def _cell(v: Any) -> str:
     return str(v)
 
 
+_FLOW_UNITS = {"ice40": ("BRAM", "mult"), "ecp5": ("EBR", "DSP"), "xilinx": ("BRAM", "DSP")}
+
+
 def markdown(result: dict[str, Any]) -> str:
-    """The report's hardware section (report/hardware.md)."""
+    """The report's hardware section (report/hardware.md): resources per flow, then Fmax per family."""
     flows = result["settings"]["flows"]
-    part = result.get("part")
-    lines = ["## Hardware cost", ""]
+    families = result["settings"].get("families", [])
     tools = ", ".join(result["tools"].values())
-    if part:
-        lines.append(f"Fmax on {part['family']} {part['device']} {part['package']} (nextpnr-ice40, seed "
-                     f"{result['settings']['seed']}, register-to-register inside an input/output register wrapper). "
-                     f"Tools: {tools}.")
-    else:
-        lines.append(f"Synthesis only (no place and route). Tools: {tools}.")
-    lines.append("")
+    ecp5 = (" ECP5: LUTs count two LUT4s per CCU2C carry cell, EBR the DP16KD block RAMs, DSP the MULT18X18D "
+            "multipliers." if "ecp5" in flows else "")
+    lines = ["## Hardware cost", "",
+             f"Resources: Yosys synthesis of each module alone ({', '.join(_FLOW_TITLES[f] for f in flows)}).{ecp5} "
+             f"{'' if families else 'Synthesis only (no place and route). '}Tools: {tools}.", ""]
     head = ["module", "latency (cycles)", "II"]
     for f in flows:
         head += [f"{_FLOW_TITLES[f]} LUTs", f"{_FLOW_TITLES[f]} FFs"]
-        if f in ("ice40", "ecp5", "xilinx"):
-            head += [f"{_FLOW_TITLES[f]} BRAM", f"{_FLOW_TITLES[f]} mult"]
-    if part:
-        head += ["Fmax (MHz)", "Fmax / adder"]
+        if f in _FLOW_UNITS:
+            head += [f"{_FLOW_TITLES[f]} {u}" for u in _FLOW_UNITS[f]]
     lines += ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     rows = [(fig["module"], fig) for fig in result["modules"].values()]
     refs = result["references"]
@@ -272,18 +302,34 @@ def markdown(result: dict[str, Any]) -> str:
         for f in flows:
             fl = fig["flows"].get(f, {})
             row += [_cell(fl.get("luts")), _cell(fl.get("ffs"))]
-            if f in ("ice40", "ecp5", "xilinx"):
+            if f in _FLOW_UNITS:
                 row += [_cell(fl.get("brams")), _cell(fl.get("multipliers"))]
-        if part:
-            row += [_cell(fig.get("fmax_mhz")), _cell(fig.get("fmax_vs_adder"))]
         lines.append("| " + " | ".join(row) + " |")
+    if families:
+        parts = "; ".join(f"{_FLOW_TITLES[fam]} on {part_title(fam)} ({result['tools'].get(f'nextpnr-{fam}', '?')})"
+                          for fam in families)
+        lines += ["", f"Fmax (MHz), register to register inside an input/output register wrapper, nextpnr seed "
+                  f"{result['settings']['seed']}, target {result['settings']['pnr_target_mhz']:g} MHz: {parts}.", ""]
+        head = ["module"]
+        for fam in families:
+            head += [f"{_FLOW_TITLES[fam]} Fmax (MHz)", f"{_FLOW_TITLES[fam]} Fmax / adder"]
+        lines += ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+        for name, fig in rows:
+            if "fmax" not in fig:
+                continue
+            row = [f"`{name}`"]
+            for fam in families:
+                fm = fig["fmax"].get(fam, {})
+                ratio = fm.get("fmax_vs_adder")
+                row += [_cell(fm.get("fmax_mhz")), "-" if ratio is None else f"{ratio:.2f}"]
+            lines.append("| " + " | ".join(row) + " |")
     lines.append("")
     lines += summary_lines(result)
     return "\n".join(lines) + "\n"
 
 
 def summary_lines(result: dict[str, Any]) -> list[str]:
-    """The comparison sentences printed by `qamsmith cost` and put under the table."""
+    """The comparison sentences printed by `qamsmith cost` and put under the tables."""
     out = []
     refs = result["references"]
     brute = refs.get("bruteforce_demapper", {})
@@ -294,11 +340,13 @@ def summary_lines(result: dict[str, Any]) -> list[str]:
     elif "skipped" in brute:
         out.append(f"- brute-force reference: {brute['skipped']}.")
     adder = refs.get("adder", {})
-    if adder.get("fmax_mhz"):
-        parts = [f"{role} {fig['fmax_vs_adder']:.2f}" for role, fig in result["modules"].items()
-                 if fig.get("fmax_vs_adder") is not None]
-        out.append(f"- Fmax / bare registered {adder['width']}-bit adder ({adder['fmax_mhz']:.1f} MHz): "
-                   f"{', '.join(parts)}.")
+    per_family = []
+    for fam, fm in adder.get("fmax", {}).items():
+        ratios = [f"{role} {fig['fmax'][fam]['fmax_vs_adder']:.2f}" for role, fig in result["modules"].items()
+                  if fig.get("fmax", {}).get(fam, {}).get("fmax_vs_adder") is not None]
+        per_family.append(f"{_FLOW_TITLES[fam]} ({fm['fmax_mhz']:.1f} MHz) {', '.join(ratios)}")
+    if per_family:
+        out.append(f"- Fmax / bare registered {adder['width']}-bit adder: {'; '.join(per_family)}.")
     return out
 
 
@@ -314,5 +362,5 @@ def write_report(dd: DesignDirectory, result: dict[str, Any]) -> tuple[Path, Pat
     return paths
 
 
-__all__ = ["DEFAULT_FLOWS", "REFERENCES", "ROLES", "build_source", "estimate", "markdown", "maxlog_variant", "reference_banner",
-           "summary_lines", "wrapper_context", "write_report"]
+__all__ = ["DEFAULT_FLOWS", "PNR_FAMILIES", "REFERENCES", "ROLES", "build_source", "estimate", "markdown",
+           "maxlog_variant", "missing_families", "reference_banner", "summary_lines", "wrapper_context", "write_report"]

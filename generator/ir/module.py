@@ -14,8 +14,8 @@ from ..model import Design
 from .core import Datapath, Signal, value_range
 from .demapper import demapper_datapath
 from .mapper import mapper_datapath, rom_images
-from .pipeline import Schedule, schedule
-from .timing import FAMILIES, stages_for
+from .schedule import Schedule, schedule
+from .timing import FAMILIES
 
 ROLES = ("mapper", "demapper")
 
@@ -94,11 +94,11 @@ def sideband(tlast: bool, tuser_width: int) -> tuple[Signal, ...]:
     return tuple(out)
 
 
-def _stages(design: Design, role: str, dp: Datapath) -> int:
+def _schedule(design: Design, role: str, dp: Datapath, carried: tuple[Signal, ...]) -> Schedule:
+    """Registers for interface.target_mhz, interface.<role>_stages, or by default one widest adder per stage."""
     i = design.spec.interface
-    if i.target_mhz > 0:
-        return stages_for(dp, role, float(i.target_mhz), FAMILIES[i.family])
-    return getattr(i, f"{role}_stages")
+    return schedule(dp, FAMILIES[i.family], stages=getattr(i, f"{role}_stages"), target_mhz=float(i.target_mhz),
+                    role=role, carried=carried)
 
 
 def _summary(design: Design, role: str, latency: int) -> tuple[str, ...]:
@@ -147,7 +147,7 @@ def build_module(design: Design, role: str) -> Module:
         dp = demapper_datapath(design)
         params = ()
     carried = sideband(i.tlast, i.tuser_width)
-    sched = schedule(dp, _stages(design, role, dp), carried)
+    sched = _schedule(design, role, dp, carried)
     return Module(name=f"{spec.prefix}_{role}", role=role, summary=_summary(design, role, sched.latency),
                   datapath=dp, schedule=sched, ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width),
                   parameters=params, flow_control=i.flow_control, skid=i.skid)

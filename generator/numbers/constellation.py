@@ -15,7 +15,7 @@ from itertools import permutations
 import numpy as np
 
 from ..errors import SpecError
-from ..spec import LABELINGS, ORDERS
+from ..spec import LABELINGS, ORDERS, shown
 #: The largest user table demapped by searching every point (the cost grows with M).
 MAX_SEARCH_POINTS = 256
 
@@ -192,19 +192,22 @@ def from_table(order: int, rows: tuple[tuple[int, float, float], ...]) -> Conste
     seen = set()
     for lab in labels:
         if lab in seen:
-            raise SpecError(key, f"label {lab}", "each label exactly once (duplicate label)")
+            raise SpecError(key, f"label {shown(lab)!r}", "each label exactly once (duplicate label)")
         seen.add(lab)
     missing = sorted(set(range(order)) - seen)
     if missing:
         raise SpecError(key, f"label {missing[0]} missing", f"labels 0..{order - 1}, each once")
     pts = np.zeros(order, dtype=np.complex128)
     for lab, i, q in rows:
-        pts[lab] = complex(i, q)
+        pts[lab] = complex(float(i), float(q))
     if len(set(pts.tolist())) != order:
         raise SpecError(key, "repeated point", "distinct points, one per label")
-    energy = float(np.mean(np.abs(pts) ** 2))
-    if not energy > 0:
+    peak = float(max(np.max(np.abs(pts.real)), np.max(np.abs(pts.imag))))
+    if not peak > 0:
         raise SpecError(key, "all points at zero", "points with non-zero energy")
+    if not 1e-100 < peak < 1e100:             # scaled first, so that no square overflows (1e200) or underflows
+        pts = pts / peak
+    energy = float(np.mean(np.abs(pts) ** 2))
     pts = pts * np.sqrt(standard_energy(order) / energy)
     snapped = np.round(pts.real) + 1j * np.round(pts.imag)
     if np.allclose(pts, snapped, atol=1e-9):

@@ -5,8 +5,9 @@ from __future__ import annotations
 from .design import (ALGORITHMS, FAMILIES, LABELINGS, LANGUAGES, LLR_ROUNDING, MAPPER_ROUNDING, MAX_WIDTH, ORDERS, ROUNDING_MODES,
                      SCALINGS, SECTIONS, TABLE_SOURCES,
                      ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec, field_docs, parse_value)
+from .files import shown
 from .sources import DEFAULT_EXAMPLE, example_summary, examples, load_spec
 
 __all__ = ["ALGORITHMS", "DEFAULT_EXAMPLE", "FAMILIES", "LABELINGS", "LANGUAGES", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_WIDTH", "ORDERS",
            "ROUNDING_MODES", "SCALINGS", "SECTIONS", "TABLE_SOURCES", "ConstellationSpec", "DemapperSpec", "DesignSpec", "InterfaceSpec", "MapperSpec",
-           "example_summary", "examples", "field_docs", "load_spec", "parse_value"]
+           "example_summary", "examples", "field_docs", "load_spec", "parse_value", "shown"]

@@ -4,11 +4,19 @@ Each section is a frozen dataclass with keyword-only fields; every field has a d
 one-line doc (`field(metadata={"doc": ...})`). Validation that needs only the spec happens
 in `DesignSpec.__post_init__`; everything derived from it (constellation, internal widths)
 lives in `model.derive`, which refuses specs whose arithmetic would overflow.
+
+Every refusal is one `SpecError` line naming a key the user wrote. `DesignSpec.given` records
+those keys (TOML file, flags); a refusal that follows from several keys names the one the user
+set with the value that would fit, e.g. `--mapper-width 2` alone is refused as mapper.width
+("at least 11 bits for mapper.fraction = 10 (the default)"), never as the default fraction. No
+default is derived from another key (so no valid spec changes), with one exception that only
+turns a refusal into a design: a table given without an order sets the order to its row count.
 """
 
 from __future__ import annotations
 
 import math
+import numbers
 import re
 import tomllib
 from dataclasses import dataclass, field, fields, replace
@@ -16,7 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import SpecError
-from .files import read_table_csv, read_toml
+from .files import loads_toml, read_table_csv, read_toml, shown
 
 #: Orders (number of points) the generator accepts.
 ORDERS = (2, 4, 16, 64, 256, 1024, 4096)
@@ -103,14 +111,62 @@ SECTIONS: dict[str, type] = {
 }
 
 
+def _is_int(value: object) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool)
+
+
+def _is_real(value: object) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _whole(value: object) -> str:
+    """A hint for a float where an integer is expected (TOML `16.0` is a float): ' (an integer: 16, not 16.0)'."""
+    if isinstance(value, float) and value.is_integer() and abs(value) < 1e15:
+        return f" (an integer: {int(value)}, not {value!r})"
+    return ""
+
+
+def _key(text: object) -> str:
+    """A key as a message names it: as written when it is a plain dotted name, else its repr (cut if long)."""
+    if isinstance(text, str) and re.fullmatch(r"[A-Za-z0-9_.-]{1,64}", text):
+        return text
+    return repr(shown(text))
+
+
 def _choice(key: str, value: object, allowed: tuple[str, ...]) -> None:
-    if value not in allowed:
-        raise SpecError(key, value, f"one of {', '.join(allowed)}")
+    if not isinstance(value, str) or value not in allowed:
+        raise SpecError(key, shown(value), f"one of {', '.join(allowed)}")
 
 
 def _int(key: str, value: object, lo: int, hi: int, why: str = "") -> None:
-    if not isinstance(value, int) or isinstance(value, bool) or not lo <= value <= hi:
-        raise SpecError(key, value, f"an integer from {lo} to {hi}{why}")
+    if not _is_int(value) or not lo <= value <= hi:
+        raise SpecError(key, shown(value), f"an integer from {lo} to {hi}{why}{_whole(value)}")
+
+
+def _grid(order: int, labeling: str) -> tuple[int, float] | None:
+    """(outermost level in amplitude units, one amplitude unit in normalized units) of a named labeling.
+
+    The grid `numbers.named` builds (levels at odd integers, unit average energy), None for a user
+    table. The spec uses it only to say which width fits when the user set a width but not its fraction.
+    """
+    if labeling == "table":
+        return None
+    if order == 2:
+        return 1, (math.sqrt(0.5) if labeling == "3gpp-nr" else 1.0)
+    return math.isqrt(order) - 1, math.sqrt(1.5 / (order - 1))
+
+
+def _row_problem(row: Any) -> str:
+    """What is wrong with a table row [label, i, q] ('' when nothing is)."""
+    if (not isinstance(row, (list, tuple)) or len(row) != 3 or not isinstance(row[0], numbers.Integral)
+            or isinstance(row[0], bool)
+            or not all(isinstance(v, numbers.Real) and not isinstance(v, bool) for v in row[1:])):
+        return "rows [label, i, q] with an integer label and numeric i, q"
+    try:
+        finite = math.isfinite(float(row[1])) and math.isfinite(float(row[2]))
+    except OverflowError:                       # an integer beyond the largest float
+        finite = False
+    return "" if finite else "finite i, q (at most 1.8e308 in magnitude)"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -122,34 +178,78 @@ class DesignSpec:
     mapper: MapperSpec = field(default_factory=MapperSpec)
     demapper: DemapperSpec = field(default_factory=DemapperSpec)
     interface: InterfaceSpec = field(default_factory=InterfaceSpec)
+    #: the dotted keys the user wrote (TOML file, flags), empty when not known (built in Python). Not part
+    #: of the spec's value (left out of ==, hash, repr and to_dict): it only decides which key a refusal
+    #: names, so that a refusal never blames a default the user did not write (see `blame`).
+    given: frozenset[str] = field(default=frozenset(), compare=False, repr=False)
+
+    def wrote(self, key: str) -> bool:
+        """True when the user wrote `key` (or when what the user wrote is not known)."""
+        return not self.given or key in self.given
+
+    def blame(self, key: str, *others: str) -> str:
+        """The key a refusal names: `key` if the user wrote it, else the first of `others` the user wrote.
+
+        A refusal that follows from several keys (a fraction that does not fit its width, a table the
+        mapper cannot hold) names one the user actually set, with the value that would fit; `key`
+        when the user wrote none of them or when what the user wrote is not known.
+        """
+        if self.wrote(key):
+            return key
+        return next((k for k in others if k in self.given), key)
+
+    def value(self, key: str) -> Any:
+        """The value of a dotted key as a refusal shows it (a table, from rows or a CSV: its row count)."""
+        if key in ("constellation.table", "constellation.table_file"):
+            return f"{len(self.constellation.table)} rows"
+        if key == "name":
+            return self.name
+        section, name = key.split(".")
+        return getattr(getattr(self, section), name)
+
+    def default_note(self, key: str) -> str:
+        """' (the default)' when the user did not write `key`, for messages that quote its value."""
+        return "" if self.wrote(key) else " (the default)"
 
     def __post_init__(self) -> None:
+        if not isinstance(self.given, frozenset) or not all(isinstance(k, str) for k in self.given):
+            raise SpecError("given", shown(self.given), "a frozenset of the dotted keys the user wrote")
         if not isinstance(self.name, str) or not _NAME_RE.match(self.name):
-            raise SpecError("name", self.name, "lower-case letters, digits, '-' or '_', starting with a letter, at most 48")
+            raise SpecError("name", shown(self.name), "lower-case letters, digits, '-' or '_', starting with a letter, at most 48")
+        for sec, cls in SECTIONS.items():
+            if not isinstance(getattr(self, sec), cls):
+                raise SpecError(sec, shown(getattr(self, sec)), f"a {cls.__name__}")
         c, m, d, i = self.constellation, self.mapper, self.demapper, self.interface
-        if c.order not in ORDERS:
-            extra = " (non-square orders are not supported yet)" if isinstance(c.order, int) and c.order in (8, 32, 128, 512, 2048) else ""
-            raise SpecError("constellation.order", c.order, f"one of {', '.join(map(str, ORDERS))}{extra}")
+        if not _is_int(c.order) or c.order not in ORDERS:
+            extra = " (non-square orders are not supported yet)" if _is_int(c.order) and c.order in (8, 32, 128, 512, 2048) else ""
+            raise SpecError("constellation.order", shown(c.order), f"one of {', '.join(map(str, ORDERS))}{extra}{_whole(c.order)}")
         _choice("constellation.labeling", c.labeling, LABELINGS)
-        if c.labeling == "table" and not c.table:
-            raise SpecError("constellation.table", c.table, "rows [label, i, q] (or table_file) when labeling = 'table'")
-        if c.labeling != "table" and c.table:
-            raise SpecError("constellation.table", f"{len(c.table)} rows", "no table unless labeling = 'table'")
+        self._check_table()
         _int("mapper.width", m.width, 2, MAX_WIDTH)
         _choice("mapper.scaling", m.scaling, SCALINGS)
         if m.scaling == "normalized":
+            if _is_int(m.fraction) and m.fraction >= m.width and self.blame("mapper.fraction", "mapper.width") == "mapper.width":
+                raise SpecError("mapper.width", m.width, self._mapper_width_for_fraction())
             _int("mapper.fraction", m.fraction, 0, m.width - 1, " (fraction bits inside mapper.width)")
         else:  # full-scale ignores the fraction; only its type is checked
             _int("mapper.fraction", m.fraction, 0, MAX_WIDTH, " (unused with full-scale scaling)")
-        if not isinstance(m.backoff_db, (int, float)) or isinstance(m.backoff_db, bool) or not 0 <= m.backoff_db <= 40 or math.isnan(m.backoff_db):
-            raise SpecError("mapper.backoff_db", m.backoff_db, "a number of dB from 0 to 40")
+        # a NaN fails every comparison, and an integer too large for a float (left one by _section) compares exactly
+        if not _is_real(m.backoff_db) or not 0 <= m.backoff_db <= 40:
+            raise SpecError("mapper.backoff_db", shown(m.backoff_db), "a number of dB from 0 to 40")
         _choice("mapper.rounding", m.rounding, MAPPER_ROUNDING)
         _choice("mapper.implementation", m.implementation, MAPPER_IMPLEMENTATIONS)
         _choice("mapper.tables", m.tables, TABLE_SOURCES)
         _choice("demapper.algorithm", d.algorithm, ALGORITHMS)
         _int("demapper.input_width", d.input_width, 2, MAX_WIDTH)
+        if (_is_int(d.input_fraction) and d.input_fraction > d.input_width - 2
+                and self.blame("demapper.input_fraction", "demapper.input_width") == "demapper.input_width"):
+            raise SpecError("demapper.input_width", d.input_width, self._input_width_for_fraction())
         _int("demapper.input_fraction", d.input_fraction, 0, d.input_width - 2, " (fraction bits inside demapper.input_width)")
         _int("demapper.llr_width", d.llr_width, 2, 32)
+        if (_is_int(d.llr_fraction) and d.llr_fraction >= d.llr_width
+                and self.blame("demapper.llr_fraction", "demapper.llr_width") == "demapper.llr_width"):
+            raise SpecError("demapper.llr_width", d.llr_width, f"at least {d.llr_fraction + 1} bits for demapper.llr_fraction "
+                            f"= {d.llr_fraction} (the default), or set demapper.llr_fraction <= {d.llr_width - 1}")
         _int("demapper.llr_fraction", d.llr_fraction, 0, d.llr_width - 1, " (fraction bits inside demapper.llr_width)")
         if d.rounding == "floor":
             raise SpecError("demapper.rounding", d.rounding, "one of half-even, half-away, toward-zero (the LLR "
@@ -158,22 +258,63 @@ class DesignSpec:
         _int("demapper.scale_width", d.scale_width, 0, 18)
         _int("demapper.scale_fraction", d.scale_fraction, 0, d.scale_width, " (fraction bits inside demapper.scale_width)")
         if not isinstance(i.prefix, str) or (i.prefix and not _PREFIX_RE.match(i.prefix)):
-            raise SpecError("interface.prefix", i.prefix, "a Verilog identifier: lower-case letters, digits, '_', starting with a letter")
+            raise SpecError("interface.prefix", shown(i.prefix), "a Verilog identifier: lower-case letters, digits, '_', starting with a letter")
         _int("interface.mapper_stages", i.mapper_stages, 0, 8)
         _int("interface.demapper_stages", i.demapper_stages, 0, 8)
         t = i.target_mhz
-        if (not isinstance(t, (int, float)) or isinstance(t, bool) or math.isnan(t) or not (t == 0 or 1 <= t <= 1000)):
-            raise SpecError("interface.target_mhz", t, "0 (off) or a clock from 1 to 1000 MHz")
+        if not _is_real(t) or not (t == 0 or 1 <= t <= 1000):
+            raise SpecError("interface.target_mhz", shown(t), "0 (off) or a clock from 1 to 1000 MHz")
         if t and (i.mapper_stages or i.demapper_stages):
             raise SpecError("interface.target_mhz", t, "0 when interface.mapper_stages or demapper_stages is set "
                             "(a target clock chooses the stages)")
         if not isinstance(i.tlast, bool):
-            raise SpecError("interface.tlast", i.tlast, "true or false")
-        _int("interface.tuser_width", i.tuser_width, 0, 64)
+            raise SpecError("interface.tlast", shown(i.tlast), "true or false")
+        _int("interface.tuser_width", i.tuser_width, 0, 62, " (the model carries it in int64 words)")
         _choice("interface.flow_control", i.flow_control, FLOW_CONTROLS)
         _choice("interface.family", i.family, FAMILIES)
         if not isinstance(i.skid, bool):
-            raise SpecError("interface.skid", i.skid, "true or false")
+            raise SpecError("interface.skid", shown(i.skid), "true or false")
+
+    def _check_table(self) -> None:
+        """The table's shape (the geometry is checked by numbers.from_table), named as the user gave it."""
+        c = self.constellation
+        key = self.blame("constellation.table", "constellation.table_file")
+        if not isinstance(c.table, tuple):
+            raise SpecError(key, shown(c.table), "a tuple of rows (label, i, q)")
+        for row in c.table:
+            problem = _row_problem(row) or ("" if isinstance(row, tuple) else "rows as tuples (label, i, q): the spec is immutable")
+            if problem:
+                raise SpecError(key, shown(row), problem)
+        if c.labeling == "table" and not c.table:
+            key = self.blame("constellation.table", "constellation.table_file", "constellation.labeling")
+            if key == "constellation.labeling":
+                raise SpecError(key, c.labeling, "rows in constellation.table or a constellation.table_file with it")
+            raise SpecError(key, c.table if key == "constellation.table" else "0 rows",
+                            "rows [label, i, q] (or table_file) when labeling = 'table'")
+        if c.labeling != "table" and c.table:
+            raise SpecError(self.blame("constellation.table", "constellation.table_file", "constellation.labeling"),
+                            f"{len(c.table)} rows", "no table unless labeling = 'table'")
+
+    def _mapper_width_for_fraction(self) -> str:
+        """What mapper.width needs for the default mapper.fraction (the user set the width only)."""
+        c, m = self.constellation, self.mapper
+        need, grid = m.fraction + 1, _grid(c.order, c.labeling)
+        if grid is not None:                    # the outermost level's code, as model.derive rounds it
+            x = grid[0] * grid[1] * 2.0 ** m.fraction
+            top = math.ceil(x) if m.rounding == "floor" else math.floor(x + 0.5)
+            need = max(need, top.bit_length() + 1)
+        return f"at least {need} bits for mapper.fraction = {m.fraction} (the default), or set a smaller mapper.fraction"
+
+    def _input_width_for_fraction(self) -> str:
+        """What demapper.input_width needs for the default demapper.input_fraction (the user set the width only)."""
+        c, d = self.constellation, self.demapper
+        f, w = d.input_fraction, d.input_width
+        grid = _grid(c.order, c.labeling)
+        peak = grid[0] if grid is not None else 0  # a table's outermost level is known to model.derive only
+        need = max(f + 2, (peak << f).bit_length() + 1)
+        fits = [k for k in range(w - 1) if (peak << k) <= (1 << (w - 1)) - 1]
+        alt = f", or set demapper.input_fraction <= {fits[-1]}" if fits else ""
+        return f"at least {need} bits for demapper.input_fraction = {f} (the default){alt}"
 
     @property
     def prefix(self) -> str:
@@ -186,19 +327,28 @@ class DesignSpec:
     # --- building --------------------------------------------------------------------
 
     @classmethod
-    def from_dict(cls, data: dict[str, Any], *, base_dir: Path | None = None) -> "DesignSpec":
-        """Build from nested dicts (TOML layout). Unknown keys are refused, never ignored."""
+    def from_dict(cls, data: dict[str, Any], *, base_dir: Path | None = None,
+                  given: frozenset[str] | None = None) -> "DesignSpec":
+        """Build from nested dicts (TOML layout). Unknown keys are refused, never ignored.
+
+        `given`: the keys the user wrote (default: every key of `data`), kept as `DesignSpec.given`.
+        """
+        if not isinstance(data, dict):
+            raise SpecError("spec", shown(data), "a table of keys")
+        if given is None:
+            given = frozenset(["name"] * ("name" in data) + [f"{sec}.{key}" for sec in SECTIONS
+                                                               if isinstance(data.get(sec), dict) for key in data[sec]])
         kwargs: dict[str, Any] = {}
         for key, value in data.items():
             if key == "name":
                 kwargs["name"] = value
             elif key in SECTIONS:
                 if not isinstance(value, dict):
-                    raise SpecError(key, value, "a table of keys")
-                kwargs[key] = _section(key, SECTIONS[key], value, base_dir)
+                    raise SpecError(key, shown(value), "a table of keys")
+                kwargs[key] = _section(key, SECTIONS[key], value, base_dir, given)
             else:
-                raise SpecError(key, value, f"a known key: name, {', '.join(SECTIONS)}")
-        return cls(**kwargs)
+                raise SpecError(_key(key), shown(value), f"a known key: name, {', '.join(SECTIONS)}")
+        return cls(given=given, **kwargs)
 
     @classmethod
     def from_toml(cls, path: str | Path) -> "DesignSpec":
@@ -208,19 +358,25 @@ class DesignSpec:
     def with_settings(self, settings: dict[str, Any], *, base_dir: Path | None = None) -> "DesignSpec":
         """A copy with dotted keys ('mapper.width') replaced; validated again."""
         data = self.to_dict()
+        given = set(self.given)
         for dotted, value in settings.items():
-            parts = dotted.split(".")
-            if len(parts) == 1 and parts[0] == "name":
+            parts = dotted.split(".") if isinstance(dotted, str) else []
+            if parts == ["name"]:
                 data["name"] = value
+                given.add("name")
                 continue
             if len(parts) != 2 or parts[0] not in SECTIONS:
-                raise SpecError(dotted, value, f"a key 'section.field' with section one of {', '.join(SECTIONS)}")
+                raise SpecError(_key(dotted), shown(value), f"a key 'section.field' with section one of {', '.join(SECTIONS)}")
             data[parts[0]][parts[1]] = value
+            given.add(dotted)
             if parts == ["constellation", "table_file"]:
                 data["constellation"].pop("table", None)
-            if parts == ["constellation", "labeling"] and value != "table":
+                given.discard("constellation.table")
+            if parts == ["constellation", "table"]:
+                given.discard("constellation.table_file")
+            if parts == ["constellation", "labeling"] and not (isinstance(value, str) and value == "table"):
                 data["constellation"]["table"] = []
-        return DesignSpec.from_dict(data, base_dir=base_dir)
+        return DesignSpec.from_dict(data, base_dir=base_dir, given=frozenset(given))
 
     def to_dict(self) -> dict[str, Any]:
         """Nested plain dicts of every field (the fully resolved spec)."""
@@ -237,35 +393,50 @@ def _plain(value: Any) -> Any:
     return value
 
 
-def _section(name: str, cls: type, values: dict[str, Any], base_dir: Path | None) -> Any:
+def _section(name: str, cls: type, values: dict[str, Any], base_dir: Path | None, given: frozenset[str]) -> Any:
     known = {f.name: f for f in fields(cls)}
     kwargs: dict[str, Any] = {}
     values = dict(values)
+    table_key = "constellation.table"
     if name == "constellation" and "table_file" in values:
         path = values.pop("table_file")
-        if not isinstance(path, str):
-            raise SpecError("constellation.table_file", path, "a path to a label,i,q CSV file")
+        table_key = "constellation.table_file"
+        if not isinstance(path, str) or not path:
+            raise SpecError(table_key, shown(path), "a path to a label,i,q CSV file")
+        if "table" in values:
+            raise SpecError(table_key, shown(path), "either constellation.table or constellation.table_file, not both")
         full = Path(path) if base_dir is None or Path(path).is_absolute() else base_dir / path
         values["table"] = read_table_csv(str(full))
     for key, value in values.items():
         if key not in known:
-            raise SpecError(f"{name}.{key}", value, f"a known key of [{name}]: {', '.join(known)}")
+            raise SpecError(f"{name}.{_key(key)}", shown(value), f"a known key of [{name}]: {', '.join(known)}")
         if key == "table":
-            value = _table_rows(value)
+            value = _table_rows(table_key, value)
         elif isinstance(known[key].default, float) and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
+            try:
+                value = float(value)
+            except OverflowError:               # beyond any float: left an integer, refused by validation
+                pass
         kwargs[key] = value
+    # a table sets the order when the user did not: one row per label
+    if (name == "constellation" and "constellation.order" not in given and kwargs.get("table")
+            and kwargs.get("labeling", cls.labeling) == "table"):
+        rows = len(kwargs["table"])
+        if rows not in ORDERS:
+            raise SpecError(table_key, f"{rows} rows", f"one row per label: {', '.join(map(str, ORDERS))} rows "
+                            "(constellation.order, not set, is the number of rows)")
+        kwargs["order"] = rows
     return cls(**kwargs)
 
 
-def _table_rows(value: Any) -> tuple[tuple[int, float, float], ...]:
+def _table_rows(key: str, value: Any) -> tuple[tuple[int, float, float], ...]:
+    if not isinstance(value, (list, tuple)):
+        raise SpecError(key, shown(value), "an array of rows [label, i, q]")
     rows = []
     for row in value:
-        if (not isinstance(row, (list, tuple)) or len(row) != 3 or not isinstance(row[0], int)
-                or isinstance(row[0], bool) or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in row[1:])):
-            raise SpecError("constellation.table", row, "rows [label, i, q] with an integer label and numeric i, q")
-        if not (math.isfinite(row[1]) and math.isfinite(row[2])):
-            raise SpecError("constellation.table", row, "finite i, q")
+        problem = _row_problem(row)
+        if problem:
+            raise SpecError(key, shown(row), problem)
         rows.append((int(row[0]), float(row[1]), float(row[2])))
     return tuple(rows)
 
@@ -279,12 +450,18 @@ def field_docs() -> dict[str, str]:
     return docs
 
 
-def parse_value(text: str) -> Any:
-    """A `--set key=value` value: TOML syntax (numbers, true/false, quoted strings), else a bare string."""
+def parse_value(text: str, *, key: str = "--set") -> Any:
+    """A `--set key=value` value: TOML syntax (numbers, true/false, quoted strings), else a bare string.
+
+    `key` names the setting in the refusal of a value nested or sized beyond what `loads_toml` parses.
+    """
     try:
-        return tomllib.loads(f"v = {text}")["v"]
+        data = loads_toml(f"v = {text}")
     except tomllib.TOMLDecodeError:
         return text
+    except ValueError as exc:
+        raise SpecError(_key(key), shown(text), str(exc)) from None
+    return data["v"] if list(data) == ["v"] else text   # text with a line break and more keys: a bare string
 
 
 __all__ = ["ALGORITHMS", "FAMILIES", "LABELINGS", "LANGUAGES", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_WIDTH", "ORDERS", "ROUNDING_MODES",

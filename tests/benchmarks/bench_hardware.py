@@ -1,13 +1,22 @@
-"""Hardware figures per order, measured with Yosys and nextpnr-ice40 (a script, not collected by pytest).
+"""Hardware figures per order and FPGA family, measured with Yosys and nextpnr (a script, not collected by pytest).
 
-    python tests/benchmarks/bench_hardware.py                  # the table, QPSK .. 4096-QAM, seed 1
-    python tests/benchmarks/bench_hardware.py --orders 4,16,256 --seeds 1,2,3
-    python tests/benchmarks/bench_hardware.py --calibrate      # re-measure the primitives of ir.timing
+    python tests/benchmarks/bench_hardware.py                  # the tables, QPSK .. 4096-QAM, seed 1
+    python tests/benchmarks/bench_hardware.py --orders 4,16,256 --seeds 1,2,3 --families ice40,ecp5
+    python tests/benchmarks/bench_hardware.py --calibrate --family ecp5   # re-measure the primitives of ir.timing
 
-Per order, at default widths with the latency the generator picks: the demapper's iCE40 LUTs,
-FFs, latency and II, the demapper's and mapper's Fmax, and the Fmax of a bare registered adder
-of the demapper's widest adder word, with the ratios; the brute-force reference's LUTs at 256
-points. With several seeds every Fmax is the median over them, the spread printed beside it.
+Per order, at default widths with the latency the generator picks for the family
+(`interface.family`), one table per family (iCE40 HX8K with nextpnr-ice40, ECP5 LFE5U-45F with
+nextpnr-ecp5, tools.PARTS): the demapper's LUTs, FFs, DSPs and block RAMs, latency and II, the
+demapper's and mapper's Fmax, and the Fmax of a bare registered adder of the demapper's widest
+adder word, with the ratios; the brute-force reference's LUTs at 256 points. With several seeds
+every Fmax and ratio is the median over them, the spread printed beside it. The last column is
+the wall time of that family's runs of the order.
+
+--calibrate places registered adders of 4..32 bits, chains of 1..6 LUT4 levels and multipliers
+(signed a x b as in the iCE40 calibration, the unsigned scale multiplies and the constant
+multiplies of the designs) on the family's part, prints each register-to-register delay with the
+logic cells on nextpnr's critical path and the multipliers Yosys mapped to DSPs, and a
+least-squares fit in the form of ir.timing.Calibration.
 """
 
 from __future__ import annotations
@@ -19,97 +28,196 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import Any, Callable
 
+import numpy as np
+
+from qamsmith import SpecError
 from qamsmith.flows import cost, tools
 from qamsmith.hdl import verilog
 from qamsmith.ir.references import adder_module
 from qamsmith.spec import DesignSpec
 
 
-def _median(results: list[dict], get) -> tuple[float, float, float]:
+def _median(results: list[dict], get: Callable[[dict], float]) -> tuple[float, float, float]:
     values = [get(r) for r in results]
     return statistics.median(values), min(values), max(values)
 
 
-def bench(orders: list[int], seeds: list[int]) -> int:
-    t = tools.find_tools()
-    print(f"# {datetime.date.today()} {t.versions['yosys']}; {t.versions.get('nextpnr-ice40')}; "
-          f"part {tools.PART['device']} {tools.PART['package']}, seeds {','.join(map(str, seeds))} "
-          f"(Fmax: median [min, max])")
-    print("| M | log2 M | demapper iCE40 LUTs | LUTs / log2 M | FFs | latency | II | demapper Fmax | mapper LUTs | "
-          "mapper Fmax | adder (bits) Fmax | demapper / adder | mapper / adder | brute LUTs | maxlog / brute | s |")
-    print("|---" * 16 + "|")
+def _fmax(r: dict, key: str, fam: str) -> float:
+    fig = r["references"]["adder"] if key == "adder" else r["modules"][key]
+    return fig["fmax"][fam]["fmax_mhz"]
+
+
+def bench(orders: list[int], seeds: list[int], families: list[str]) -> int:
+    t = tools.find_tools(families=families)
+    start = time.monotonic()
+    rows: dict[str, list[str]] = {fam: [] for fam in families}
     with tempfile.TemporaryDirectory() as tmp:
         for order in orders:
-            t0 = time.monotonic()
-            spec = DesignSpec(name=f"bench-{order}").with_settings({"constellation.order": order})
-            dd = cost.build_source(spec, Path(tmp))
-            # the brute-force reference only where its target is defined (256 points) and cheap enough
-            runs = [cost.estimate(dd, flows=("ice40",), seed=seed, tools=t,
-                                  references=("adder", "bruteforce") if order == 256 and seed == seeds[0]
-                                  else ("adder",)) for seed in seeds]
-            res = runs[0]
-            dm, mp = res["modules"]["demapper"], res["modules"]["mapper"]
-            ad = res["references"]["adder"]
-            k = order.bit_length() - 1
-            br = res["references"].get("bruteforce_demapper", {})
-            brute = br.get("flows", {}).get("ice40", {}).get("luts")
-            ratio = br.get("maxlog_lut_ratio", {}).get("ice40")
-            luts = dm["flows"]["ice40"]["luts"]
-            fd = _median(runs, lambda r: r["modules"]["demapper"]["fmax_mhz"])
-            fm = _median(runs, lambda r: r["modules"]["mapper"]["fmax_mhz"])
-            fa = _median(runs, lambda r: r["references"]["adder"]["fmax_mhz"])
-            rd = _median(runs, lambda r: r["modules"]["demapper"]["fmax_mhz"] / r["references"]["adder"]["fmax_mhz"])
-            rm = _median(runs, lambda r: r["modules"]["mapper"]["fmax_mhz"] / r["references"]["adder"]["fmax_mhz"])
-
-            def f(x: tuple[float, float, float], fmt: str = ".1f") -> str:
-                return f"{x[0]:{fmt}}" + (f" [{x[1]:{fmt}}, {x[2]:{fmt}}]" if len(seeds) > 1 else "")
-
-            print(f"| {order} | {k} | {luts} | {luts / k:.0f} | {dm['flows']['ice40']['ffs']} | {dm['latency_cycles']} | "
-                  f"{dm['initiation_interval']} | {f(fd)} | {mp['flows']['ice40']['luts']} | {f(fm)} | "
-                  f"{f(fa)} ({ad['width']}) | {f(rd, '.2f')} | {f(rm, '.2f')} | "
-                  f"{brute if brute is not None else '-'} | {f'{ratio:.3f}' if ratio is not None else '-'} | "
-                  f"{time.monotonic() - t0:.0f} |", flush=True)
+            for fam in families:
+                t0 = time.monotonic()
+                # the design for the family it is placed on (interface.family: its delay model)
+                spec = DesignSpec(name=f"bench-{order}-{fam}").with_settings({"constellation.order": order,
+                                                                             "interface.family": fam})
+                dd = cost.build_source(spec, Path(tmp))
+                # the brute-force reference only where its target is defined (256 points) and cheap enough
+                runs = [cost.estimate(dd, flows=(fam,), families=(fam,), seed=seed, tools=t,
+                                      references=("adder", "bruteforce") if order == 256 and seed == seeds[0]
+                                      else ("adder",)) for seed in seeds]
+                rows[fam].append(_row(order, fam, runs, seeds, time.monotonic() - t0))
+                print(f"# {order}-QAM {fam}: {time.monotonic() - t0:.0f} s", file=sys.stderr, flush=True)
+    print(f"# {datetime.date.today()}, {t.versions['yosys']}; seeds {','.join(map(str, seeds))} (Fmax and ratios: "
+          f"median [min, max]); {time.monotonic() - start:.0f} s in all")
+    for fam in families:
+        print(f"\n## {tools.part_title(fam)}: {t.versions[f'nextpnr-{fam}']}\n")
+        print("| M | log2 M | demapper LUTs | LUTs / log2 M | FFs | DSP | BRAM | latency | II | demapper Fmax | "
+              "mapper LUTs | mapper Fmax | adder (bits) Fmax | demapper / adder | mapper / adder | brute LUTs | "
+              "maxlog / brute | s |")
+        print("|---" * 18 + "|")
+        for row in rows[fam]:
+            print(row)
     return 0
 
 
-def calibrate(seed: int) -> int:
-    """Registered adders, LUT4 chains and LUT multipliers: the primitives of ir.timing.CALIBRATION."""
-    t = tools.find_tools()
-    print(f"# {datetime.date.today()} {t.versions['yosys']}; {t.versions.get('nextpnr-ice40')}")
+def _row(order: int, fam: str, runs: list[dict[str, Any]], seeds: list[int], seconds: float) -> str:
+    res = runs[0]
+    dm, mp = res["modules"]["demapper"], res["modules"]["mapper"]
+    ad = res["references"]["adder"]
+    k = order.bit_length() - 1
+    br = res["references"].get("bruteforce_demapper", {})
+    brute = br.get("flows", {}).get(fam, {}).get("luts")
+    ratio = br.get("maxlog_lut_ratio", {}).get(fam)
+    syn = dm["flows"][fam]
+    fd = _median(runs, lambda r: _fmax(r, "demapper", fam))
+    fm = _median(runs, lambda r: _fmax(r, "mapper", fam))
+    fa = _median(runs, lambda r: _fmax(r, "adder", fam))
+    rd = _median(runs, lambda r: _fmax(r, "demapper", fam) / _fmax(r, "adder", fam))
+    rm = _median(runs, lambda r: _fmax(r, "mapper", fam) / _fmax(r, "adder", fam))
+
+    def f(x: tuple[float, float, float], fmt: str = ".1f") -> str:
+        return f"{x[0]:{fmt}}" + (f" [{x[1]:{fmt}}, {x[2]:{fmt}}]" if len(seeds) > 1 else "")
+
+    return (f"| {order} | {k} | {syn['luts']} | {syn['luts'] / k:.0f} | {syn['ffs']} | {syn['multipliers']} | "
+            f"{syn['brams']} | {dm['latency_cycles']} | {dm['initiation_interval']} | {f(fd)} | "
+            f"{mp['flows'][fam]['luts']} | {f(fm)} | {f(fa)} ({ad['width']}) | {f(rd, '.2f')} | {f(rm, '.2f')} | "
+            f"{brute if brute is not None else '-'} | {f'{ratio:.3f}' if ratio is not None else '-'} | {seconds:.0f} |")
+
+
+# --------------------------------------------------------------------------- calibration
+
+
+def _lut_chain(n: int) -> str:
+    """n levels of a 4-input function per bit (one LUT4 each) between two 16-bit registers."""
+    body = "\n".join(f"  wire [15:0] l{j + 1} = {{l{j}[14:0], l{j}[15]}} ^ (l{j} & {{l{j}[13:0], l{j}[15:14]}})"
+                     f" ^ {{l{j}[12:0], l{j}[15:13]}};" for j in range(n))
+    return (f"module lut{n}(input wire aclk, input wire [15:0] a, output wire [15:0] s);\n"
+            f" reg [15:0] ar = 0, sr = 0; wire [15:0] l0 = ar;\n{body}\n"
+            f" always @(posedge aclk) begin ar <= a; sr <= l{n}; end\n assign s = sr;\nendmodule\n")
+
+
+def _multiply(name: str, a: int, b: int, signed: bool, const: int | None = None) -> str:
+    """A registered a x b multiply (b a constant when `const` is given)."""
+    s = "signed " if signed else ""
+    pw = a + b
+    if const is not None:
+        return (f"module {name}(input wire aclk, input wire [{a - 1}:0] x, output wire [{pw - 1}:0] p);\n"
+                f" reg [{a - 1}:0] xr = 0; reg [{pw - 1}:0] pr = 0;\n"
+                f" always @(posedge aclk) begin xr <= x; pr <= xr * {b}'d{const}; end\n assign p = pr;\nendmodule\n")
+    return (f"module {name}(input wire aclk, input wire [{a - 1}:0] x, input wire [{b - 1}:0] y,"
+            f" output wire [{pw - 1}:0] p);\n reg {s}[{a - 1}:0] xr = 0; reg {s}[{b - 1}:0] yr = 0;"
+            f" reg {s}[{pw - 1}:0] pr = 0;\n always @(posedge aclk) begin xr <= x; yr <= y; pr <= xr * yr; end\n"
+            f" assign p = pr;\nendmodule\n")
+
+
+def _ports(**widths: int) -> list[dict[str, Any]]:
+    """aclk, then the given ports: inputs named by the caller's order, the last one the output."""
+    names = list(widths)
+    return ([{"name": "aclk", "dir": "input", "width": 1}]
+            + [{"name": n, "dir": "input" if i < len(names) - 1 else "output", "width": w}
+               for i, (n, w) in enumerate(widths.items())])
+
+
+def _fit(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Least-squares coefficients of y = x @ c."""
+    return np.linalg.lstsq(x, y, rcond=None)[0]
+
+
+def calibrate(seeds: list[int], family: str) -> int:
+    """Registered adders, LUT4 chains and multipliers on one family's part: the primitives of ir.timing."""
+    t = tools.find_tools(families=[family])
+    started = time.monotonic()
+    print(f"# {datetime.date.today()} {tools.part_title(family)}: {t.versions['yosys']} "
+          f"{tools.PARTS[family]['synth']}; "
+          f"{t.versions[f'nextpnr-{family}']}; seeds {','.join(map(str, seeds))} (delay: median [min, max] ns)")
     with tempfile.TemporaryDirectory() as tmp:
         work = Path(tmp)
 
-        def run(name: str, text: str, ports: list[dict]) -> float:
+        def run(name: str, text: str, ports: list[dict]) -> tuple[float, str, int]:
+            """Median delay (ns) over the seeds; a note (the spread, DSPs, the critical path's logic cells); DSPs."""
             path = work / f"{name}.v"
             path.write_text(text)
             wname = f"{name}_wrap"
             wfile = work / f"{wname}.v"
             wfile.write_text(cost.render("cost/timing_wrapper.v.j2", **cost.wrapper_context(wname, name, ports)))
-            return tools.place_route(t, [path], wname, wfile, cwd=work, work=work, seed=seed)["fmax_mhz"]
+            delays, cells = [], []
+            for seed in seeds:
+                f = tools.place_route(t, [path], wname, wfile, cwd=work, work=work, family=family,
+                                      seed=seed)["fmax_mhz"]
+                delays.append(1000.0 / f)
+                cells.append(len(tools.critical_path_logic((work / f"{wname}.{family}.report.json").read_text())))
+            mults = tools.synthesize(t, [path], name, family, cwd=work, work=work)["multipliers"] or 0
+            d = statistics.median(delays)
+            note = (f"{d:.3f} ns [{min(delays):.3f}, {max(delays):.3f}], {mults} DSP, logic cells on the critical "
+                    f"path {','.join(map(str, cells))}")
+            return d, note, mults
 
+        adders = []
         for w in (4, 8, 12, 16, 24, 32):
             m = adder_module(f"add{w}", w)
             ports = [{"name": p.name, "dir": p.direction, "width": p.width} for p in m.ports]
-            f = run(m.name, verilog.module_text(m), ports)
-            print(f"adder {w} bits: {f:.2f} MHz, {1000 / f:.3f} ns")
-        for n in (1, 2, 4, 6):
-            body = "\n".join(f"  wire [15:0] l{j + 1} = {{l{j}[14:0], l{j}[15]}} ^ (l{j} & {{l{j}[13:0], l{j}[15:14]}})"
-                             f" ^ {{l{j}[12:0], l{j}[15:13]}};" for j in range(n))
-            f = run(f"lut{n}", f"module lut{n}(input wire aclk, input wire [15:0] a, output wire [15:0] s);\n"
-                    f" reg [15:0] ar = 0, sr = 0; wire [15:0] l0 = ar;\n{body}\n"
-                    f" always @(posedge aclk) begin ar <= a; sr <= l{n}; end\n assign s = sr;\nendmodule\n",
-                    [{"name": "aclk", "dir": "input", "width": 1}, {"name": "a", "dir": "input", "width": 16},
-                     {"name": "s", "dir": "output", "width": 16}])
-            print(f"LUT4 chain {n} levels: {f:.2f} MHz, {1000 / f:.3f} ns")
+            d, note, _ = run(m.name, verilog.module_text(m), ports)
+            adders.append((w, d))
+            print(f"adder {w} bits: {note}", flush=True)
+        chains = []
+        for n in range(1, 7):
+            d, note, _ = run(f"lut{n}", _lut_chain(n), _ports(a=16, s=16))
+            chains.append((n, d))
+            print(f"LUT4 chain {n} levels: {note}", flush=True)
+        muls: list[tuple[int, int, int, float, int]] = []   # (a, b, product bits, delay, DSPs)
         for a, b in ((3, 12), (4, 14), (5, 16), (7, 18), (8, 20)):
-            f = run(f"mul{a}x{b}", f"module mul{a}x{b}(input wire aclk, input wire [{a - 1}:0] x, input wire [{b - 1}:0] y,"
-                    f" output wire [{a + b - 1}:0] p);\n reg signed [{a - 1}:0] xr = 0; reg signed [{b - 1}:0] yr = 0;"
-                    f" reg signed [{a + b - 1}:0] pr = 0;\n always @(posedge aclk) begin xr <= x; yr <= y; pr <= xr * yr; end\n"
-                    f" assign p = pr;\nendmodule\n",
-                    [{"name": "aclk", "dir": "input", "width": 1}, {"name": "x", "dir": "input", "width": a},
-                     {"name": "y", "dir": "input", "width": b}, {"name": "p", "dir": "output", "width": a + b}])
-            print(f"multiply {a}x{b}: {f:.2f} MHz, {1000 / f:.3f} ns")
+            d, note, dsp = run(f"mul{a}x{b}", _multiply(f"mul{a}x{b}", a, b, True), _ports(x=a, y=b, p=a + b))
+            muls.append((a, b, a + b, d, dsp))
+            print(f"multiply signed {a}x{b}: {note}", flush=True)
+        for a, b in ((12, 5), (16, 5)):     # the unsigned reliability scale of the demapper
+            d, note, dsp = run(f"umul{a}x{b}", _multiply(f"umul{a}x{b}", a, b, False), _ports(x=a, y=b, p=a + b))
+            muls.append((b, a, a + b, d, dsp))
+            print(f"multiply unsigned {a}x{b}: {note}", flush=True)
+        for a, c in ((4, 1257), (6, 40137)):  # the logic mapper's level: n * c
+            b = c.bit_length()
+            d, note, dsp = run(f"cmul{a}x{c}", _multiply(f"cmul{a}x{c}", a, b, False, c), _ports(x=a, p=a + b))
+            muls.append((a, b, a + b, d, dsp))
+            print(f"multiply {a} bits x constant {c}: {note}", flush=True)
+
+    # the fit, in the form of ir.timing.Calibration: chains give the register hop and the LUT level
+    n, dn = np.array(chains).T
+    register, lut = _fit(np.c_[np.ones_like(n), n], dn)
+    w, dw = np.array(adders).T
+    add0, add_bit = _fit(np.c_[np.ones_like(w), w], dw)
+    fields = [f"register_ns={register:.2f}", f"lut_ns={lut:.2f}", f"add_entry_ns={add0 - register:.2f}",
+              f"add_bit_ns={add_bit:.4f}"]
+    lut_muls = [m for m in muls[:5] if m[4] == 0]         # the signed a x b, as fitted for iCE40
+    dsp_muls = [m for m in muls if m[4] == 1]
+    if len(lut_muls) >= 3:
+        ma, mb, _, md, _ = np.array(lut_muls).T
+        m0, ms, ml = _fit(np.c_[np.ones_like(ma), np.minimum(ma, mb), np.maximum(ma, mb)], md)
+        fields += [f"mul_entry_ns={m0 - register:.2f}", f"mul_short_bit_ns={ms:.3f}", f"mul_long_bit_ns={ml:.3f}"]
+    if len(dsp_muls) >= 2:
+        _, _, pw, md, _ = np.array(dsp_muls).T
+        d0, dbit = _fit(np.c_[np.ones_like(pw), pw], md)
+        fields += [f"dsp_entry_ns={d0 - register:.2f}", f"dsp_bit_ns={dbit:.4f}"]
+    print(f"# least-squares fit: {', '.join(fields)}")
+    print(f"# {time.monotonic() - started:.0f} s")
     return 0
 
 
@@ -117,12 +225,20 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--orders", default="4,16,64,256,1024,4096")
     ap.add_argument("--seeds", default=str(tools.SEED), help="nextpnr seeds, comma-separated (median reported)")
+    ap.add_argument("--families", default=",".join(tools.PNR_FAMILIES),
+                    help="FPGA families, comma-separated, one table each (default: %(default)s)")
     ap.add_argument("--calibrate", action="store_true")
+    ap.add_argument("--family", default="ice40", choices=tools.PNR_FAMILIES, help="the family --calibrate measures")
     args = ap.parse_args()
     seeds = [int(s) for s in args.seeds.split(",")]
-    if args.calibrate:
-        return calibrate(seeds[0])
-    return bench([int(o) for o in args.orders.split(",")], seeds)
+    try:
+        if args.calibrate:
+            return calibrate(seeds, args.family)
+        families = tools.check_families(f.strip() for f in args.families.split(",") if f.strip())
+        return bench([int(o) for o in args.orders.split(",")], seeds, families)
+    except (tools.ToolMissing, SpecError) as exc:
+        print(f"bench_hardware: {exc}", file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":

@@ -38,7 +38,7 @@
 //        6 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^6 codes.
 // Output: 8 signed 6-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
 //         saturated symmetrically to +-31.
-// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 9 cycles, one symbol per clock.
+// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 7 cycles, one symbol per clock.
 module lvt_bh256_demapper (
   // clock and reset
   input  wire           aclk,
@@ -56,7 +56,7 @@ module lvt_bh256_demapper (
 );
 
   // ---------------------------------------------------------------- constants
-  localparam LATENCY = 9;  // cycles from an accepted input word to its output word
+  localparam LATENCY = 7;  // cycles from an accepted input word to its output word
 
   // ---------------------------------------------------------------- stream control
   // One shared enable: every stage moves when the output register is empty or being read, so
@@ -72,8 +72,6 @@ module lvt_bh256_demapper (
   wire ce_s4 = ce_all;
   wire ce_s5 = ce_all;
   wire ce_s6 = ce_all;
-  wire ce_s7 = ce_all;
-  wire ce_s8 = ce_all;
 
   wire in_tvalid = s_axis_tvalid;
   wire [23:0] in_tdata = s_axis_tdata;
@@ -88,8 +86,6 @@ module lvt_bh256_demapper (
     if (ce_s4) valid_reg[4] <= valid_reg[3];
     if (ce_s5) valid_reg[5] <= valid_reg[4];
     if (ce_s6) valid_reg[6] <= valid_reg[5];
-    if (ce_s7) valid_reg[7] <= valid_reg[6];
-    if (ce_s8) valid_reg[8] <= valid_reg[7];
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) valid_reg <= {LATENCY{1'b0}};
   end
@@ -102,7 +98,7 @@ module lvt_bh256_demapper (
   // equalized Q input code
   wire signed [11:0] y_q = $signed(in_tdata[23:12]);
 
-  // ---------------------------------------------------------------- step 1: range
+  // ---------------------------------------------------------------- range (stage 0)
   // per axis: y + (L << f), whose bits give n_hat, and the compares of the clamps; the adders side by side
   wire signed [12:0] sum_i = $signed({y_i[11], y_i}) + 13'sd1024;
   // I axis (16 levels): n = clamp((y + (L << 6)) >>> 7, 0, 15)
@@ -132,79 +128,56 @@ module lvt_bh256_demapper (
   wire signed [11:0] elo_q = y_q + 12'sd960;
   // residual at the highest level, y - (L-1) << f
   wire signed [11:0] ehi_q = y_q - 12'sd960;
+  // ---------------------------------------------------------------- decide (stage 0)
+  // per axis: the clamp muxes of n_hat and of the residual e
+  // the high clamp
+  wire [3:0] nh_i = hs_i ? nm_i : 4'd15;
+  // the low clamp
+  wire [3:0] n_i = lo_i ? 4'd0 : nh_i;
+  // yl - 2^6: the residual inside the levels (top bit flipped)
+  wire signed [6:0] emid_i = $signed(yl_i) ^ 7'sh40;
+  wire signed [11:0] eh_i = hs_i ? $signed({{5{emid_i[6]}}, emid_i}) : ehi_i;
+  // the high clamp
+  wire [3:0] nh_q = hs_q ? nm_q : 4'd15;
+  // the low clamp
+  wire [3:0] n_q = lo_q ? 4'd0 : nh_q;
+  // yl - 2^6: the residual inside the levels (top bit flipped)
+  wire signed [6:0] emid_q = $signed(yl_q) ^ 7'sh40;
+  wire signed [11:0] eh_q = hs_q ? $signed({{5{emid_q[6]}}, emid_q}) : ehi_q;
 
-  // register stage 0 (after step "range")
+  // register stage 0 (after range, decide)
   reg  tlast_s0_reg = 1'd0;
-  reg  [3:0] nm_i_s0_reg = 4'd0;
   reg  lo_i_s0_reg = 1'd0;
-  reg  hs_i_s0_reg = 1'd0;
-  reg  [6:0] yl_i_s0_reg = 7'd0;
   reg  signed [11:0] elo_i_s0_reg = 12'sd0;
-  reg  signed [11:0] ehi_i_s0_reg = 12'sd0;
-  reg  [3:0] nm_q_s0_reg = 4'd0;
   reg  lo_q_s0_reg = 1'd0;
-  reg  hs_q_s0_reg = 1'd0;
-  reg  [6:0] yl_q_s0_reg = 7'd0;
   reg  signed [11:0] elo_q_s0_reg = 12'sd0;
-  reg  signed [11:0] ehi_q_s0_reg = 12'sd0;
+  reg  [3:0] n_i_s0_reg = 4'd0;
+  reg  signed [11:0] eh_i_s0_reg = 12'sd0;
+  reg  [3:0] n_q_s0_reg = 4'd0;
+  reg  signed [11:0] eh_q_s0_reg = 12'sd0;
   always @(posedge aclk) begin
     if (ce_s0) begin
       tlast_s0_reg <= in_tlast;
-      nm_i_s0_reg <= nm_i;
       lo_i_s0_reg <= lo_i;
-      hs_i_s0_reg <= hs_i;
-      yl_i_s0_reg <= yl_i;
       elo_i_s0_reg <= elo_i;
-      ehi_i_s0_reg <= ehi_i;
-      nm_q_s0_reg <= nm_q;
       lo_q_s0_reg <= lo_q;
-      hs_q_s0_reg <= hs_q;
-      yl_q_s0_reg <= yl_q;
       elo_q_s0_reg <= elo_q;
-      ehi_q_s0_reg <= ehi_q;
+      n_i_s0_reg <= n_i;
+      eh_i_s0_reg <= eh_i;
+      n_q_s0_reg <= n_q;
+      eh_q_s0_reg <= eh_q;
     end
   end
 
-  // ---------------------------------------------------------------- step 2: decide
+  // ---------------------------------------------------------------- decide (stage 1)
   // per axis: the clamp muxes of n_hat and of the residual e
-  // the high clamp
-  wire [3:0] nh_i = hs_i_s0_reg ? nm_i_s0_reg : 4'd15;
-  // the low clamp
-  wire [3:0] n_i = lo_i_s0_reg ? 4'd0 : nh_i;
-  // yl - 2^6: the residual inside the levels (top bit flipped)
-  wire signed [6:0] emid_i = $signed(yl_i_s0_reg) ^ 7'sh40;
-  wire signed [11:0] eh_i = hs_i_s0_reg ? $signed({{5{emid_i[6]}}, emid_i}) : ehi_i_s0_reg;
-  wire signed [11:0] e_i = lo_i_s0_reg ? elo_i_s0_reg : eh_i;
-  // the high clamp
-  wire [3:0] nh_q = hs_q_s0_reg ? nm_q_s0_reg : 4'd15;
-  // the low clamp
-  wire [3:0] n_q = lo_q_s0_reg ? 4'd0 : nh_q;
-  // yl - 2^6: the residual inside the levels (top bit flipped)
-  wire signed [6:0] emid_q = $signed(yl_q_s0_reg) ^ 7'sh40;
-  wire signed [11:0] eh_q = hs_q_s0_reg ? $signed({{5{emid_q[6]}}, emid_q}) : ehi_q_s0_reg;
-  wire signed [11:0] e_q = lo_q_s0_reg ? elo_q_s0_reg : eh_q;
-
-  // register stage 1 (after step "decide")
-  reg  tlast_s1_reg = 1'd0;
-  reg  [3:0] n_i_s1_reg = 4'd0;
-  reg  signed [11:0] e_i_s1_reg = 12'sd0;
-  reg  [3:0] n_q_s1_reg = 4'd0;
-  reg  signed [11:0] e_q_s1_reg = 12'sd0;
-  always @(posedge aclk) begin
-    if (ce_s1) begin
-      tlast_s1_reg <= tlast_s0_reg;
-      n_i_s1_reg <= n_i;
-      e_i_s1_reg <= e_i;
-      n_q_s1_reg <= n_q;
-      e_q_s1_reg <= e_q;
-    end
-  end
-
-  // ---------------------------------------------------------------- step 3: competitor
+  wire signed [11:0] e_i = lo_i_s0_reg ? elo_i_s0_reg : eh_i_s0_reg;
+  wire signed [11:0] e_q = lo_q_s0_reg ? elo_q_s0_reg : eh_q_s0_reg;
+  // ---------------------------------------------------------------- competitor (stage 1)
   // per axis bit: tables of the decided level (and the residual's sign): the nearest competitor's |dn| and side, the gates of the partial products, the LLR's sign
   // axis bit 0 (label bit b0): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_I0 = 16'b0000000011111111;  // entry k at bit k
-  wire neg_i0 = TABLE_NEG_I0[n_i_s1_reg];
+  wire neg_i0 = TABLE_NEG_I0[n_i_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [9:0] dp_i0_table;
     input [3:0] key;
@@ -228,25 +201,25 @@ module lvt_bh256_demapper (
       default: dp_i0_table = 10'd0;
     endcase
   endfunction
-  wire [9:0] dp_i0 = dp_i0_table(n_i_s1_reg);
+  wire [9:0] dp_i0 = dp_i0_table(n_i_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_I0 = 16'b0000000011111111;  // entry k at bit k
-  wire pos_i0 = TABLE_POS_I0[n_i_s1_reg];
+  wire pos_i0 = TABLE_POS_I0[n_i_s0_reg];
   // bit 0 of |dn|: the gate of u << 0
   localparam [15:0] TABLE_G_I0_0 = 16'b0101010110101010;  // entry k at bit k
-  wire g_i0_0 = TABLE_G_I0_0[n_i_s1_reg];
+  wire g_i0_0 = TABLE_G_I0_0[n_i_s0_reg];
   // bit 1 of |dn|: the gate of u << 1
   localparam [15:0] TABLE_G_I0_1 = 16'b0110011001100110;  // entry k at bit k
-  wire g_i0_1 = TABLE_G_I0_1[n_i_s1_reg];
+  wire g_i0_1 = TABLE_G_I0_1[n_i_s0_reg];
   // bit 2 of |dn|: the gate of u << 2
   localparam [15:0] TABLE_G_I0_2 = 16'b0111100000011110;  // entry k at bit k
-  wire g_i0_2 = TABLE_G_I0_2[n_i_s1_reg];
+  wire g_i0_2 = TABLE_G_I0_2[n_i_s0_reg];
   // bit 3 of |dn|: the gate of u << 3
   localparam [15:0] TABLE_G_I0_3 = 16'b1000000000000001;  // entry k at bit k
-  wire g_i0_3 = TABLE_G_I0_3[n_i_s1_reg];
+  wire g_i0_3 = TABLE_G_I0_3[n_i_s0_reg];
   // axis bit 1 (label bit b2): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_I1 = 16'b1111000000001111;  // entry k at bit k
-  wire neg_i1 = TABLE_NEG_I1[n_i_s1_reg];
+  wire neg_i1 = TABLE_NEG_I1[n_i_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [8:0] dp_i1_table;
     input [3:0] key;
@@ -270,22 +243,22 @@ module lvt_bh256_demapper (
       default: dp_i1_table = 9'd0;
     endcase
   endfunction
-  wire [8:0] dp_i1 = dp_i1_table(n_i_s1_reg);
+  wire [8:0] dp_i1 = dp_i1_table(n_i_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_I1 = 16'b0000111100001111;  // entry k at bit k
-  wire pos_i1 = TABLE_POS_I1[n_i_s1_reg];
+  wire pos_i1 = TABLE_POS_I1[n_i_s0_reg];
   // bit 0 of |dn|: the gate of u << 0
   localparam [15:0] TABLE_G_I1_0 = 16'b0101101001011010;  // entry k at bit k
-  wire g_i1_0 = TABLE_G_I1_0[n_i_s1_reg];
+  wire g_i1_0 = TABLE_G_I1_0[n_i_s0_reg];
   // bit 1 of |dn|: the gate of u << 1
   localparam [15:0] TABLE_G_I1_1 = 16'b0110011001100110;  // entry k at bit k
-  wire g_i1_1 = TABLE_G_I1_1[n_i_s1_reg];
+  wire g_i1_1 = TABLE_G_I1_1[n_i_s0_reg];
   // bit 2 of |dn|: the gate of u << 2
   localparam [15:0] TABLE_G_I1_2 = 16'b1000000110000001;  // entry k at bit k
-  wire g_i1_2 = TABLE_G_I1_2[n_i_s1_reg];
+  wire g_i1_2 = TABLE_G_I1_2[n_i_s0_reg];
   // axis bit 2 (label bit b4): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_I2 = 16'b1100001111000011;  // entry k at bit k
-  wire neg_i2 = TABLE_NEG_I2[n_i_s1_reg];
+  wire neg_i2 = TABLE_NEG_I2[n_i_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [7:0] dp_i2_table;
     input [3:0] key;
@@ -309,19 +282,19 @@ module lvt_bh256_demapper (
       default: dp_i2_table = 8'd0;
     endcase
   endfunction
-  wire [7:0] dp_i2 = dp_i2_table(n_i_s1_reg);
+  wire [7:0] dp_i2 = dp_i2_table(n_i_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_I2 = 16'b0011001100110011;  // entry k at bit k
-  wire pos_i2 = TABLE_POS_I2[n_i_s1_reg];
+  wire pos_i2 = TABLE_POS_I2[n_i_s0_reg];
   // bit 0 of |dn|: the gate of u << 0
   localparam [15:0] TABLE_G_I2_0 = 16'b0110011001100110;  // entry k at bit k
-  wire g_i2_0 = TABLE_G_I2_0[n_i_s1_reg];
+  wire g_i2_0 = TABLE_G_I2_0[n_i_s0_reg];
   // bit 1 of |dn|: the gate of u << 1
   localparam [15:0] TABLE_G_I2_1 = 16'b1001100110011001;  // entry k at bit k
-  wire g_i2_1 = TABLE_G_I2_1[n_i_s1_reg];
+  wire g_i2_1 = TABLE_G_I2_1[n_i_s0_reg];
   // axis bit 3 (label bit b6): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_I3 = 16'b1001100110011001;  // entry k at bit k
-  wire neg_i3 = TABLE_NEG_I3[n_i_s1_reg];
+  wire neg_i3 = TABLE_NEG_I3[n_i_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [6:0] dp_i3_table;
     input [3:0] key;
@@ -345,13 +318,13 @@ module lvt_bh256_demapper (
       default: dp_i3_table = 7'd0;
     endcase
   endfunction
-  wire [6:0] dp_i3 = dp_i3_table(n_i_s1_reg);
+  wire [6:0] dp_i3 = dp_i3_table(n_i_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_I3 = 16'b0101010101010101;  // entry k at bit k
-  wire pos_i3 = TABLE_POS_I3[n_i_s1_reg];
+  wire pos_i3 = TABLE_POS_I3[n_i_s0_reg];
   // axis bit 0 (label bit b1): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_Q0 = 16'b0000000011111111;  // entry k at bit k
-  wire neg_q0 = TABLE_NEG_Q0[n_q_s1_reg];
+  wire neg_q0 = TABLE_NEG_Q0[n_q_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [9:0] dp_q0_table;
     input [3:0] key;
@@ -375,25 +348,25 @@ module lvt_bh256_demapper (
       default: dp_q0_table = 10'd0;
     endcase
   endfunction
-  wire [9:0] dp_q0 = dp_q0_table(n_q_s1_reg);
+  wire [9:0] dp_q0 = dp_q0_table(n_q_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_Q0 = 16'b0000000011111111;  // entry k at bit k
-  wire pos_q0 = TABLE_POS_Q0[n_q_s1_reg];
+  wire pos_q0 = TABLE_POS_Q0[n_q_s0_reg];
   // bit 0 of |dn|: the gate of u << 0
   localparam [15:0] TABLE_G_Q0_0 = 16'b0101010110101010;  // entry k at bit k
-  wire g_q0_0 = TABLE_G_Q0_0[n_q_s1_reg];
+  wire g_q0_0 = TABLE_G_Q0_0[n_q_s0_reg];
   // bit 1 of |dn|: the gate of u << 1
   localparam [15:0] TABLE_G_Q0_1 = 16'b0110011001100110;  // entry k at bit k
-  wire g_q0_1 = TABLE_G_Q0_1[n_q_s1_reg];
+  wire g_q0_1 = TABLE_G_Q0_1[n_q_s0_reg];
   // bit 2 of |dn|: the gate of u << 2
   localparam [15:0] TABLE_G_Q0_2 = 16'b0111100000011110;  // entry k at bit k
-  wire g_q0_2 = TABLE_G_Q0_2[n_q_s1_reg];
+  wire g_q0_2 = TABLE_G_Q0_2[n_q_s0_reg];
   // bit 3 of |dn|: the gate of u << 3
   localparam [15:0] TABLE_G_Q0_3 = 16'b1000000000000001;  // entry k at bit k
-  wire g_q0_3 = TABLE_G_Q0_3[n_q_s1_reg];
+  wire g_q0_3 = TABLE_G_Q0_3[n_q_s0_reg];
   // axis bit 1 (label bit b3): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_Q1 = 16'b1111000000001111;  // entry k at bit k
-  wire neg_q1 = TABLE_NEG_Q1[n_q_s1_reg];
+  wire neg_q1 = TABLE_NEG_Q1[n_q_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [8:0] dp_q1_table;
     input [3:0] key;
@@ -417,22 +390,22 @@ module lvt_bh256_demapper (
       default: dp_q1_table = 9'd0;
     endcase
   endfunction
-  wire [8:0] dp_q1 = dp_q1_table(n_q_s1_reg);
+  wire [8:0] dp_q1 = dp_q1_table(n_q_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_Q1 = 16'b0000111100001111;  // entry k at bit k
-  wire pos_q1 = TABLE_POS_Q1[n_q_s1_reg];
+  wire pos_q1 = TABLE_POS_Q1[n_q_s0_reg];
   // bit 0 of |dn|: the gate of u << 0
   localparam [15:0] TABLE_G_Q1_0 = 16'b0101101001011010;  // entry k at bit k
-  wire g_q1_0 = TABLE_G_Q1_0[n_q_s1_reg];
+  wire g_q1_0 = TABLE_G_Q1_0[n_q_s0_reg];
   // bit 1 of |dn|: the gate of u << 1
   localparam [15:0] TABLE_G_Q1_1 = 16'b0110011001100110;  // entry k at bit k
-  wire g_q1_1 = TABLE_G_Q1_1[n_q_s1_reg];
+  wire g_q1_1 = TABLE_G_Q1_1[n_q_s0_reg];
   // bit 2 of |dn|: the gate of u << 2
   localparam [15:0] TABLE_G_Q1_2 = 16'b1000000110000001;  // entry k at bit k
-  wire g_q1_2 = TABLE_G_Q1_2[n_q_s1_reg];
+  wire g_q1_2 = TABLE_G_Q1_2[n_q_s0_reg];
   // axis bit 2 (label bit b5): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_Q2 = 16'b1100001111000011;  // entry k at bit k
-  wire neg_q2 = TABLE_NEG_Q2[n_q_s1_reg];
+  wire neg_q2 = TABLE_NEG_Q2[n_q_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [7:0] dp_q2_table;
     input [3:0] key;
@@ -456,19 +429,19 @@ module lvt_bh256_demapper (
       default: dp_q2_table = 8'd0;
     endcase
   endfunction
-  wire [7:0] dp_q2 = dp_q2_table(n_q_s1_reg);
+  wire [7:0] dp_q2 = dp_q2_table(n_q_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_Q2 = 16'b0011001100110011;  // entry k at bit k
-  wire pos_q2 = TABLE_POS_Q2[n_q_s1_reg];
+  wire pos_q2 = TABLE_POS_Q2[n_q_s0_reg];
   // bit 0 of |dn|: the gate of u << 0
   localparam [15:0] TABLE_G_Q2_0 = 16'b0110011001100110;  // entry k at bit k
-  wire g_q2_0 = TABLE_G_Q2_0[n_q_s1_reg];
+  wire g_q2_0 = TABLE_G_Q2_0[n_q_s0_reg];
   // bit 1 of |dn|: the gate of u << 1
   localparam [15:0] TABLE_G_Q2_1 = 16'b1001100110011001;  // entry k at bit k
-  wire g_q2_1 = TABLE_G_Q2_1[n_q_s1_reg];
+  wire g_q2_1 = TABLE_G_Q2_1[n_q_s0_reg];
   // axis bit 3 (label bit b7): sign, the decided level's bit
   localparam [15:0] TABLE_NEG_Q3 = 16'b1001100110011001;  // entry k at bit k
-  wire neg_q3 = TABLE_NEG_Q3[n_q_s1_reg];
+  wire neg_q3 = TABLE_NEG_Q3[n_q_s0_reg];
   // (|dn| << 6) + (dn > 0), dn the nearest competitor
   function [6:0] dp_q3_table;
     input [3:0] key;
@@ -492,212 +465,339 @@ module lvt_bh256_demapper (
       default: dp_q3_table = 7'd0;
     endcase
   endfunction
-  wire [6:0] dp_q3 = dp_q3_table(n_q_s1_reg);
+  wire [6:0] dp_q3 = dp_q3_table(n_q_s0_reg);
   // the competitor is on the right (dn > 0)
   localparam [15:0] TABLE_POS_Q3 = 16'b0101010101010101;  // entry k at bit k
-  wire pos_q3 = TABLE_POS_Q3[n_q_s1_reg];
+  wire pos_q3 = TABLE_POS_Q3[n_q_s0_reg];
+  // ---------------------------------------------------------------- select (stage 1)
+  // per axis bit: dn > 0 ? ~e : e (the +1 of -e sits in the table's constant) and the gated copies as AND terms (a mux to zero in front of a register would become its reset)
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_i0 = pos_i0 ? ~e_i : e_i;
+  wire signed [6:0] gs_i0_0 = $signed({7{g_i0_0}}) & $signed(se_i0[6:0]);
+  wire [8:0] ga_i0_0 = {9{g_i0_0}} & dp_i0[8:0];
+  wire signed [6:0] gs_i0_1 = $signed({7{g_i0_1}}) & $signed(se_i0[6:0]);
+  wire [8:0] ga_i0_1 = {9{g_i0_1}} & dp_i0[8:0];
+  wire signed [6:0] gs_i0_2 = $signed({7{g_i0_2}}) & $signed(se_i0[6:0]);
+  wire [8:0] ga_i0_2 = {9{g_i0_2}} & dp_i0[8:0];
+  wire signed [11:0] gs_i0_3 = $signed({12{g_i0_3}}) & se_i0;
+  wire [9:0] ga_i0_3 = {10{g_i0_3}} & dp_i0;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_i1 = pos_i1 ? ~e_i : e_i;
+  wire signed [6:0] gs_i1_0 = $signed({7{g_i1_0}}) & $signed(se_i1[6:0]);
+  wire [7:0] ga_i1_0 = {8{g_i1_0}} & dp_i1[7:0];
+  wire signed [6:0] gs_i1_1 = $signed({7{g_i1_1}}) & $signed(se_i1[6:0]);
+  wire [7:0] ga_i1_1 = {8{g_i1_1}} & dp_i1[7:0];
+  wire signed [11:0] gs_i1_2 = $signed({12{g_i1_2}}) & se_i1;
+  wire [8:0] ga_i1_2 = {9{g_i1_2}} & dp_i1;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_i2 = pos_i2 ? ~e_i : e_i;
+  wire signed [6:0] gs_i2_0 = $signed({7{g_i2_0}}) & $signed(se_i2[6:0]);
+  wire [6:0] ga_i2_0 = {7{g_i2_0}} & dp_i2[6:0];
+  wire signed [11:0] gs_i2_1 = $signed({12{g_i2_1}}) & se_i2;
+  wire [7:0] ga_i2_1 = {8{g_i2_1}} & dp_i2;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_i3 = pos_i3 ? ~e_i : e_i;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_q0 = pos_q0 ? ~e_q : e_q;
+  wire signed [6:0] gs_q0_0 = $signed({7{g_q0_0}}) & $signed(se_q0[6:0]);
+  wire [8:0] ga_q0_0 = {9{g_q0_0}} & dp_q0[8:0];
+  wire signed [6:0] gs_q0_1 = $signed({7{g_q0_1}}) & $signed(se_q0[6:0]);
+  wire [8:0] ga_q0_1 = {9{g_q0_1}} & dp_q0[8:0];
+  wire signed [6:0] gs_q0_2 = $signed({7{g_q0_2}}) & $signed(se_q0[6:0]);
+  wire [8:0] ga_q0_2 = {9{g_q0_2}} & dp_q0[8:0];
+  wire signed [11:0] gs_q0_3 = $signed({12{g_q0_3}}) & se_q0;
+  wire [9:0] ga_q0_3 = {10{g_q0_3}} & dp_q0;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_q1 = pos_q1 ? ~e_q : e_q;
+  wire signed [6:0] gs_q1_0 = $signed({7{g_q1_0}}) & $signed(se_q1[6:0]);
+  wire [7:0] ga_q1_0 = {8{g_q1_0}} & dp_q1[7:0];
+  wire signed [6:0] gs_q1_1 = $signed({7{g_q1_1}}) & $signed(se_q1[6:0]);
+  wire [7:0] ga_q1_1 = {8{g_q1_1}} & dp_q1[7:0];
+  wire signed [11:0] gs_q1_2 = $signed({12{g_q1_2}}) & se_q1;
+  wire [8:0] ga_q1_2 = {9{g_q1_2}} & dp_q1;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_q2 = pos_q2 ? ~e_q : e_q;
+  wire signed [6:0] gs_q2_0 = $signed({7{g_q2_0}}) & $signed(se_q2[6:0]);
+  wire [6:0] ga_q2_0 = {7{g_q2_0}} & dp_q2[6:0];
+  wire signed [11:0] gs_q2_1 = $signed({12{g_q2_1}}) & se_q2;
+  wire [7:0] ga_q2_1 = {8{g_q2_1}} & dp_q2;
+  // -sign(dn) e, minus one where dn > 0
+  wire signed [11:0] se_q3 = pos_q3 ? ~e_q : e_q;
 
-  // register stage 2 (after step "competitor")
-  reg  tlast_s2_reg = 1'd0;
-  reg  signed [11:0] e_i_s2_reg = 12'sd0;
-  reg  signed [11:0] e_q_s2_reg = 12'sd0;
-  reg  neg_i0_s2_reg = 1'd0;
-  reg  [9:0] dp_i0_s2_reg = 10'd0;
-  reg  pos_i0_s2_reg = 1'd0;
-  reg  g_i0_0_s2_reg = 1'd0;
-  reg  g_i0_1_s2_reg = 1'd0;
-  reg  g_i0_2_s2_reg = 1'd0;
-  reg  g_i0_3_s2_reg = 1'd0;
-  reg  neg_i1_s2_reg = 1'd0;
-  reg  [8:0] dp_i1_s2_reg = 9'd0;
-  reg  pos_i1_s2_reg = 1'd0;
-  reg  g_i1_0_s2_reg = 1'd0;
-  reg  g_i1_1_s2_reg = 1'd0;
-  reg  g_i1_2_s2_reg = 1'd0;
-  reg  neg_i2_s2_reg = 1'd0;
-  reg  [7:0] dp_i2_s2_reg = 8'd0;
-  reg  pos_i2_s2_reg = 1'd0;
-  reg  g_i2_0_s2_reg = 1'd0;
-  reg  g_i2_1_s2_reg = 1'd0;
-  reg  neg_i3_s2_reg = 1'd0;
-  reg  [6:0] dp_i3_s2_reg = 7'd0;
-  reg  pos_i3_s2_reg = 1'd0;
-  reg  neg_q0_s2_reg = 1'd0;
-  reg  [9:0] dp_q0_s2_reg = 10'd0;
-  reg  pos_q0_s2_reg = 1'd0;
-  reg  g_q0_0_s2_reg = 1'd0;
-  reg  g_q0_1_s2_reg = 1'd0;
-  reg  g_q0_2_s2_reg = 1'd0;
-  reg  g_q0_3_s2_reg = 1'd0;
-  reg  neg_q1_s2_reg = 1'd0;
-  reg  [8:0] dp_q1_s2_reg = 9'd0;
-  reg  pos_q1_s2_reg = 1'd0;
-  reg  g_q1_0_s2_reg = 1'd0;
-  reg  g_q1_1_s2_reg = 1'd0;
-  reg  g_q1_2_s2_reg = 1'd0;
-  reg  neg_q2_s2_reg = 1'd0;
-  reg  [7:0] dp_q2_s2_reg = 8'd0;
-  reg  pos_q2_s2_reg = 1'd0;
-  reg  g_q2_0_s2_reg = 1'd0;
-  reg  g_q2_1_s2_reg = 1'd0;
-  reg  neg_q3_s2_reg = 1'd0;
-  reg  [6:0] dp_q3_s2_reg = 7'd0;
-  reg  pos_q3_s2_reg = 1'd0;
+  // register stage 1 (after decide, competitor, select)
+  reg  tlast_s1_reg = 1'd0;
+  reg  neg_i0_s1_reg = 1'd0;
+  reg  neg_i1_s1_reg = 1'd0;
+  reg  neg_i2_s1_reg = 1'd0;
+  reg  neg_i3_s1_reg = 1'd0;
+  reg  [6:0] dp_i3_s1_reg = 7'd0;
+  reg  neg_q0_s1_reg = 1'd0;
+  reg  neg_q1_s1_reg = 1'd0;
+  reg  neg_q2_s1_reg = 1'd0;
+  reg  neg_q3_s1_reg = 1'd0;
+  reg  [6:0] dp_q3_s1_reg = 7'd0;
+  reg  signed [6:0] gs_i0_0_s1_reg = 7'sd0;
+  reg  [8:0] ga_i0_0_s1_reg = 9'd0;
+  reg  signed [6:0] gs_i0_1_s1_reg = 7'sd0;
+  reg  [8:0] ga_i0_1_s1_reg = 9'd0;
+  reg  signed [6:0] gs_i0_2_s1_reg = 7'sd0;
+  reg  [8:0] ga_i0_2_s1_reg = 9'd0;
+  reg  signed [11:0] gs_i0_3_s1_reg = 12'sd0;
+  reg  [9:0] ga_i0_3_s1_reg = 10'd0;
+  reg  signed [6:0] gs_i1_0_s1_reg = 7'sd0;
+  reg  [7:0] ga_i1_0_s1_reg = 8'd0;
+  reg  signed [6:0] gs_i1_1_s1_reg = 7'sd0;
+  reg  [7:0] ga_i1_1_s1_reg = 8'd0;
+  reg  signed [11:0] gs_i1_2_s1_reg = 12'sd0;
+  reg  [8:0] ga_i1_2_s1_reg = 9'd0;
+  reg  signed [6:0] gs_i2_0_s1_reg = 7'sd0;
+  reg  [6:0] ga_i2_0_s1_reg = 7'd0;
+  reg  signed [11:0] gs_i2_1_s1_reg = 12'sd0;
+  reg  [7:0] ga_i2_1_s1_reg = 8'd0;
+  reg  signed [11:0] se_i3_s1_reg = 12'sd0;
+  reg  signed [6:0] gs_q0_0_s1_reg = 7'sd0;
+  reg  [8:0] ga_q0_0_s1_reg = 9'd0;
+  reg  signed [6:0] gs_q0_1_s1_reg = 7'sd0;
+  reg  [8:0] ga_q0_1_s1_reg = 9'd0;
+  reg  signed [6:0] gs_q0_2_s1_reg = 7'sd0;
+  reg  [8:0] ga_q0_2_s1_reg = 9'd0;
+  reg  signed [11:0] gs_q0_3_s1_reg = 12'sd0;
+  reg  [9:0] ga_q0_3_s1_reg = 10'd0;
+  reg  signed [6:0] gs_q1_0_s1_reg = 7'sd0;
+  reg  [7:0] ga_q1_0_s1_reg = 8'd0;
+  reg  signed [6:0] gs_q1_1_s1_reg = 7'sd0;
+  reg  [7:0] ga_q1_1_s1_reg = 8'd0;
+  reg  signed [11:0] gs_q1_2_s1_reg = 12'sd0;
+  reg  [8:0] ga_q1_2_s1_reg = 9'd0;
+  reg  signed [6:0] gs_q2_0_s1_reg = 7'sd0;
+  reg  [6:0] ga_q2_0_s1_reg = 7'd0;
+  reg  signed [11:0] gs_q2_1_s1_reg = 12'sd0;
+  reg  [7:0] ga_q2_1_s1_reg = 8'd0;
+  reg  signed [11:0] se_q3_s1_reg = 12'sd0;
   always @(posedge aclk) begin
-    if (ce_s2) begin
-      tlast_s2_reg <= tlast_s1_reg;
-      e_i_s2_reg <= e_i_s1_reg;
-      e_q_s2_reg <= e_q_s1_reg;
-      neg_i0_s2_reg <= neg_i0;
-      dp_i0_s2_reg <= dp_i0;
-      pos_i0_s2_reg <= pos_i0;
-      g_i0_0_s2_reg <= g_i0_0;
-      g_i0_1_s2_reg <= g_i0_1;
-      g_i0_2_s2_reg <= g_i0_2;
-      g_i0_3_s2_reg <= g_i0_3;
-      neg_i1_s2_reg <= neg_i1;
-      dp_i1_s2_reg <= dp_i1;
-      pos_i1_s2_reg <= pos_i1;
-      g_i1_0_s2_reg <= g_i1_0;
-      g_i1_1_s2_reg <= g_i1_1;
-      g_i1_2_s2_reg <= g_i1_2;
-      neg_i2_s2_reg <= neg_i2;
-      dp_i2_s2_reg <= dp_i2;
-      pos_i2_s2_reg <= pos_i2;
-      g_i2_0_s2_reg <= g_i2_0;
-      g_i2_1_s2_reg <= g_i2_1;
-      neg_i3_s2_reg <= neg_i3;
-      dp_i3_s2_reg <= dp_i3;
-      pos_i3_s2_reg <= pos_i3;
-      neg_q0_s2_reg <= neg_q0;
-      dp_q0_s2_reg <= dp_q0;
-      pos_q0_s2_reg <= pos_q0;
-      g_q0_0_s2_reg <= g_q0_0;
-      g_q0_1_s2_reg <= g_q0_1;
-      g_q0_2_s2_reg <= g_q0_2;
-      g_q0_3_s2_reg <= g_q0_3;
-      neg_q1_s2_reg <= neg_q1;
-      dp_q1_s2_reg <= dp_q1;
-      pos_q1_s2_reg <= pos_q1;
-      g_q1_0_s2_reg <= g_q1_0;
-      g_q1_1_s2_reg <= g_q1_1;
-      g_q1_2_s2_reg <= g_q1_2;
-      neg_q2_s2_reg <= neg_q2;
-      dp_q2_s2_reg <= dp_q2;
-      pos_q2_s2_reg <= pos_q2;
-      g_q2_0_s2_reg <= g_q2_0;
-      g_q2_1_s2_reg <= g_q2_1;
-      neg_q3_s2_reg <= neg_q3;
-      dp_q3_s2_reg <= dp_q3;
-      pos_q3_s2_reg <= pos_q3;
+    if (ce_s1) begin
+      tlast_s1_reg <= tlast_s0_reg;
+      neg_i0_s1_reg <= neg_i0;
+      neg_i1_s1_reg <= neg_i1;
+      neg_i2_s1_reg <= neg_i2;
+      neg_i3_s1_reg <= neg_i3;
+      dp_i3_s1_reg <= dp_i3;
+      neg_q0_s1_reg <= neg_q0;
+      neg_q1_s1_reg <= neg_q1;
+      neg_q2_s1_reg <= neg_q2;
+      neg_q3_s1_reg <= neg_q3;
+      dp_q3_s1_reg <= dp_q3;
+      gs_i0_0_s1_reg <= gs_i0_0;
+      ga_i0_0_s1_reg <= ga_i0_0;
+      gs_i0_1_s1_reg <= gs_i0_1;
+      ga_i0_1_s1_reg <= ga_i0_1;
+      gs_i0_2_s1_reg <= gs_i0_2;
+      ga_i0_2_s1_reg <= ga_i0_2;
+      gs_i0_3_s1_reg <= gs_i0_3;
+      ga_i0_3_s1_reg <= ga_i0_3;
+      gs_i1_0_s1_reg <= gs_i1_0;
+      ga_i1_0_s1_reg <= ga_i1_0;
+      gs_i1_1_s1_reg <= gs_i1_1;
+      ga_i1_1_s1_reg <= ga_i1_1;
+      gs_i1_2_s1_reg <= gs_i1_2;
+      ga_i1_2_s1_reg <= ga_i1_2;
+      gs_i2_0_s1_reg <= gs_i2_0;
+      ga_i2_0_s1_reg <= ga_i2_0;
+      gs_i2_1_s1_reg <= gs_i2_1;
+      ga_i2_1_s1_reg <= ga_i2_1;
+      se_i3_s1_reg <= se_i3;
+      gs_q0_0_s1_reg <= gs_q0_0;
+      ga_q0_0_s1_reg <= ga_q0_0;
+      gs_q0_1_s1_reg <= gs_q0_1;
+      ga_q0_1_s1_reg <= ga_q0_1;
+      gs_q0_2_s1_reg <= gs_q0_2;
+      ga_q0_2_s1_reg <= ga_q0_2;
+      gs_q0_3_s1_reg <= gs_q0_3;
+      ga_q0_3_s1_reg <= ga_q0_3;
+      gs_q1_0_s1_reg <= gs_q1_0;
+      ga_q1_0_s1_reg <= ga_q1_0;
+      gs_q1_1_s1_reg <= gs_q1_1;
+      ga_q1_1_s1_reg <= ga_q1_1;
+      gs_q1_2_s1_reg <= gs_q1_2;
+      ga_q1_2_s1_reg <= ga_q1_2;
+      gs_q2_0_s1_reg <= gs_q2_0;
+      ga_q2_0_s1_reg <= ga_q2_0;
+      gs_q2_1_s1_reg <= gs_q2_1;
+      ga_q2_1_s1_reg <= ga_q2_1;
+      se_q3_s1_reg <= se_q3;
     end
   end
 
-  // ---------------------------------------------------------------- step 4: select
-  // per axis bit: dn > 0 ? ~e : e (the +1 of -e sits in the table's constant) and the gated copies as AND terms (a mux to zero in front of a register would become its reset)
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_i0 = pos_i0_s2_reg ? ~e_i_s2_reg : e_i_s2_reg;
-  wire signed [6:0] gs_i0_0 = $signed({7{g_i0_0_s2_reg}}) & $signed(se_i0[6:0]);
-  wire [8:0] ga_i0_0 = {9{g_i0_0_s2_reg}} & dp_i0_s2_reg[8:0];
-  wire signed [6:0] gs_i0_1 = $signed({7{g_i0_1_s2_reg}}) & $signed(se_i0[6:0]);
-  wire [8:0] ga_i0_1 = {9{g_i0_1_s2_reg}} & dp_i0_s2_reg[8:0];
-  wire signed [6:0] gs_i0_2 = $signed({7{g_i0_2_s2_reg}}) & $signed(se_i0[6:0]);
-  wire [8:0] ga_i0_2 = {9{g_i0_2_s2_reg}} & dp_i0_s2_reg[8:0];
-  wire signed [11:0] gs_i0_3 = $signed({12{g_i0_3_s2_reg}}) & se_i0;
-  wire [9:0] ga_i0_3 = {10{g_i0_3_s2_reg}} & dp_i0_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_i1 = pos_i1_s2_reg ? ~e_i_s2_reg : e_i_s2_reg;
-  wire signed [6:0] gs_i1_0 = $signed({7{g_i1_0_s2_reg}}) & $signed(se_i1[6:0]);
-  wire [7:0] ga_i1_0 = {8{g_i1_0_s2_reg}} & dp_i1_s2_reg[7:0];
-  wire signed [6:0] gs_i1_1 = $signed({7{g_i1_1_s2_reg}}) & $signed(se_i1[6:0]);
-  wire [7:0] ga_i1_1 = {8{g_i1_1_s2_reg}} & dp_i1_s2_reg[7:0];
-  wire signed [11:0] gs_i1_2 = $signed({12{g_i1_2_s2_reg}}) & se_i1;
-  wire [8:0] ga_i1_2 = {9{g_i1_2_s2_reg}} & dp_i1_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_i2 = pos_i2_s2_reg ? ~e_i_s2_reg : e_i_s2_reg;
-  wire signed [6:0] gs_i2_0 = $signed({7{g_i2_0_s2_reg}}) & $signed(se_i2[6:0]);
-  wire [6:0] ga_i2_0 = {7{g_i2_0_s2_reg}} & dp_i2_s2_reg[6:0];
-  wire signed [11:0] gs_i2_1 = $signed({12{g_i2_1_s2_reg}}) & se_i2;
-  wire [7:0] ga_i2_1 = {8{g_i2_1_s2_reg}} & dp_i2_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_i3 = pos_i3_s2_reg ? ~e_i_s2_reg : e_i_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_q0 = pos_q0_s2_reg ? ~e_q_s2_reg : e_q_s2_reg;
-  wire signed [6:0] gs_q0_0 = $signed({7{g_q0_0_s2_reg}}) & $signed(se_q0[6:0]);
-  wire [8:0] ga_q0_0 = {9{g_q0_0_s2_reg}} & dp_q0_s2_reg[8:0];
-  wire signed [6:0] gs_q0_1 = $signed({7{g_q0_1_s2_reg}}) & $signed(se_q0[6:0]);
-  wire [8:0] ga_q0_1 = {9{g_q0_1_s2_reg}} & dp_q0_s2_reg[8:0];
-  wire signed [6:0] gs_q0_2 = $signed({7{g_q0_2_s2_reg}}) & $signed(se_q0[6:0]);
-  wire [8:0] ga_q0_2 = {9{g_q0_2_s2_reg}} & dp_q0_s2_reg[8:0];
-  wire signed [11:0] gs_q0_3 = $signed({12{g_q0_3_s2_reg}}) & se_q0;
-  wire [9:0] ga_q0_3 = {10{g_q0_3_s2_reg}} & dp_q0_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_q1 = pos_q1_s2_reg ? ~e_q_s2_reg : e_q_s2_reg;
-  wire signed [6:0] gs_q1_0 = $signed({7{g_q1_0_s2_reg}}) & $signed(se_q1[6:0]);
-  wire [7:0] ga_q1_0 = {8{g_q1_0_s2_reg}} & dp_q1_s2_reg[7:0];
-  wire signed [6:0] gs_q1_1 = $signed({7{g_q1_1_s2_reg}}) & $signed(se_q1[6:0]);
-  wire [7:0] ga_q1_1 = {8{g_q1_1_s2_reg}} & dp_q1_s2_reg[7:0];
-  wire signed [11:0] gs_q1_2 = $signed({12{g_q1_2_s2_reg}}) & se_q1;
-  wire [8:0] ga_q1_2 = {9{g_q1_2_s2_reg}} & dp_q1_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_q2 = pos_q2_s2_reg ? ~e_q_s2_reg : e_q_s2_reg;
-  wire signed [6:0] gs_q2_0 = $signed({7{g_q2_0_s2_reg}}) & $signed(se_q2[6:0]);
-  wire [6:0] ga_q2_0 = {7{g_q2_0_s2_reg}} & dp_q2_s2_reg[6:0];
-  wire signed [11:0] gs_q2_1 = $signed({12{g_q2_1_s2_reg}}) & se_q2;
-  wire [7:0] ga_q2_1 = {8{g_q2_1_s2_reg}} & dp_q2_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [11:0] se_q3 = pos_q3_s2_reg ? ~e_q_s2_reg : e_q_s2_reg;
+  // ---------------------------------------------------------------- residual (stage 2)
+  // per axis bit: u = |(dn << f) - e| = ((|dn| << f) + (dn > 0)) + (dn > 0 ? ~e : e), one adder (and its gated copies)
+  // gated copy: (bit 0 of |dn|) ? u : 0
+  wire [9:0] w_i0_0 = {1'd0, ga_i0_0_s1_reg} + {{3{gs_i0_0_s1_reg[6]}}, gs_i0_0_s1_reg};
+  // gated copy: (bit 1 of |dn|) ? u : 0
+  wire [9:0] w_i0_1 = {1'd0, ga_i0_1_s1_reg} + {{3{gs_i0_1_s1_reg[6]}}, gs_i0_1_s1_reg};
+  // gated copy: (bit 2 of |dn|) ? u : 0
+  wire [9:0] w_i0_2 = {1'd0, ga_i0_2_s1_reg} + {{3{gs_i0_2_s1_reg[6]}}, gs_i0_2_s1_reg};
+  // gated copy: (bit 3 of |dn|) ? u : 0
+  wire [10:0] w_i0_3 = {1'd0, ga_i0_3_s1_reg} + gs_i0_3_s1_reg[10:0];
+  // gated copy: (bit 0 of |dn|) ? u : 0
+  wire [8:0] w_i1_0 = {1'd0, ga_i1_0_s1_reg} + {{2{gs_i1_0_s1_reg[6]}}, gs_i1_0_s1_reg};
+  // gated copy: (bit 1 of |dn|) ? u : 0
+  wire [8:0] w_i1_1 = {1'd0, ga_i1_1_s1_reg} + {{2{gs_i1_1_s1_reg[6]}}, gs_i1_1_s1_reg};
+  // gated copy: (bit 2 of |dn|) ? u : 0
+  wire [10:0] w_i1_2 = {2'd0, ga_i1_2_s1_reg} + gs_i1_2_s1_reg[10:0];
+  // gated copy: (bit 0 of |dn|) ? u : 0
+  wire [7:0] w_i2_0 = {1'd0, ga_i2_0_s1_reg} + {gs_i2_0_s1_reg[6], gs_i2_0_s1_reg};
+  // gated copy: (bit 1 of |dn|) ? u : 0
+  wire [10:0] w_i2_1 = {3'd0, ga_i2_1_s1_reg} + gs_i2_1_s1_reg[10:0];
+  // axis bit 3: u = |(dn << 6) - e| >= 0
+  wire [10:0] u_i3 = {4'd0, dp_i3_s1_reg} + se_i3_s1_reg[10:0];
+  // gated copy: (bit 0 of |dn|) ? u : 0
+  wire [9:0] w_q0_0 = {1'd0, ga_q0_0_s1_reg} + {{3{gs_q0_0_s1_reg[6]}}, gs_q0_0_s1_reg};
+  // gated copy: (bit 1 of |dn|) ? u : 0
+  wire [9:0] w_q0_1 = {1'd0, ga_q0_1_s1_reg} + {{3{gs_q0_1_s1_reg[6]}}, gs_q0_1_s1_reg};
+  // gated copy: (bit 2 of |dn|) ? u : 0
+  wire [9:0] w_q0_2 = {1'd0, ga_q0_2_s1_reg} + {{3{gs_q0_2_s1_reg[6]}}, gs_q0_2_s1_reg};
+  // gated copy: (bit 3 of |dn|) ? u : 0
+  wire [10:0] w_q0_3 = {1'd0, ga_q0_3_s1_reg} + gs_q0_3_s1_reg[10:0];
+  // gated copy: (bit 0 of |dn|) ? u : 0
+  wire [8:0] w_q1_0 = {1'd0, ga_q1_0_s1_reg} + {{2{gs_q1_0_s1_reg[6]}}, gs_q1_0_s1_reg};
+  // gated copy: (bit 1 of |dn|) ? u : 0
+  wire [8:0] w_q1_1 = {1'd0, ga_q1_1_s1_reg} + {{2{gs_q1_1_s1_reg[6]}}, gs_q1_1_s1_reg};
+  // gated copy: (bit 2 of |dn|) ? u : 0
+  wire [10:0] w_q1_2 = {2'd0, ga_q1_2_s1_reg} + gs_q1_2_s1_reg[10:0];
+  // gated copy: (bit 0 of |dn|) ? u : 0
+  wire [7:0] w_q2_0 = {1'd0, ga_q2_0_s1_reg} + {gs_q2_0_s1_reg[6], gs_q2_0_s1_reg};
+  // gated copy: (bit 1 of |dn|) ? u : 0
+  wire [10:0] w_q2_1 = {3'd0, ga_q2_1_s1_reg} + gs_q2_1_s1_reg[10:0];
+  // axis bit 3: u = |(dn << 6) - e| >= 0
+  wire [10:0] u_q3 = {4'd0, dp_q3_s1_reg} + se_q3_s1_reg[10:0];
+  // ---------------------------------------------------------------- product (stage 2)
+  // R = |dn| u: the sum of u << i over the bits i of |dn| that can be 1
+  wire [10:0] pp_i0_1 = {w_i0_1, 1'd0};
+  wire [11:0] pp_i0_2 = {w_i0_2, 2'd0};
+  wire [13:0] pp_i0_3 = {w_i0_3, 3'd0};
+  wire [9:0] pp_i1_1 = {w_i1_1, 1'd0};
+  wire [12:0] pp_i1_2 = {w_i1_2, 2'd0};
+  wire [11:0] pp_i2_1 = {w_i2_1, 1'd0};
+  wire [10:0] pp_q0_1 = {w_q0_1, 1'd0};
+  wire [11:0] pp_q0_2 = {w_q0_2, 2'd0};
+  wire [13:0] pp_q0_3 = {w_q0_3, 3'd0};
+  wire [9:0] pp_q1_1 = {w_q1_1, 1'd0};
+  wire [12:0] pp_q1_2 = {w_q1_2, 2'd0};
+  wire [11:0] pp_q2_1 = {w_q2_1, 1'd0};
 
-  // register stage 3 (after step "select")
+  // register stage 2 (after residual, product)
+  reg  tlast_s2_reg = 1'd0;
+  reg  neg_i0_s2_reg = 1'd0;
+  reg  neg_i1_s2_reg = 1'd0;
+  reg  neg_i2_s2_reg = 1'd0;
+  reg  neg_i3_s2_reg = 1'd0;
+  reg  neg_q0_s2_reg = 1'd0;
+  reg  neg_q1_s2_reg = 1'd0;
+  reg  neg_q2_s2_reg = 1'd0;
+  reg  neg_q3_s2_reg = 1'd0;
+  reg  [9:0] w_i0_0_s2_reg = 10'd0;
+  reg  [8:0] w_i1_0_s2_reg = 9'd0;
+  reg  [7:0] w_i2_0_s2_reg = 8'd0;
+  reg  [10:0] u_i3_s2_reg = 11'd0;
+  reg  [9:0] w_q0_0_s2_reg = 10'd0;
+  reg  [8:0] w_q1_0_s2_reg = 9'd0;
+  reg  [7:0] w_q2_0_s2_reg = 8'd0;
+  reg  [10:0] u_q3_s2_reg = 11'd0;
+  reg  [10:0] pp_i0_1_s2_reg = 11'd0;
+  reg  [11:0] pp_i0_2_s2_reg = 12'd0;
+  reg  [13:0] pp_i0_3_s2_reg = 14'd0;
+  reg  [9:0] pp_i1_1_s2_reg = 10'd0;
+  reg  [12:0] pp_i1_2_s2_reg = 13'd0;
+  reg  [11:0] pp_i2_1_s2_reg = 12'd0;
+  reg  [10:0] pp_q0_1_s2_reg = 11'd0;
+  reg  [11:0] pp_q0_2_s2_reg = 12'd0;
+  reg  [13:0] pp_q0_3_s2_reg = 14'd0;
+  reg  [9:0] pp_q1_1_s2_reg = 10'd0;
+  reg  [12:0] pp_q1_2_s2_reg = 13'd0;
+  reg  [11:0] pp_q2_1_s2_reg = 12'd0;
+  always @(posedge aclk) begin
+    if (ce_s2) begin
+      tlast_s2_reg <= tlast_s1_reg;
+      neg_i0_s2_reg <= neg_i0_s1_reg;
+      neg_i1_s2_reg <= neg_i1_s1_reg;
+      neg_i2_s2_reg <= neg_i2_s1_reg;
+      neg_i3_s2_reg <= neg_i3_s1_reg;
+      neg_q0_s2_reg <= neg_q0_s1_reg;
+      neg_q1_s2_reg <= neg_q1_s1_reg;
+      neg_q2_s2_reg <= neg_q2_s1_reg;
+      neg_q3_s2_reg <= neg_q3_s1_reg;
+      w_i0_0_s2_reg <= w_i0_0;
+      w_i1_0_s2_reg <= w_i1_0;
+      w_i2_0_s2_reg <= w_i2_0;
+      u_i3_s2_reg <= u_i3;
+      w_q0_0_s2_reg <= w_q0_0;
+      w_q1_0_s2_reg <= w_q1_0;
+      w_q2_0_s2_reg <= w_q2_0;
+      u_q3_s2_reg <= u_q3;
+      pp_i0_1_s2_reg <= pp_i0_1;
+      pp_i0_2_s2_reg <= pp_i0_2;
+      pp_i0_3_s2_reg <= pp_i0_3;
+      pp_i1_1_s2_reg <= pp_i1_1;
+      pp_i1_2_s2_reg <= pp_i1_2;
+      pp_i2_1_s2_reg <= pp_i2_1;
+      pp_q0_1_s2_reg <= pp_q0_1;
+      pp_q0_2_s2_reg <= pp_q0_2;
+      pp_q0_3_s2_reg <= pp_q0_3;
+      pp_q1_1_s2_reg <= pp_q1_1;
+      pp_q1_2_s2_reg <= pp_q1_2;
+      pp_q2_1_s2_reg <= pp_q2_1;
+    end
+  end
+
+  // ---------------------------------------------------------------- product (stage 3)
+  // R = |dn| u: the sum of u << i over the bits i of |dn| that can be 1
+  wire [10:0] acc_i0_0_0 = {1'd0, w_i0_0_s2_reg} + pp_i0_1_s2_reg;
+  wire [13:0] acc_i0_0_1 = {2'd0, pp_i0_2_s2_reg} + pp_i0_3_s2_reg;
+  wire [9:0] acc_i1_0_0 = {1'd0, w_i1_0_s2_reg} + pp_i1_1_s2_reg;
+  wire [11:0] mag_i2 = {4'd0, w_i2_0_s2_reg} + pp_i2_1_s2_reg;
+  wire [10:0] acc_q0_0_0 = {1'd0, w_q0_0_s2_reg} + pp_q0_1_s2_reg;
+  wire [13:0] acc_q0_0_1 = {2'd0, pp_q0_2_s2_reg} + pp_q0_3_s2_reg;
+  wire [9:0] acc_q1_0_0 = {1'd0, w_q1_0_s2_reg} + pp_q1_1_s2_reg;
+  wire [11:0] mag_q2 = {4'd0, w_q2_0_s2_reg} + pp_q2_1_s2_reg;
+  // ---------------------------------------------------------------- round (stage 3)
+  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
+  wire [10:0] rsum_i3 = u_i3_s2_reg + 11'd2;
+  wire [12:0] oc_i3 = {2'd0, u_i3_s2_reg} + 13'd3970;
+  wire ovf_i3 = oc_i3[12];
+  wire [4:0] vo_i3 = rsum_i3[6:2];
+  wire [10:0] rsum_q3 = u_q3_s2_reg + 11'd2;
+  wire [12:0] oc_q3 = {2'd0, u_q3_s2_reg} + 13'd3970;
+  wire ovf_q3 = oc_q3[12];
+  wire [4:0] vo_q3 = rsum_q3[6:2];
+  // ---------------------------------------------------------------- sign (stage 3)
+  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [4:0] s_i3 = ovf_i3 ? 5'd31 : vo_i3;
+  wire signed [5:0] x_i3 = neg_i3_s2_reg ? ~$signed({1'd0, s_i3}) : $signed({1'd0, s_i3});
+  wire [4:0] s_q3 = ovf_q3 ? 5'd31 : vo_q3;
+  wire signed [5:0] x_q3 = neg_q3_s2_reg ? ~$signed({1'd0, s_q3}) : $signed({1'd0, s_q3});
+
+  // register stage 3 (after product, round, sign)
   reg  tlast_s3_reg = 1'd0;
   reg  neg_i0_s3_reg = 1'd0;
   reg  neg_i1_s3_reg = 1'd0;
   reg  neg_i2_s3_reg = 1'd0;
   reg  neg_i3_s3_reg = 1'd0;
-  reg  [6:0] dp_i3_s3_reg = 7'd0;
   reg  neg_q0_s3_reg = 1'd0;
   reg  neg_q1_s3_reg = 1'd0;
   reg  neg_q2_s3_reg = 1'd0;
   reg  neg_q3_s3_reg = 1'd0;
-  reg  [6:0] dp_q3_s3_reg = 7'd0;
-  reg  signed [6:0] gs_i0_0_s3_reg = 7'sd0;
-  reg  [8:0] ga_i0_0_s3_reg = 9'd0;
-  reg  signed [6:0] gs_i0_1_s3_reg = 7'sd0;
-  reg  [8:0] ga_i0_1_s3_reg = 9'd0;
-  reg  signed [6:0] gs_i0_2_s3_reg = 7'sd0;
-  reg  [8:0] ga_i0_2_s3_reg = 9'd0;
-  reg  signed [11:0] gs_i0_3_s3_reg = 12'sd0;
-  reg  [9:0] ga_i0_3_s3_reg = 10'd0;
-  reg  signed [6:0] gs_i1_0_s3_reg = 7'sd0;
-  reg  [7:0] ga_i1_0_s3_reg = 8'd0;
-  reg  signed [6:0] gs_i1_1_s3_reg = 7'sd0;
-  reg  [7:0] ga_i1_1_s3_reg = 8'd0;
-  reg  signed [11:0] gs_i1_2_s3_reg = 12'sd0;
-  reg  [8:0] ga_i1_2_s3_reg = 9'd0;
-  reg  signed [6:0] gs_i2_0_s3_reg = 7'sd0;
-  reg  [6:0] ga_i2_0_s3_reg = 7'd0;
-  reg  signed [11:0] gs_i2_1_s3_reg = 12'sd0;
-  reg  [7:0] ga_i2_1_s3_reg = 8'd0;
-  reg  signed [11:0] se_i3_s3_reg = 12'sd0;
-  reg  signed [6:0] gs_q0_0_s3_reg = 7'sd0;
-  reg  [8:0] ga_q0_0_s3_reg = 9'd0;
-  reg  signed [6:0] gs_q0_1_s3_reg = 7'sd0;
-  reg  [8:0] ga_q0_1_s3_reg = 9'd0;
-  reg  signed [6:0] gs_q0_2_s3_reg = 7'sd0;
-  reg  [8:0] ga_q0_2_s3_reg = 9'd0;
-  reg  signed [11:0] gs_q0_3_s3_reg = 12'sd0;
-  reg  [9:0] ga_q0_3_s3_reg = 10'd0;
-  reg  signed [6:0] gs_q1_0_s3_reg = 7'sd0;
-  reg  [7:0] ga_q1_0_s3_reg = 8'd0;
-  reg  signed [6:0] gs_q1_1_s3_reg = 7'sd0;
-  reg  [7:0] ga_q1_1_s3_reg = 8'd0;
-  reg  signed [11:0] gs_q1_2_s3_reg = 12'sd0;
-  reg  [8:0] ga_q1_2_s3_reg = 9'd0;
-  reg  signed [6:0] gs_q2_0_s3_reg = 7'sd0;
-  reg  [6:0] ga_q2_0_s3_reg = 7'd0;
-  reg  signed [11:0] gs_q2_1_s3_reg = 12'sd0;
-  reg  [7:0] ga_q2_1_s3_reg = 8'd0;
-  reg  signed [11:0] se_q3_s3_reg = 12'sd0;
+  reg  [10:0] acc_i0_0_0_s3_reg = 11'd0;
+  reg  [13:0] acc_i0_0_1_s3_reg = 14'd0;
+  reg  [12:0] pp_i1_2_s3_reg = 13'd0;
+  reg  [9:0] acc_i1_0_0_s3_reg = 10'd0;
+  reg  [11:0] mag_i2_s3_reg = 12'd0;
+  reg  [10:0] acc_q0_0_0_s3_reg = 11'd0;
+  reg  [13:0] acc_q0_0_1_s3_reg = 14'd0;
+  reg  [12:0] pp_q1_2_s3_reg = 13'd0;
+  reg  [9:0] acc_q1_0_0_s3_reg = 10'd0;
+  reg  [11:0] mag_q2_s3_reg = 12'd0;
+  reg  signed [5:0] x_i3_s3_reg = 6'sd0;
+  reg  signed [5:0] x_q3_s3_reg = 6'sd0;
   always @(posedge aclk) begin
     if (ce_s3) begin
       tlast_s3_reg <= tlast_s2_reg;
@@ -705,434 +805,202 @@ module lvt_bh256_demapper (
       neg_i1_s3_reg <= neg_i1_s2_reg;
       neg_i2_s3_reg <= neg_i2_s2_reg;
       neg_i3_s3_reg <= neg_i3_s2_reg;
-      dp_i3_s3_reg <= dp_i3_s2_reg;
       neg_q0_s3_reg <= neg_q0_s2_reg;
       neg_q1_s3_reg <= neg_q1_s2_reg;
       neg_q2_s3_reg <= neg_q2_s2_reg;
       neg_q3_s3_reg <= neg_q3_s2_reg;
-      dp_q3_s3_reg <= dp_q3_s2_reg;
-      gs_i0_0_s3_reg <= gs_i0_0;
-      ga_i0_0_s3_reg <= ga_i0_0;
-      gs_i0_1_s3_reg <= gs_i0_1;
-      ga_i0_1_s3_reg <= ga_i0_1;
-      gs_i0_2_s3_reg <= gs_i0_2;
-      ga_i0_2_s3_reg <= ga_i0_2;
-      gs_i0_3_s3_reg <= gs_i0_3;
-      ga_i0_3_s3_reg <= ga_i0_3;
-      gs_i1_0_s3_reg <= gs_i1_0;
-      ga_i1_0_s3_reg <= ga_i1_0;
-      gs_i1_1_s3_reg <= gs_i1_1;
-      ga_i1_1_s3_reg <= ga_i1_1;
-      gs_i1_2_s3_reg <= gs_i1_2;
-      ga_i1_2_s3_reg <= ga_i1_2;
-      gs_i2_0_s3_reg <= gs_i2_0;
-      ga_i2_0_s3_reg <= ga_i2_0;
-      gs_i2_1_s3_reg <= gs_i2_1;
-      ga_i2_1_s3_reg <= ga_i2_1;
-      se_i3_s3_reg <= se_i3;
-      gs_q0_0_s3_reg <= gs_q0_0;
-      ga_q0_0_s3_reg <= ga_q0_0;
-      gs_q0_1_s3_reg <= gs_q0_1;
-      ga_q0_1_s3_reg <= ga_q0_1;
-      gs_q0_2_s3_reg <= gs_q0_2;
-      ga_q0_2_s3_reg <= ga_q0_2;
-      gs_q0_3_s3_reg <= gs_q0_3;
-      ga_q0_3_s3_reg <= ga_q0_3;
-      gs_q1_0_s3_reg <= gs_q1_0;
-      ga_q1_0_s3_reg <= ga_q1_0;
-      gs_q1_1_s3_reg <= gs_q1_1;
-      ga_q1_1_s3_reg <= ga_q1_1;
-      gs_q1_2_s3_reg <= gs_q1_2;
-      ga_q1_2_s3_reg <= ga_q1_2;
-      gs_q2_0_s3_reg <= gs_q2_0;
-      ga_q2_0_s3_reg <= ga_q2_0;
-      gs_q2_1_s3_reg <= gs_q2_1;
-      ga_q2_1_s3_reg <= ga_q2_1;
-      se_q3_s3_reg <= se_q3;
+      acc_i0_0_0_s3_reg <= acc_i0_0_0;
+      acc_i0_0_1_s3_reg <= acc_i0_0_1;
+      pp_i1_2_s3_reg <= pp_i1_2_s2_reg;
+      acc_i1_0_0_s3_reg <= acc_i1_0_0;
+      mag_i2_s3_reg <= mag_i2;
+      acc_q0_0_0_s3_reg <= acc_q0_0_0;
+      acc_q0_0_1_s3_reg <= acc_q0_0_1;
+      pp_q1_2_s3_reg <= pp_q1_2_s2_reg;
+      acc_q1_0_0_s3_reg <= acc_q1_0_0;
+      mag_q2_s3_reg <= mag_q2;
+      x_i3_s3_reg <= x_i3;
+      x_q3_s3_reg <= x_q3;
     end
   end
 
-  // ---------------------------------------------------------------- step 5: residual
-  // per axis bit: u = |(dn << f) - e| = ((|dn| << f) + (dn > 0)) + (dn > 0 ? ~e : e), one adder (and its gated copies)
-  // gated copy: (bit 0 of |dn|) ? u : 0
-  wire [9:0] w_i0_0 = {1'd0, ga_i0_0_s3_reg} + {{3{gs_i0_0_s3_reg[6]}}, gs_i0_0_s3_reg};
-  // gated copy: (bit 1 of |dn|) ? u : 0
-  wire [9:0] w_i0_1 = {1'd0, ga_i0_1_s3_reg} + {{3{gs_i0_1_s3_reg[6]}}, gs_i0_1_s3_reg};
-  // gated copy: (bit 2 of |dn|) ? u : 0
-  wire [9:0] w_i0_2 = {1'd0, ga_i0_2_s3_reg} + {{3{gs_i0_2_s3_reg[6]}}, gs_i0_2_s3_reg};
-  // gated copy: (bit 3 of |dn|) ? u : 0
-  wire [10:0] w_i0_3 = {1'd0, ga_i0_3_s3_reg} + gs_i0_3_s3_reg[10:0];
-  // gated copy: (bit 0 of |dn|) ? u : 0
-  wire [8:0] w_i1_0 = {1'd0, ga_i1_0_s3_reg} + {{2{gs_i1_0_s3_reg[6]}}, gs_i1_0_s3_reg};
-  // gated copy: (bit 1 of |dn|) ? u : 0
-  wire [8:0] w_i1_1 = {1'd0, ga_i1_1_s3_reg} + {{2{gs_i1_1_s3_reg[6]}}, gs_i1_1_s3_reg};
-  // gated copy: (bit 2 of |dn|) ? u : 0
-  wire [10:0] w_i1_2 = {2'd0, ga_i1_2_s3_reg} + gs_i1_2_s3_reg[10:0];
-  // gated copy: (bit 0 of |dn|) ? u : 0
-  wire [7:0] w_i2_0 = {1'd0, ga_i2_0_s3_reg} + {gs_i2_0_s3_reg[6], gs_i2_0_s3_reg};
-  // gated copy: (bit 1 of |dn|) ? u : 0
-  wire [10:0] w_i2_1 = {3'd0, ga_i2_1_s3_reg} + gs_i2_1_s3_reg[10:0];
-  // axis bit 3: u = |(dn << 6) - e| >= 0
-  wire [10:0] u_i3 = {4'd0, dp_i3_s3_reg} + se_i3_s3_reg[10:0];
-  // gated copy: (bit 0 of |dn|) ? u : 0
-  wire [9:0] w_q0_0 = {1'd0, ga_q0_0_s3_reg} + {{3{gs_q0_0_s3_reg[6]}}, gs_q0_0_s3_reg};
-  // gated copy: (bit 1 of |dn|) ? u : 0
-  wire [9:0] w_q0_1 = {1'd0, ga_q0_1_s3_reg} + {{3{gs_q0_1_s3_reg[6]}}, gs_q0_1_s3_reg};
-  // gated copy: (bit 2 of |dn|) ? u : 0
-  wire [9:0] w_q0_2 = {1'd0, ga_q0_2_s3_reg} + {{3{gs_q0_2_s3_reg[6]}}, gs_q0_2_s3_reg};
-  // gated copy: (bit 3 of |dn|) ? u : 0
-  wire [10:0] w_q0_3 = {1'd0, ga_q0_3_s3_reg} + gs_q0_3_s3_reg[10:0];
-  // gated copy: (bit 0 of |dn|) ? u : 0
-  wire [8:0] w_q1_0 = {1'd0, ga_q1_0_s3_reg} + {{2{gs_q1_0_s3_reg[6]}}, gs_q1_0_s3_reg};
-  // gated copy: (bit 1 of |dn|) ? u : 0
-  wire [8:0] w_q1_1 = {1'd0, ga_q1_1_s3_reg} + {{2{gs_q1_1_s3_reg[6]}}, gs_q1_1_s3_reg};
-  // gated copy: (bit 2 of |dn|) ? u : 0
-  wire [10:0] w_q1_2 = {2'd0, ga_q1_2_s3_reg} + gs_q1_2_s3_reg[10:0];
-  // gated copy: (bit 0 of |dn|) ? u : 0
-  wire [7:0] w_q2_0 = {1'd0, ga_q2_0_s3_reg} + {gs_q2_0_s3_reg[6], gs_q2_0_s3_reg};
-  // gated copy: (bit 1 of |dn|) ? u : 0
-  wire [10:0] w_q2_1 = {3'd0, ga_q2_1_s3_reg} + gs_q2_1_s3_reg[10:0];
-  // axis bit 3: u = |(dn << 6) - e| >= 0
-  wire [10:0] u_q3 = {4'd0, dp_q3_s3_reg} + se_q3_s3_reg[10:0];
+  // ---------------------------------------------------------------- accumulate (stage 4)
+  // the next level of the adder tree
+  wire [13:0] mag_i0 = {3'd0, acc_i0_0_0_s3_reg} + acc_i0_0_1_s3_reg;
+  wire [12:0] mag_i1 = {3'd0, acc_i1_0_0_s3_reg} + pp_i1_2_s3_reg;
+  wire [13:0] mag_q0 = {3'd0, acc_q0_0_0_s3_reg} + acc_q0_0_1_s3_reg;
+  wire [12:0] mag_q1 = {3'd0, acc_q1_0_0_s3_reg} + pp_q1_2_s3_reg;
+  // ---------------------------------------------------------------- round (stage 4)
+  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
+  wire [11:0] rsum_i2 = mag_i2_s3_reg + 12'd2;
+  wire [13:0] oc_i2 = {2'd0, mag_i2_s3_reg} + 14'd8066;
+  wire ovf_i2 = oc_i2[13];
+  wire [4:0] vo_i2 = rsum_i2[6:2];
+  wire [11:0] rsum_q2 = mag_q2_s3_reg + 12'd2;
+  wire [13:0] oc_q2 = {2'd0, mag_q2_s3_reg} + 14'd8066;
+  wire ovf_q2 = oc_q2[13];
+  wire [4:0] vo_q2 = rsum_q2[6:2];
+  // ---------------------------------------------------------------- sign (stage 4)
+  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [4:0] s_i2 = ovf_i2 ? 5'd31 : vo_i2;
+  wire signed [5:0] x_i2 = neg_i2_s3_reg ? ~$signed({1'd0, s_i2}) : $signed({1'd0, s_i2});
+  // LLR i3: positive means bit 0 is more likely
+  wire signed [5:0] llr_i3 = x_i3_s3_reg + $signed({5'd0, neg_i3_s3_reg});
+  wire [4:0] s_q2 = ovf_q2 ? 5'd31 : vo_q2;
+  wire signed [5:0] x_q2 = neg_q2_s3_reg ? ~$signed({1'd0, s_q2}) : $signed({1'd0, s_q2});
+  // LLR q3: positive means bit 0 is more likely
+  wire signed [5:0] llr_q3 = x_q3_s3_reg + $signed({5'd0, neg_q3_s3_reg});
 
-  // register stage 4 (after step "residual")
+  // register stage 4 (after accumulate, round, sign)
   reg  tlast_s4_reg = 1'd0;
   reg  neg_i0_s4_reg = 1'd0;
   reg  neg_i1_s4_reg = 1'd0;
   reg  neg_i2_s4_reg = 1'd0;
-  reg  neg_i3_s4_reg = 1'd0;
   reg  neg_q0_s4_reg = 1'd0;
   reg  neg_q1_s4_reg = 1'd0;
   reg  neg_q2_s4_reg = 1'd0;
-  reg  neg_q3_s4_reg = 1'd0;
-  reg  [9:0] w_i0_0_s4_reg = 10'd0;
-  reg  [9:0] w_i0_1_s4_reg = 10'd0;
-  reg  [9:0] w_i0_2_s4_reg = 10'd0;
-  reg  [10:0] w_i0_3_s4_reg = 11'd0;
-  reg  [8:0] w_i1_0_s4_reg = 9'd0;
-  reg  [8:0] w_i1_1_s4_reg = 9'd0;
-  reg  [10:0] w_i1_2_s4_reg = 11'd0;
-  reg  [7:0] w_i2_0_s4_reg = 8'd0;
-  reg  [10:0] w_i2_1_s4_reg = 11'd0;
-  reg  [10:0] u_i3_s4_reg = 11'd0;
-  reg  [9:0] w_q0_0_s4_reg = 10'd0;
-  reg  [9:0] w_q0_1_s4_reg = 10'd0;
-  reg  [9:0] w_q0_2_s4_reg = 10'd0;
-  reg  [10:0] w_q0_3_s4_reg = 11'd0;
-  reg  [8:0] w_q1_0_s4_reg = 9'd0;
-  reg  [8:0] w_q1_1_s4_reg = 9'd0;
-  reg  [10:0] w_q1_2_s4_reg = 11'd0;
-  reg  [7:0] w_q2_0_s4_reg = 8'd0;
-  reg  [10:0] w_q2_1_s4_reg = 11'd0;
-  reg  [10:0] u_q3_s4_reg = 11'd0;
+  reg  [13:0] mag_i0_s4_reg = 14'd0;
+  reg  [12:0] mag_i1_s4_reg = 13'd0;
+  reg  [13:0] mag_q0_s4_reg = 14'd0;
+  reg  [12:0] mag_q1_s4_reg = 13'd0;
+  reg  signed [5:0] x_i2_s4_reg = 6'sd0;
+  reg  signed [5:0] llr_i3_s4_reg = 6'sd0;
+  reg  signed [5:0] x_q2_s4_reg = 6'sd0;
+  reg  signed [5:0] llr_q3_s4_reg = 6'sd0;
   always @(posedge aclk) begin
     if (ce_s4) begin
       tlast_s4_reg <= tlast_s3_reg;
       neg_i0_s4_reg <= neg_i0_s3_reg;
       neg_i1_s4_reg <= neg_i1_s3_reg;
       neg_i2_s4_reg <= neg_i2_s3_reg;
-      neg_i3_s4_reg <= neg_i3_s3_reg;
       neg_q0_s4_reg <= neg_q0_s3_reg;
       neg_q1_s4_reg <= neg_q1_s3_reg;
       neg_q2_s4_reg <= neg_q2_s3_reg;
-      neg_q3_s4_reg <= neg_q3_s3_reg;
-      w_i0_0_s4_reg <= w_i0_0;
-      w_i0_1_s4_reg <= w_i0_1;
-      w_i0_2_s4_reg <= w_i0_2;
-      w_i0_3_s4_reg <= w_i0_3;
-      w_i1_0_s4_reg <= w_i1_0;
-      w_i1_1_s4_reg <= w_i1_1;
-      w_i1_2_s4_reg <= w_i1_2;
-      w_i2_0_s4_reg <= w_i2_0;
-      w_i2_1_s4_reg <= w_i2_1;
-      u_i3_s4_reg <= u_i3;
-      w_q0_0_s4_reg <= w_q0_0;
-      w_q0_1_s4_reg <= w_q0_1;
-      w_q0_2_s4_reg <= w_q0_2;
-      w_q0_3_s4_reg <= w_q0_3;
-      w_q1_0_s4_reg <= w_q1_0;
-      w_q1_1_s4_reg <= w_q1_1;
-      w_q1_2_s4_reg <= w_q1_2;
-      w_q2_0_s4_reg <= w_q2_0;
-      w_q2_1_s4_reg <= w_q2_1;
-      u_q3_s4_reg <= u_q3;
+      mag_i0_s4_reg <= mag_i0;
+      mag_i1_s4_reg <= mag_i1;
+      mag_q0_s4_reg <= mag_q0;
+      mag_q1_s4_reg <= mag_q1;
+      x_i2_s4_reg <= x_i2;
+      llr_i3_s4_reg <= llr_i3;
+      x_q2_s4_reg <= x_q2;
+      llr_q3_s4_reg <= llr_q3;
     end
   end
 
-  // ---------------------------------------------------------------- step 6: product
-  // R = |dn| u: the sum of u << i over the bits i of |dn| that can be 1
-  wire [10:0] pp_i0_1 = {w_i0_1_s4_reg, 1'd0};
-  wire [11:0] pp_i0_2 = {w_i0_2_s4_reg, 2'd0};
-  wire [13:0] pp_i0_3 = {w_i0_3_s4_reg, 3'd0};
-  wire [10:0] acc_i0_0_0 = {1'd0, w_i0_0_s4_reg} + pp_i0_1;
-  wire [13:0] acc_i0_0_1 = {2'd0, pp_i0_2} + pp_i0_3;
-  wire [9:0] pp_i1_1 = {w_i1_1_s4_reg, 1'd0};
-  wire [12:0] pp_i1_2 = {w_i1_2_s4_reg, 2'd0};
-  wire [9:0] acc_i1_0_0 = {1'd0, w_i1_0_s4_reg} + pp_i1_1;
-  wire [11:0] pp_i2_1 = {w_i2_1_s4_reg, 1'd0};
-  wire [11:0] mag_i2 = {4'd0, w_i2_0_s4_reg} + pp_i2_1;
-  wire [10:0] pp_q0_1 = {w_q0_1_s4_reg, 1'd0};
-  wire [11:0] pp_q0_2 = {w_q0_2_s4_reg, 2'd0};
-  wire [13:0] pp_q0_3 = {w_q0_3_s4_reg, 3'd0};
-  wire [10:0] acc_q0_0_0 = {1'd0, w_q0_0_s4_reg} + pp_q0_1;
-  wire [13:0] acc_q0_0_1 = {2'd0, pp_q0_2} + pp_q0_3;
-  wire [9:0] pp_q1_1 = {w_q1_1_s4_reg, 1'd0};
-  wire [12:0] pp_q1_2 = {w_q1_2_s4_reg, 2'd0};
-  wire [9:0] acc_q1_0_0 = {1'd0, w_q1_0_s4_reg} + pp_q1_1;
-  wire [11:0] pp_q2_1 = {w_q2_1_s4_reg, 1'd0};
-  wire [11:0] mag_q2 = {4'd0, w_q2_0_s4_reg} + pp_q2_1;
+  // ---------------------------------------------------------------- round (stage 5)
+  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
+  wire [13:0] rsum_i0 = mag_i0_s4_reg + 14'd2;
+  wire [15:0] oc_i0 = {2'd0, mag_i0_s4_reg} + 16'd32642;
+  wire ovf_i0 = oc_i0[15];
+  wire [4:0] vo_i0 = rsum_i0[6:2];
+  wire [12:0] rsum_i1 = mag_i1_s4_reg + 13'd2;
+  wire [14:0] oc_i1 = {2'd0, mag_i1_s4_reg} + 15'd16258;
+  wire ovf_i1 = oc_i1[14];
+  wire [4:0] vo_i1 = rsum_i1[6:2];
+  wire [13:0] rsum_q0 = mag_q0_s4_reg + 14'd2;
+  wire [15:0] oc_q0 = {2'd0, mag_q0_s4_reg} + 16'd32642;
+  wire ovf_q0 = oc_q0[15];
+  wire [4:0] vo_q0 = rsum_q0[6:2];
+  wire [12:0] rsum_q1 = mag_q1_s4_reg + 13'd2;
+  wire [14:0] oc_q1 = {2'd0, mag_q1_s4_reg} + 15'd16258;
+  wire ovf_q1 = oc_q1[14];
+  wire [4:0] vo_q1 = rsum_q1[6:2];
+  // ---------------------------------------------------------------- sign (stage 5)
+  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  // LLR i2: positive means bit 0 is more likely
+  wire signed [5:0] llr_i2 = x_i2_s4_reg + $signed({5'd0, neg_i2_s4_reg});
+  // LLR q2: positive means bit 0 is more likely
+  wire signed [5:0] llr_q2 = x_q2_s4_reg + $signed({5'd0, neg_q2_s4_reg});
 
-  // register stage 5 (after step "product")
+  // register stage 5 (after round, sign)
   reg  tlast_s5_reg = 1'd0;
   reg  neg_i0_s5_reg = 1'd0;
   reg  neg_i1_s5_reg = 1'd0;
-  reg  neg_i2_s5_reg = 1'd0;
-  reg  neg_i3_s5_reg = 1'd0;
   reg  neg_q0_s5_reg = 1'd0;
   reg  neg_q1_s5_reg = 1'd0;
-  reg  neg_q2_s5_reg = 1'd0;
-  reg  neg_q3_s5_reg = 1'd0;
-  reg  [10:0] u_i3_s5_reg = 11'd0;
-  reg  [10:0] u_q3_s5_reg = 11'd0;
-  reg  [10:0] acc_i0_0_0_s5_reg = 11'd0;
-  reg  [13:0] acc_i0_0_1_s5_reg = 14'd0;
-  reg  [12:0] pp_i1_2_s5_reg = 13'd0;
-  reg  [9:0] acc_i1_0_0_s5_reg = 10'd0;
-  reg  [11:0] mag_i2_s5_reg = 12'd0;
-  reg  [10:0] acc_q0_0_0_s5_reg = 11'd0;
-  reg  [13:0] acc_q0_0_1_s5_reg = 14'd0;
-  reg  [12:0] pp_q1_2_s5_reg = 13'd0;
-  reg  [9:0] acc_q1_0_0_s5_reg = 10'd0;
-  reg  [11:0] mag_q2_s5_reg = 12'd0;
+  reg  ovf_i0_s5_reg = 1'd0;
+  reg  [4:0] vo_i0_s5_reg = 5'd0;
+  reg  ovf_i1_s5_reg = 1'd0;
+  reg  [4:0] vo_i1_s5_reg = 5'd0;
+  reg  ovf_q0_s5_reg = 1'd0;
+  reg  [4:0] vo_q0_s5_reg = 5'd0;
+  reg  ovf_q1_s5_reg = 1'd0;
+  reg  [4:0] vo_q1_s5_reg = 5'd0;
+  reg  signed [5:0] llr_i2_s5_reg = 6'sd0;
+  reg  signed [5:0] llr_i3_s5_reg = 6'sd0;
+  reg  signed [5:0] llr_q2_s5_reg = 6'sd0;
+  reg  signed [5:0] llr_q3_s5_reg = 6'sd0;
   always @(posedge aclk) begin
     if (ce_s5) begin
       tlast_s5_reg <= tlast_s4_reg;
       neg_i0_s5_reg <= neg_i0_s4_reg;
       neg_i1_s5_reg <= neg_i1_s4_reg;
-      neg_i2_s5_reg <= neg_i2_s4_reg;
-      neg_i3_s5_reg <= neg_i3_s4_reg;
       neg_q0_s5_reg <= neg_q0_s4_reg;
       neg_q1_s5_reg <= neg_q1_s4_reg;
-      neg_q2_s5_reg <= neg_q2_s4_reg;
-      neg_q3_s5_reg <= neg_q3_s4_reg;
-      u_i3_s5_reg <= u_i3_s4_reg;
-      u_q3_s5_reg <= u_q3_s4_reg;
-      acc_i0_0_0_s5_reg <= acc_i0_0_0;
-      acc_i0_0_1_s5_reg <= acc_i0_0_1;
-      pp_i1_2_s5_reg <= pp_i1_2;
-      acc_i1_0_0_s5_reg <= acc_i1_0_0;
-      mag_i2_s5_reg <= mag_i2;
-      acc_q0_0_0_s5_reg <= acc_q0_0_0;
-      acc_q0_0_1_s5_reg <= acc_q0_0_1;
-      pp_q1_2_s5_reg <= pp_q1_2;
-      acc_q1_0_0_s5_reg <= acc_q1_0_0;
-      mag_q2_s5_reg <= mag_q2;
+      ovf_i0_s5_reg <= ovf_i0;
+      vo_i0_s5_reg <= vo_i0;
+      ovf_i1_s5_reg <= ovf_i1;
+      vo_i1_s5_reg <= vo_i1;
+      ovf_q0_s5_reg <= ovf_q0;
+      vo_q0_s5_reg <= vo_q0;
+      ovf_q1_s5_reg <= ovf_q1;
+      vo_q1_s5_reg <= vo_q1;
+      llr_i2_s5_reg <= llr_i2;
+      llr_i3_s5_reg <= llr_i3_s4_reg;
+      llr_q2_s5_reg <= llr_q2;
+      llr_q3_s5_reg <= llr_q3_s4_reg;
     end
   end
 
-  // ---------------------------------------------------------------- step 7: accumulate
-  // the next level of the adder tree
-  wire [13:0] mag_i0 = {3'd0, acc_i0_0_0_s5_reg} + acc_i0_0_1_s5_reg;
-  wire [12:0] mag_i1 = {3'd0, acc_i1_0_0_s5_reg} + pp_i1_2_s5_reg;
-  wire [13:0] mag_q0 = {3'd0, acc_q0_0_0_s5_reg} + acc_q0_0_1_s5_reg;
-  wire [12:0] mag_q1 = {3'd0, acc_q1_0_0_s5_reg} + pp_q1_2_s5_reg;
+  // ---------------------------------------------------------------- sign (stage 6)
+  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [4:0] s_i0 = ovf_i0_s5_reg ? 5'd31 : vo_i0_s5_reg;
+  wire signed [5:0] x_i0 = neg_i0_s5_reg ? ~$signed({1'd0, s_i0}) : $signed({1'd0, s_i0});
+  // LLR i0: positive means bit 0 is more likely
+  wire signed [5:0] llr_i0 = x_i0 + $signed({5'd0, neg_i0_s5_reg});
+  wire [4:0] s_i1 = ovf_i1_s5_reg ? 5'd31 : vo_i1_s5_reg;
+  wire signed [5:0] x_i1 = neg_i1_s5_reg ? ~$signed({1'd0, s_i1}) : $signed({1'd0, s_i1});
+  // LLR i1: positive means bit 0 is more likely
+  wire signed [5:0] llr_i1 = x_i1 + $signed({5'd0, neg_i1_s5_reg});
+  wire [4:0] s_q0 = ovf_q0_s5_reg ? 5'd31 : vo_q0_s5_reg;
+  wire signed [5:0] x_q0 = neg_q0_s5_reg ? ~$signed({1'd0, s_q0}) : $signed({1'd0, s_q0});
+  // LLR q0: positive means bit 0 is more likely
+  wire signed [5:0] llr_q0 = x_q0 + $signed({5'd0, neg_q0_s5_reg});
+  wire [4:0] s_q1 = ovf_q1_s5_reg ? 5'd31 : vo_q1_s5_reg;
+  wire signed [5:0] x_q1 = neg_q1_s5_reg ? ~$signed({1'd0, s_q1}) : $signed({1'd0, s_q1});
+  // LLR q1: positive means bit 0 is more likely
+  wire signed [5:0] llr_q1 = x_q1 + $signed({5'd0, neg_q1_s5_reg});
 
-  // register stage 6 (after step "accumulate")
+  // register stage 6 (after sign)
   reg  tlast_s6_reg = 1'd0;
-  reg  neg_i0_s6_reg = 1'd0;
-  reg  neg_i1_s6_reg = 1'd0;
-  reg  neg_i2_s6_reg = 1'd0;
-  reg  neg_i3_s6_reg = 1'd0;
-  reg  neg_q0_s6_reg = 1'd0;
-  reg  neg_q1_s6_reg = 1'd0;
-  reg  neg_q2_s6_reg = 1'd0;
-  reg  neg_q3_s6_reg = 1'd0;
-  reg  [10:0] u_i3_s6_reg = 11'd0;
-  reg  [10:0] u_q3_s6_reg = 11'd0;
-  reg  [11:0] mag_i2_s6_reg = 12'd0;
-  reg  [11:0] mag_q2_s6_reg = 12'd0;
-  reg  [13:0] mag_i0_s6_reg = 14'd0;
-  reg  [12:0] mag_i1_s6_reg = 13'd0;
-  reg  [13:0] mag_q0_s6_reg = 14'd0;
-  reg  [12:0] mag_q1_s6_reg = 13'd0;
+  reg  signed [5:0] llr_i0_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_i1_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_i2_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_i3_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_q0_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_q1_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_q2_s6_reg = 6'sd0;
+  reg  signed [5:0] llr_q3_s6_reg = 6'sd0;
   always @(posedge aclk) begin
     if (ce_s6) begin
       tlast_s6_reg <= tlast_s5_reg;
-      neg_i0_s6_reg <= neg_i0_s5_reg;
-      neg_i1_s6_reg <= neg_i1_s5_reg;
-      neg_i2_s6_reg <= neg_i2_s5_reg;
-      neg_i3_s6_reg <= neg_i3_s5_reg;
-      neg_q0_s6_reg <= neg_q0_s5_reg;
-      neg_q1_s6_reg <= neg_q1_s5_reg;
-      neg_q2_s6_reg <= neg_q2_s5_reg;
-      neg_q3_s6_reg <= neg_q3_s5_reg;
-      u_i3_s6_reg <= u_i3_s5_reg;
-      u_q3_s6_reg <= u_q3_s5_reg;
-      mag_i2_s6_reg <= mag_i2_s5_reg;
-      mag_q2_s6_reg <= mag_q2_s5_reg;
-      mag_i0_s6_reg <= mag_i0;
-      mag_i1_s6_reg <= mag_i1;
-      mag_q0_s6_reg <= mag_q0;
-      mag_q1_s6_reg <= mag_q1;
-    end
-  end
-
-  // ---------------------------------------------------------------- step 8: round
-  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
-  wire [13:0] rsum_i0 = mag_i0_s6_reg + 14'd2;
-  wire [15:0] oc_i0 = {2'd0, mag_i0_s6_reg} + 16'd32642;
-  wire ovf_i0 = oc_i0[15];
-  wire [4:0] vo_i0 = rsum_i0[6:2];
-  wire [12:0] rsum_i1 = mag_i1_s6_reg + 13'd2;
-  wire [14:0] oc_i1 = {2'd0, mag_i1_s6_reg} + 15'd16258;
-  wire ovf_i1 = oc_i1[14];
-  wire [4:0] vo_i1 = rsum_i1[6:2];
-  wire [11:0] rsum_i2 = mag_i2_s6_reg + 12'd2;
-  wire [13:0] oc_i2 = {2'd0, mag_i2_s6_reg} + 14'd8066;
-  wire ovf_i2 = oc_i2[13];
-  wire [4:0] vo_i2 = rsum_i2[6:2];
-  wire [10:0] rsum_i3 = u_i3_s6_reg + 11'd2;
-  wire [12:0] oc_i3 = {2'd0, u_i3_s6_reg} + 13'd3970;
-  wire ovf_i3 = oc_i3[12];
-  wire [4:0] vo_i3 = rsum_i3[6:2];
-  wire [13:0] rsum_q0 = mag_q0_s6_reg + 14'd2;
-  wire [15:0] oc_q0 = {2'd0, mag_q0_s6_reg} + 16'd32642;
-  wire ovf_q0 = oc_q0[15];
-  wire [4:0] vo_q0 = rsum_q0[6:2];
-  wire [12:0] rsum_q1 = mag_q1_s6_reg + 13'd2;
-  wire [14:0] oc_q1 = {2'd0, mag_q1_s6_reg} + 15'd16258;
-  wire ovf_q1 = oc_q1[14];
-  wire [4:0] vo_q1 = rsum_q1[6:2];
-  wire [11:0] rsum_q2 = mag_q2_s6_reg + 12'd2;
-  wire [13:0] oc_q2 = {2'd0, mag_q2_s6_reg} + 14'd8066;
-  wire ovf_q2 = oc_q2[13];
-  wire [4:0] vo_q2 = rsum_q2[6:2];
-  wire [10:0] rsum_q3 = u_q3_s6_reg + 11'd2;
-  wire [12:0] oc_q3 = {2'd0, u_q3_s6_reg} + 13'd3970;
-  wire ovf_q3 = oc_q3[12];
-  wire [4:0] vo_q3 = rsum_q3[6:2];
-
-  // register stage 7 (after step "round")
-  reg  tlast_s7_reg = 1'd0;
-  reg  neg_i0_s7_reg = 1'd0;
-  reg  neg_i1_s7_reg = 1'd0;
-  reg  neg_i2_s7_reg = 1'd0;
-  reg  neg_i3_s7_reg = 1'd0;
-  reg  neg_q0_s7_reg = 1'd0;
-  reg  neg_q1_s7_reg = 1'd0;
-  reg  neg_q2_s7_reg = 1'd0;
-  reg  neg_q3_s7_reg = 1'd0;
-  reg  ovf_i0_s7_reg = 1'd0;
-  reg  [4:0] vo_i0_s7_reg = 5'd0;
-  reg  ovf_i1_s7_reg = 1'd0;
-  reg  [4:0] vo_i1_s7_reg = 5'd0;
-  reg  ovf_i2_s7_reg = 1'd0;
-  reg  [4:0] vo_i2_s7_reg = 5'd0;
-  reg  ovf_i3_s7_reg = 1'd0;
-  reg  [4:0] vo_i3_s7_reg = 5'd0;
-  reg  ovf_q0_s7_reg = 1'd0;
-  reg  [4:0] vo_q0_s7_reg = 5'd0;
-  reg  ovf_q1_s7_reg = 1'd0;
-  reg  [4:0] vo_q1_s7_reg = 5'd0;
-  reg  ovf_q2_s7_reg = 1'd0;
-  reg  [4:0] vo_q2_s7_reg = 5'd0;
-  reg  ovf_q3_s7_reg = 1'd0;
-  reg  [4:0] vo_q3_s7_reg = 5'd0;
-  always @(posedge aclk) begin
-    if (ce_s7) begin
-      tlast_s7_reg <= tlast_s6_reg;
-      neg_i0_s7_reg <= neg_i0_s6_reg;
-      neg_i1_s7_reg <= neg_i1_s6_reg;
-      neg_i2_s7_reg <= neg_i2_s6_reg;
-      neg_i3_s7_reg <= neg_i3_s6_reg;
-      neg_q0_s7_reg <= neg_q0_s6_reg;
-      neg_q1_s7_reg <= neg_q1_s6_reg;
-      neg_q2_s7_reg <= neg_q2_s6_reg;
-      neg_q3_s7_reg <= neg_q3_s6_reg;
-      ovf_i0_s7_reg <= ovf_i0;
-      vo_i0_s7_reg <= vo_i0;
-      ovf_i1_s7_reg <= ovf_i1;
-      vo_i1_s7_reg <= vo_i1;
-      ovf_i2_s7_reg <= ovf_i2;
-      vo_i2_s7_reg <= vo_i2;
-      ovf_i3_s7_reg <= ovf_i3;
-      vo_i3_s7_reg <= vo_i3;
-      ovf_q0_s7_reg <= ovf_q0;
-      vo_q0_s7_reg <= vo_q0;
-      ovf_q1_s7_reg <= ovf_q1;
-      vo_q1_s7_reg <= vo_q1;
-      ovf_q2_s7_reg <= ovf_q2;
-      vo_q2_s7_reg <= vo_q2;
-      ovf_q3_s7_reg <= ovf_q3;
-      vo_q3_s7_reg <= vo_q3;
-    end
-  end
-
-  // ---------------------------------------------------------------- step 9: sign
-  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [4:0] s_i0 = ovf_i0_s7_reg ? 5'd31 : vo_i0_s7_reg;
-  wire signed [5:0] x_i0 = neg_i0_s7_reg ? ~$signed({1'd0, s_i0}) : $signed({1'd0, s_i0});
-  // LLR i0: positive means bit 0 is more likely
-  wire signed [5:0] llr_i0 = x_i0 + $signed({5'd0, neg_i0_s7_reg});
-  wire [4:0] s_i1 = ovf_i1_s7_reg ? 5'd31 : vo_i1_s7_reg;
-  wire signed [5:0] x_i1 = neg_i1_s7_reg ? ~$signed({1'd0, s_i1}) : $signed({1'd0, s_i1});
-  // LLR i1: positive means bit 0 is more likely
-  wire signed [5:0] llr_i1 = x_i1 + $signed({5'd0, neg_i1_s7_reg});
-  wire [4:0] s_i2 = ovf_i2_s7_reg ? 5'd31 : vo_i2_s7_reg;
-  wire signed [5:0] x_i2 = neg_i2_s7_reg ? ~$signed({1'd0, s_i2}) : $signed({1'd0, s_i2});
-  // LLR i2: positive means bit 0 is more likely
-  wire signed [5:0] llr_i2 = x_i2 + $signed({5'd0, neg_i2_s7_reg});
-  wire [4:0] s_i3 = ovf_i3_s7_reg ? 5'd31 : vo_i3_s7_reg;
-  wire signed [5:0] x_i3 = neg_i3_s7_reg ? ~$signed({1'd0, s_i3}) : $signed({1'd0, s_i3});
-  // LLR i3: positive means bit 0 is more likely
-  wire signed [5:0] llr_i3 = x_i3 + $signed({5'd0, neg_i3_s7_reg});
-  wire [4:0] s_q0 = ovf_q0_s7_reg ? 5'd31 : vo_q0_s7_reg;
-  wire signed [5:0] x_q0 = neg_q0_s7_reg ? ~$signed({1'd0, s_q0}) : $signed({1'd0, s_q0});
-  // LLR q0: positive means bit 0 is more likely
-  wire signed [5:0] llr_q0 = x_q0 + $signed({5'd0, neg_q0_s7_reg});
-  wire [4:0] s_q1 = ovf_q1_s7_reg ? 5'd31 : vo_q1_s7_reg;
-  wire signed [5:0] x_q1 = neg_q1_s7_reg ? ~$signed({1'd0, s_q1}) : $signed({1'd0, s_q1});
-  // LLR q1: positive means bit 0 is more likely
-  wire signed [5:0] llr_q1 = x_q1 + $signed({5'd0, neg_q1_s7_reg});
-  wire [4:0] s_q2 = ovf_q2_s7_reg ? 5'd31 : vo_q2_s7_reg;
-  wire signed [5:0] x_q2 = neg_q2_s7_reg ? ~$signed({1'd0, s_q2}) : $signed({1'd0, s_q2});
-  // LLR q2: positive means bit 0 is more likely
-  wire signed [5:0] llr_q2 = x_q2 + $signed({5'd0, neg_q2_s7_reg});
-  wire [4:0] s_q3 = ovf_q3_s7_reg ? 5'd31 : vo_q3_s7_reg;
-  wire signed [5:0] x_q3 = neg_q3_s7_reg ? ~$signed({1'd0, s_q3}) : $signed({1'd0, s_q3});
-  // LLR q3: positive means bit 0 is more likely
-  wire signed [5:0] llr_q3 = x_q3 + $signed({5'd0, neg_q3_s7_reg});
-
-  // register stage 8 (after step "sign")
-  reg  tlast_s8_reg = 1'd0;
-  reg  signed [5:0] llr_i0_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_i1_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_i2_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_i3_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_q0_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_q1_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_q2_s8_reg = 6'sd0;
-  reg  signed [5:0] llr_q3_s8_reg = 6'sd0;
-  always @(posedge aclk) begin
-    if (ce_s8) begin
-      tlast_s8_reg <= tlast_s7_reg;
-      llr_i0_s8_reg <= llr_i0;
-      llr_i1_s8_reg <= llr_i1;
-      llr_i2_s8_reg <= llr_i2;
-      llr_i3_s8_reg <= llr_i3;
-      llr_q0_s8_reg <= llr_q0;
-      llr_q1_s8_reg <= llr_q1;
-      llr_q2_s8_reg <= llr_q2;
-      llr_q3_s8_reg <= llr_q3;
+      llr_i0_s6_reg <= llr_i0;
+      llr_i1_s6_reg <= llr_i1;
+      llr_i2_s6_reg <= llr_i2_s5_reg;
+      llr_i3_s6_reg <= llr_i3_s5_reg;
+      llr_q0_s6_reg <= llr_q0;
+      llr_q1_s6_reg <= llr_q1;
+      llr_q2_s6_reg <= llr_q2_s5_reg;
+      llr_q3_s6_reg <= llr_q3_s5_reg;
     end
   end
 
   // ---------------------------------------------------------------- output word
-  assign m_axis_tdata = {llr_i0_s8_reg, llr_q0_s8_reg, llr_i1_s8_reg, llr_q1_s8_reg, llr_i2_s8_reg, llr_q2_s8_reg, llr_i3_s8_reg, llr_q3_s8_reg};
-  assign m_axis_tlast = tlast_s8_reg;
+  assign m_axis_tdata = {llr_i0_s6_reg, llr_q0_s6_reg, llr_i1_s6_reg, llr_q1_s6_reg, llr_i2_s6_reg, llr_q2_s6_reg, llr_i3_s6_reg, llr_q3_s6_reg};
+  assign m_axis_tlast = tlast_s6_reg;
 
   // bits that are provably constant or not needed (ranges from the generator)
-  wire unused_bits = ^{sum_i[11], sum_i[6:0], hsum_i[11:0], sum_q[11], sum_q[6:0], hsum_q[11:0], gs_i0_3_s3_reg[11], gs_i1_2_s3_reg[11], gs_i2_1_s3_reg[11], se_i3_s3_reg[11], gs_q0_3_s3_reg[11], gs_q1_2_s3_reg[11], gs_q2_1_s3_reg[11], se_q3_s3_reg[11], rsum_i0[13:7], rsum_i0[1:0], oc_i0[14:0], rsum_i1[12:7], rsum_i1[1:0], oc_i1[13:0], rsum_i2[11:7], rsum_i2[1:0], oc_i2[12:0], rsum_i3[10:7], rsum_i3[1:0], oc_i3[11:0], rsum_q0[13:7], rsum_q0[1:0], oc_q0[14:0], rsum_q1[12:7], rsum_q1[1:0], oc_q1[13:0], rsum_q2[11:7], rsum_q2[1:0], oc_q2[12:0], rsum_q3[10:7], rsum_q3[1:0], oc_q3[11:0]};
+  wire unused_bits = ^{sum_i[11], sum_i[6:0], hsum_i[11:0], sum_q[11], sum_q[6:0], hsum_q[11:0], gs_i0_3_s1_reg[11], gs_i1_2_s1_reg[11], gs_i2_1_s1_reg[11], se_i3_s1_reg[11], gs_q0_3_s1_reg[11], gs_q1_2_s1_reg[11], gs_q2_1_s1_reg[11], se_q3_s1_reg[11], rsum_i3[10:7], rsum_i3[1:0], oc_i3[11:0], rsum_q3[10:7], rsum_q3[1:0], oc_q3[11:0], rsum_i2[11:7], rsum_i2[1:0], oc_i2[12:0], rsum_q2[11:7], rsum_q2[1:0], oc_q2[12:0], rsum_i0[13:7], rsum_i0[1:0], oc_i0[14:0], rsum_i1[12:7], rsum_i1[1:0], oc_i1[13:0], rsum_q0[13:7], rsum_q0[1:0], oc_q0[14:0], rsum_q1[12:7], rsum_q1[1:0], oc_q1[13:0]};
 
 endmodule
 

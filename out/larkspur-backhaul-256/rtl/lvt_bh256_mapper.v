@@ -82,7 +82,7 @@ module lvt_bh256_mapper (
   // the label, b0 (first bit in time) in the MSB
   wire [7:0] lab = in_tdata[7:0];
 
-  // ---------------------------------------------------------------- step 1: lookup
+  // ---------------------------------------------------------------- lookup (stage 0)
   // per axis: the axis label gathered from the label bits, the level code from a table
   // I axis label: b0, b2, b4, b6, the first the MSB
   wire [3:0] idx_i = {lab[7], lab[5], lab[3], lab[1]};
@@ -137,7 +137,7 @@ module lvt_bh256_mapper (
   endfunction
   wire signed [11:0] lvl_q = lvl_q_table(idx_q);
 
-  // register stage 0 (after step "lookup")
+  // register stage 0 (after lookup)
   reg  tlast_s0_reg = 1'd0;
   reg  signed [11:0] lvl_i_s0_reg = 12'sd0;
   reg  signed [11:0] lvl_q_s0_reg = 12'sd0;

@@ -10,6 +10,9 @@
 // its tlast and tuser in order, and counts mismatches. Plusargs: +map_in= +map_out= +map_count=
 // +dem_in= +dem_out= +dem_count= +seed= +in_pct= +out_pct= (percent of cycles valid / ready),
 // +finish (end the run and print the summary; without it a cocotb test reads the counters).
+// The gaps come from an xorshift generator per block, not $random, and every register the
+// blocks share is written with nonblocking assignments: Icarus and Verilator run the same
+// cycles and print the same RESULT line. A run that stops making progress ends with STALL.
 module lvt_bh256_harness #(
   // words of the stimulus memories (at least the largest count of a run)
   parameter DEPTH = 1024
@@ -20,6 +23,7 @@ module lvt_bh256_harness #(
   localparam DEM_IN_W  = 24;  // demapper input word
   localparam DEM_OUT_W = 48;  // demapper output word
   localparam BAD_MAX   = 8;  // mismatches recorded in detail
+  localparam STALL_MAX = 100000;  // cycles without an output word before the run is declared stalled
 
   reg aclk = 1'b0;
   reg aresetn = 1'b0;
@@ -43,7 +47,10 @@ module lvt_bh256_harness #(
   integer dem_compared = 0;
   integer dem_bad = 0;
   integer cycles = 0;
+  integer idle = 0;
+  integer progress = 0;
   reg done = 1'b0;
+  reg stalled = 1'b0;
   // the first mismatch of each block: word index and {tuser, tlast, tdata} received
   integer map_first_idx = -1;
   reg [MAP_OUT_W+2-1:0] map_first_got = 0;
@@ -67,8 +74,6 @@ module lvt_bh256_harness #(
     if ($value$plusargs("seed=%d", seed)) ;
     if ($value$plusargs("in_pct=%d", in_pct)) ;
     if ($value$plusargs("out_pct=%d", out_pct)) ;
-    repeat (4) @(posedge aclk);
-    aresetn <= 1'b1;
   end
 
   // side band of word n: tlast every seventh word, tuser a hash of n
@@ -78,6 +83,29 @@ module lvt_bh256_harness #(
     begin
       h = n * 32'd2654435761;
       side = { 1'b0, (n % 7) == 3 };
+    end
+  endfunction
+
+  // the first state of block k's generator for seed s (never zero)
+  function [31:0] rng_seed;
+    input integer s;
+    input integer k;
+    reg [31:0] h;
+    begin
+      h = (s + k * 32'd1640531527) * 32'd2654435761;
+      h = h ^ (h >> 15);
+      rng_seed = (h == 32'd0) ? 32'd1 : h;
+    end
+  endfunction
+
+  // xorshift32 (Marsaglia 2003): the next state; the high half draws the gaps, the low half the backpressure
+  function [31:0] rng_next;
+    input [31:0] x;
+    reg [31:0] y;
+    begin
+      y = x ^ (x << 13);
+      y = y ^ (y >> 17);
+      rng_next = y ^ (y << 5);
     end
   endfunction
 
@@ -93,6 +121,7 @@ module lvt_bh256_harness #(
   wire             map_m_tlast;
   wire [0:0] map_m_tuser;
   integer map_sent = 0;
+  reg  [31:0] map_rng = 32'd1;
 
   lvt_bh256_mapper dut_map (
     .aclk(aclk), .aresetn(aresetn),
@@ -104,11 +133,13 @@ module lvt_bh256_harness #(
   assign map_m_tuser = 1'b0;
 
   always @(posedge aclk) begin
-    if (aresetn) begin
+    if (!aresetn) begin
+      map_rng <= rng_seed(seed, 1);
+    end else begin
+      map_rng <= rng_next(map_rng);
       // source: offer the next word in in_pct percent of the free cycles
       if (!map_s_tvalid || map_s_tready) begin
-        if (map_sent < map_count
-            && ($unsigned($random(seed)) % 100) < in_pct) begin
+        if (map_sent < map_count && (map_rng >> 16) % 100 < in_pct) begin
           map_s_tdata  <= map_in_mem[map_sent];
           { map_s_tuser, map_s_tlast } <= side(map_sent);
           map_s_tvalid <= 1'b1;
@@ -121,22 +152,22 @@ module lvt_bh256_harness #(
       if (map_m_tvalid && map_m_tready) begin
         if (map_compared >= map_count) begin
           $display("mapper: extra word %h after %0d", map_m_tdata, map_count);
-          map_bad = map_bad + 1;
+          map_bad <= map_bad + 1;
         end else if ({ map_m_tuser, map_m_tlast, map_m_tdata } !==
                      { side(map_compared), map_out_mem[map_compared] }) begin
           if (map_bad == 0) begin
-            map_first_idx = map_compared;
-            map_first_got = { map_m_tuser, map_m_tlast, map_m_tdata };
+            map_first_idx <= map_compared;
+            map_first_got <= { map_m_tuser, map_m_tlast, map_m_tdata };
           end
           if (map_bad < BAD_MAX)
             $display("BAD mapper word %0d got %h expected %h", map_compared,
                      { map_m_tuser, map_m_tlast, map_m_tdata },
                      { side(map_compared), map_out_mem[map_compared] });
-          map_bad = map_bad + 1;
+          map_bad <= map_bad + 1;
         end
-        map_compared = map_compared + 1;
+        map_compared <= map_compared + 1;
       end
-      map_m_tready <= ($unsigned($random(seed)) % 100) < out_pct;
+      map_m_tready <= (map_rng & 32'hffff) % 100 < out_pct;
     end
   end
 
@@ -152,6 +183,7 @@ module lvt_bh256_harness #(
   wire             dem_m_tlast;
   wire [0:0] dem_m_tuser;
   integer dem_sent = 0;
+  reg  [31:0] dem_rng = 32'd1;
 
   lvt_bh256_demapper dut_dem (
     .aclk(aclk), .aresetn(aresetn),
@@ -163,11 +195,13 @@ module lvt_bh256_harness #(
   assign dem_m_tuser = 1'b0;
 
   always @(posedge aclk) begin
-    if (aresetn) begin
+    if (!aresetn) begin
+      dem_rng <= rng_seed(seed, 2);
+    end else begin
+      dem_rng <= rng_next(dem_rng);
       // source: offer the next word in in_pct percent of the free cycles
       if (!dem_s_tvalid || dem_s_tready) begin
-        if (dem_sent < dem_count
-            && ($unsigned($random(seed)) % 100) < in_pct) begin
+        if (dem_sent < dem_count && (dem_rng >> 16) % 100 < in_pct) begin
           dem_s_tdata  <= dem_in_mem[dem_sent];
           { dem_s_tuser, dem_s_tlast } <= side(dem_sent);
           dem_s_tvalid <= 1'b1;
@@ -180,29 +214,37 @@ module lvt_bh256_harness #(
       if (dem_m_tvalid && dem_m_tready) begin
         if (dem_compared >= dem_count) begin
           $display("demapper: extra word %h after %0d", dem_m_tdata, dem_count);
-          dem_bad = dem_bad + 1;
+          dem_bad <= dem_bad + 1;
         end else if ({ dem_m_tuser, dem_m_tlast, dem_m_tdata } !==
                      { side(dem_compared), dem_out_mem[dem_compared] }) begin
           if (dem_bad == 0) begin
-            dem_first_idx = dem_compared;
-            dem_first_got = { dem_m_tuser, dem_m_tlast, dem_m_tdata };
+            dem_first_idx <= dem_compared;
+            dem_first_got <= { dem_m_tuser, dem_m_tlast, dem_m_tdata };
           end
           if (dem_bad < BAD_MAX)
             $display("BAD demapper word %0d got %h expected %h", dem_compared,
                      { dem_m_tuser, dem_m_tlast, dem_m_tdata },
                      { side(dem_compared), dem_out_mem[dem_compared] });
-          dem_bad = dem_bad + 1;
+          dem_bad <= dem_bad + 1;
         end
-        dem_compared = dem_compared + 1;
+        dem_compared <= dem_compared + 1;
       end
-      dem_m_tready <= ($unsigned($random(seed)) % 100) < out_pct;
+      dem_m_tready <= (dem_rng & 32'hffff) % 100 < out_pct;
     end
   end
 
+  // reset for the first four cycles; the end of the run: every word compared, or no progress
   always @(posedge aclk) begin
-    cycles = cycles + 1;
-    if (!done && map_compared >= map_count && dem_compared >= dem_count && cycles > 8) begin
+    cycles <= cycles + 1;
+    aresetn <= cycles >= 3;
+    progress <= map_compared + dem_compared;
+    idle <= (map_compared + dem_compared != progress) ? 0 : idle + 1;
+    if (!done && aresetn && ((map_compared >= map_count && dem_compared >= dem_count) || idle > STALL_MAX)) begin
       done <= 1'b1;
+      stalled <= idle > STALL_MAX;
+      if (idle > STALL_MAX)
+        $display("STALL no output word for %0d cycles: %0d of %0d mapper and %0d of %0d demapper words compared",
+                 idle, map_compared, map_count, dem_compared, dem_count);
       if ($test$plusargs("finish")) begin
         $display("RESULT map_compared=%0d map_bad=%0d dem_compared=%0d dem_bad=%0d cycles=%0d",
                  map_compared, map_bad, dem_compared, dem_bad, cycles);

@@ -38,7 +38,7 @@
 //        4 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^4 codes.
 // Output: 4 signed 6-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
 //         saturated symmetrically to +-31.
-// Architecture: 2-D search over every point (16); latency 4 cycles, one symbol per clock.
+// Architecture: 2-D search over every point (16); latency 10 cycles, one symbol per clock.
 module lvt_spur16_demapper (
   // clock and reset
   input  wire           aclk,
@@ -56,7 +56,7 @@ module lvt_spur16_demapper (
 );
 
   // ---------------------------------------------------------------- constants
-  localparam LATENCY = 4;  // cycles from an accepted input word to its output word
+  localparam LATENCY = 10;  // cycles from an accepted input word to its output word
 
   // ---------------------------------------------------------------- stream control
   // One shared enable: every stage moves when the output register is empty or being read, so
@@ -69,6 +69,12 @@ module lvt_spur16_demapper (
   wire ce_s1 = ce_all;
   wire ce_s2 = ce_all;
   wire ce_s3 = ce_all;
+  wire ce_s4 = ce_all;
+  wire ce_s5 = ce_all;
+  wire ce_s6 = ce_all;
+  wire ce_s7 = ce_all;
+  wire ce_s8 = ce_all;
+  wire ce_s9 = ce_all;
 
   wire in_tvalid = s_axis_tvalid;
   wire [19:0] in_tdata = s_axis_tdata;
@@ -80,6 +86,12 @@ module lvt_spur16_demapper (
     if (ce_s1) valid_reg[1] <= valid_reg[0];
     if (ce_s2) valid_reg[2] <= valid_reg[1];
     if (ce_s3) valid_reg[3] <= valid_reg[2];
+    if (ce_s4) valid_reg[4] <= valid_reg[3];
+    if (ce_s5) valid_reg[5] <= valid_reg[4];
+    if (ce_s6) valid_reg[6] <= valid_reg[5];
+    if (ce_s7) valid_reg[7] <= valid_reg[6];
+    if (ce_s8) valid_reg[8] <= valid_reg[7];
+    if (ce_s9) valid_reg[9] <= valid_reg[8];
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) valid_reg <= {LATENCY{1'b0}};
   end
@@ -92,393 +104,715 @@ module lvt_spur16_demapper (
   // equalized Q input code
   wire signed [9:0] y_q = $signed(in_tdata[19:10]);
 
-  // ---------------------------------------------------------------- step 1: distance
+  // ---------------------------------------------------------------- distance (stage 0)
   // the squared distance to every point, in input codes squared
   // point 0 at (-48, -48)
   wire signed [10:0] di_0 = $signed({y_i[9], y_i}) - -11'sd48;
   wire signed [10:0] dq_0 = $signed({y_q[9], y_q}) - -11'sd48;
-  wire [18:0] si_0 = {{8{di_0[10]}}, di_0} * {{8{di_0[10]}}, di_0};
-  wire [18:0] sq_0 = {{8{dq_0[10]}}, dq_0} * {{8{dq_0[10]}}, dq_0};
-  wire [19:0] d_0 = {1'd0, si_0} + {1'd0, sq_0};
   // point 1 at (-48, -16)
   wire signed [10:0] di_1 = $signed({y_i[9], y_i}) - -11'sd48;
   wire signed [10:0] dq_1 = $signed({y_q[9], y_q}) - -11'sd16;
-  wire [18:0] si_1 = {{8{di_1[10]}}, di_1} * {{8{di_1[10]}}, di_1};
-  wire [18:0] sq_1 = {{8{dq_1[10]}}, dq_1} * {{8{dq_1[10]}}, dq_1};
-  wire [19:0] d_1 = {1'd0, si_1} + {1'd0, sq_1};
   // point 2 at (-48, 48)
   wire signed [10:0] di_2 = $signed({y_i[9], y_i}) - -11'sd48;
   wire signed [10:0] dq_2 = $signed({y_q[9], y_q}) - 11'sd48;
-  wire [18:0] si_2 = {{8{di_2[10]}}, di_2} * {{8{di_2[10]}}, di_2};
-  wire [18:0] sq_2 = {{8{dq_2[10]}}, dq_2} * {{8{dq_2[10]}}, dq_2};
-  wire [19:0] d_2 = {1'd0, si_2} + {1'd0, sq_2};
   // point 3 at (-48, 16)
   wire signed [10:0] di_3 = $signed({y_i[9], y_i}) - -11'sd48;
   wire signed [10:0] dq_3 = $signed({y_q[9], y_q}) - 11'sd16;
-  wire [18:0] si_3 = {{8{di_3[10]}}, di_3} * {{8{di_3[10]}}, di_3};
-  wire [18:0] sq_3 = {{8{dq_3[10]}}, dq_3} * {{8{dq_3[10]}}, dq_3};
-  wire [19:0] d_3 = {1'd0, si_3} + {1'd0, sq_3};
   // point 4 at (-16, -48)
   wire signed [10:0] di_4 = $signed({y_i[9], y_i}) - -11'sd16;
   wire signed [10:0] dq_4 = $signed({y_q[9], y_q}) - -11'sd48;
-  wire [18:0] si_4 = {{8{di_4[10]}}, di_4} * {{8{di_4[10]}}, di_4};
-  wire [18:0] sq_4 = {{8{dq_4[10]}}, dq_4} * {{8{dq_4[10]}}, dq_4};
-  wire [19:0] d_4 = {1'd0, si_4} + {1'd0, sq_4};
   // point 5 at (-16, -16)
   wire signed [10:0] di_5 = $signed({y_i[9], y_i}) - -11'sd16;
   wire signed [10:0] dq_5 = $signed({y_q[9], y_q}) - -11'sd16;
-  wire [18:0] si_5 = {{8{di_5[10]}}, di_5} * {{8{di_5[10]}}, di_5};
-  wire [18:0] sq_5 = {{8{dq_5[10]}}, dq_5} * {{8{dq_5[10]}}, dq_5};
-  wire [19:0] d_5 = {1'd0, si_5} + {1'd0, sq_5};
   // point 6 at (48, -16)
   wire signed [10:0] di_6 = $signed({y_i[9], y_i}) - 11'sd48;
   wire signed [10:0] dq_6 = $signed({y_q[9], y_q}) - -11'sd16;
-  wire [18:0] si_6 = {{8{di_6[10]}}, di_6} * {{8{di_6[10]}}, di_6};
-  wire [18:0] sq_6 = {{8{dq_6[10]}}, dq_6} * {{8{dq_6[10]}}, dq_6};
-  wire [19:0] d_6 = {1'd0, si_6} + {1'd0, sq_6};
   // point 7 at (-16, 16)
   wire signed [10:0] di_7 = $signed({y_i[9], y_i}) - -11'sd16;
   wire signed [10:0] dq_7 = $signed({y_q[9], y_q}) - 11'sd16;
-  wire [18:0] si_7 = {{8{di_7[10]}}, di_7} * {{8{di_7[10]}}, di_7};
-  wire [18:0] sq_7 = {{8{dq_7[10]}}, dq_7} * {{8{dq_7[10]}}, dq_7};
-  wire [19:0] d_7 = {1'd0, si_7} + {1'd0, sq_7};
   // point 8 at (48, -48)
   wire signed [10:0] di_8 = $signed({y_i[9], y_i}) - 11'sd48;
   wire signed [10:0] dq_8 = $signed({y_q[9], y_q}) - -11'sd48;
-  wire [18:0] si_8 = {{8{di_8[10]}}, di_8} * {{8{di_8[10]}}, di_8};
-  wire [18:0] sq_8 = {{8{dq_8[10]}}, dq_8} * {{8{dq_8[10]}}, dq_8};
-  wire [19:0] d_8 = {1'd0, si_8} + {1'd0, sq_8};
   // point 9 at (-16, 48)
   wire signed [10:0] di_9 = $signed({y_i[9], y_i}) - -11'sd16;
   wire signed [10:0] dq_9 = $signed({y_q[9], y_q}) - 11'sd48;
-  wire [18:0] si_9 = {{8{di_9[10]}}, di_9} * {{8{di_9[10]}}, di_9};
-  wire [18:0] sq_9 = {{8{dq_9[10]}}, dq_9} * {{8{dq_9[10]}}, dq_9};
-  wire [19:0] d_9 = {1'd0, si_9} + {1'd0, sq_9};
   // point 10 at (48, 48)
   wire signed [10:0] di_10 = $signed({y_i[9], y_i}) - 11'sd48;
   wire signed [10:0] dq_10 = $signed({y_q[9], y_q}) - 11'sd48;
-  wire [18:0] si_10 = {{8{di_10[10]}}, di_10} * {{8{di_10[10]}}, di_10};
-  wire [18:0] sq_10 = {{8{dq_10[10]}}, dq_10} * {{8{dq_10[10]}}, dq_10};
-  wire [19:0] d_10 = {1'd0, si_10} + {1'd0, sq_10};
   // point 11 at (48, 16)
   wire signed [10:0] di_11 = $signed({y_i[9], y_i}) - 11'sd48;
   wire signed [10:0] dq_11 = $signed({y_q[9], y_q}) - 11'sd16;
-  wire [18:0] si_11 = {{8{di_11[10]}}, di_11} * {{8{di_11[10]}}, di_11};
-  wire [18:0] sq_11 = {{8{dq_11[10]}}, dq_11} * {{8{dq_11[10]}}, dq_11};
-  wire [19:0] d_11 = {1'd0, si_11} + {1'd0, sq_11};
   // point 12 at (16, -48)
   wire signed [10:0] di_12 = $signed({y_i[9], y_i}) - 11'sd16;
   wire signed [10:0] dq_12 = $signed({y_q[9], y_q}) - -11'sd48;
-  wire [18:0] si_12 = {{8{di_12[10]}}, di_12} * {{8{di_12[10]}}, di_12};
-  wire [18:0] sq_12 = {{8{dq_12[10]}}, dq_12} * {{8{dq_12[10]}}, dq_12};
-  wire [19:0] d_12 = {1'd0, si_12} + {1'd0, sq_12};
   // point 13 at (16, -16)
   wire signed [10:0] di_13 = $signed({y_i[9], y_i}) - 11'sd16;
   wire signed [10:0] dq_13 = $signed({y_q[9], y_q}) - -11'sd16;
-  wire [18:0] si_13 = {{8{di_13[10]}}, di_13} * {{8{di_13[10]}}, di_13};
-  wire [18:0] sq_13 = {{8{dq_13[10]}}, dq_13} * {{8{dq_13[10]}}, dq_13};
-  wire [19:0] d_13 = {1'd0, si_13} + {1'd0, sq_13};
   // point 14 at (16, 48)
   wire signed [10:0] di_14 = $signed({y_i[9], y_i}) - 11'sd16;
   wire signed [10:0] dq_14 = $signed({y_q[9], y_q}) - 11'sd48;
-  wire [18:0] si_14 = {{8{di_14[10]}}, di_14} * {{8{di_14[10]}}, di_14};
-  wire [18:0] sq_14 = {{8{dq_14[10]}}, dq_14} * {{8{dq_14[10]}}, dq_14};
-  wire [19:0] d_14 = {1'd0, si_14} + {1'd0, sq_14};
   // point 15 at (16, 16)
   wire signed [10:0] di_15 = $signed({y_i[9], y_i}) - 11'sd16;
   wire signed [10:0] dq_15 = $signed({y_q[9], y_q}) - 11'sd16;
-  wire [18:0] si_15 = {{8{di_15[10]}}, di_15} * {{8{di_15[10]}}, di_15};
-  wire [18:0] sq_15 = {{8{dq_15[10]}}, dq_15} * {{8{dq_15[10]}}, dq_15};
-  wire [19:0] d_15 = {1'd0, si_15} + {1'd0, sq_15};
 
-  // register stage 0 (after step "distance")
+  // register stage 0 (after distance)
   reg  tlast_s0_reg = 1'd0;
-  reg  [19:0] d_0_s0_reg = 20'd0;
-  reg  [19:0] d_1_s0_reg = 20'd0;
-  reg  [19:0] d_2_s0_reg = 20'd0;
-  reg  [19:0] d_3_s0_reg = 20'd0;
-  reg  [19:0] d_4_s0_reg = 20'd0;
-  reg  [19:0] d_5_s0_reg = 20'd0;
-  reg  [19:0] d_6_s0_reg = 20'd0;
-  reg  [19:0] d_7_s0_reg = 20'd0;
-  reg  [19:0] d_8_s0_reg = 20'd0;
-  reg  [19:0] d_9_s0_reg = 20'd0;
-  reg  [19:0] d_10_s0_reg = 20'd0;
-  reg  [19:0] d_11_s0_reg = 20'd0;
-  reg  [19:0] d_12_s0_reg = 20'd0;
-  reg  [19:0] d_13_s0_reg = 20'd0;
-  reg  [19:0] d_14_s0_reg = 20'd0;
-  reg  [19:0] d_15_s0_reg = 20'd0;
+  reg  signed [10:0] di_0_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_0_s0_reg = 11'sd0;
+  reg  signed [10:0] di_1_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_1_s0_reg = 11'sd0;
+  reg  signed [10:0] di_2_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_2_s0_reg = 11'sd0;
+  reg  signed [10:0] di_3_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_3_s0_reg = 11'sd0;
+  reg  signed [10:0] di_4_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_4_s0_reg = 11'sd0;
+  reg  signed [10:0] di_5_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_5_s0_reg = 11'sd0;
+  reg  signed [10:0] di_6_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_6_s0_reg = 11'sd0;
+  reg  signed [10:0] di_7_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_7_s0_reg = 11'sd0;
+  reg  signed [10:0] di_8_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_8_s0_reg = 11'sd0;
+  reg  signed [10:0] di_9_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_9_s0_reg = 11'sd0;
+  reg  signed [10:0] di_10_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_10_s0_reg = 11'sd0;
+  reg  signed [10:0] di_11_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_11_s0_reg = 11'sd0;
+  reg  signed [10:0] di_12_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_12_s0_reg = 11'sd0;
+  reg  signed [10:0] di_13_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_13_s0_reg = 11'sd0;
+  reg  signed [10:0] di_14_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_14_s0_reg = 11'sd0;
+  reg  signed [10:0] di_15_s0_reg = 11'sd0;
+  reg  signed [10:0] dq_15_s0_reg = 11'sd0;
   always @(posedge aclk) begin
     if (ce_s0) begin
       tlast_s0_reg <= in_tlast;
-      d_0_s0_reg <= d_0;
-      d_1_s0_reg <= d_1;
-      d_2_s0_reg <= d_2;
-      d_3_s0_reg <= d_3;
-      d_4_s0_reg <= d_4;
-      d_5_s0_reg <= d_5;
-      d_6_s0_reg <= d_6;
-      d_7_s0_reg <= d_7;
-      d_8_s0_reg <= d_8;
-      d_9_s0_reg <= d_9;
-      d_10_s0_reg <= d_10;
-      d_11_s0_reg <= d_11;
-      d_12_s0_reg <= d_12;
-      d_13_s0_reg <= d_13;
-      d_14_s0_reg <= d_14;
-      d_15_s0_reg <= d_15;
+      di_0_s0_reg <= di_0;
+      dq_0_s0_reg <= dq_0;
+      di_1_s0_reg <= di_1;
+      dq_1_s0_reg <= dq_1;
+      di_2_s0_reg <= di_2;
+      dq_2_s0_reg <= dq_2;
+      di_3_s0_reg <= di_3;
+      dq_3_s0_reg <= dq_3;
+      di_4_s0_reg <= di_4;
+      dq_4_s0_reg <= dq_4;
+      di_5_s0_reg <= di_5;
+      dq_5_s0_reg <= dq_5;
+      di_6_s0_reg <= di_6;
+      dq_6_s0_reg <= dq_6;
+      di_7_s0_reg <= di_7;
+      dq_7_s0_reg <= dq_7;
+      di_8_s0_reg <= di_8;
+      dq_8_s0_reg <= dq_8;
+      di_9_s0_reg <= di_9;
+      dq_9_s0_reg <= dq_9;
+      di_10_s0_reg <= di_10;
+      dq_10_s0_reg <= dq_10;
+      di_11_s0_reg <= di_11;
+      dq_11_s0_reg <= dq_11;
+      di_12_s0_reg <= di_12;
+      dq_12_s0_reg <= dq_12;
+      di_13_s0_reg <= di_13;
+      dq_13_s0_reg <= dq_13;
+      di_14_s0_reg <= di_14;
+      dq_14_s0_reg <= dq_14;
+      di_15_s0_reg <= di_15;
+      dq_15_s0_reg <= dq_15;
     end
   end
 
-  // ---------------------------------------------------------------- step 2: minimum
-  // per label bit: D = min over the points with the bit 1 - min over the points with the bit 0
-  wire m1_0_0_c = d_8_s0_reg <= d_9_s0_reg;
-  wire [19:0] m1_0_0_d = m1_0_0_c ? d_8_s0_reg : d_9_s0_reg;
-  wire m1_0_1_c = d_10_s0_reg <= d_11_s0_reg;
-  wire [19:0] m1_0_1_d = m1_0_1_c ? d_10_s0_reg : d_11_s0_reg;
-  wire m1_0_2_c = d_12_s0_reg <= d_13_s0_reg;
-  wire [19:0] m1_0_2_d = m1_0_2_c ? d_12_s0_reg : d_13_s0_reg;
-  wire m1_0_3_c = d_14_s0_reg <= d_15_s0_reg;
-  wire [19:0] m1_0_3_d = m1_0_3_c ? d_14_s0_reg : d_15_s0_reg;
-  wire m1_0_4_c = m1_0_0_d <= m1_0_1_d;
-  wire [19:0] m1_0_4_d = m1_0_4_c ? m1_0_0_d : m1_0_1_d;
-  wire m1_0_5_c = m1_0_2_d <= m1_0_3_d;
-  wire [19:0] m1_0_5_d = m1_0_5_c ? m1_0_2_d : m1_0_3_d;
-  wire m1_0_6_c = m1_0_4_d <= m1_0_5_d;
-  wire [19:0] m1_0_6_d = m1_0_6_c ? m1_0_4_d : m1_0_5_d;
-  wire m0_0_0_c = d_0_s0_reg <= d_1_s0_reg;
-  wire [19:0] m0_0_0_d = m0_0_0_c ? d_0_s0_reg : d_1_s0_reg;
-  wire m0_0_1_c = d_2_s0_reg <= d_3_s0_reg;
-  wire [19:0] m0_0_1_d = m0_0_1_c ? d_2_s0_reg : d_3_s0_reg;
-  wire m0_0_2_c = d_4_s0_reg <= d_5_s0_reg;
-  wire [19:0] m0_0_2_d = m0_0_2_c ? d_4_s0_reg : d_5_s0_reg;
-  wire m0_0_3_c = d_6_s0_reg <= d_7_s0_reg;
-  wire [19:0] m0_0_3_d = m0_0_3_c ? d_6_s0_reg : d_7_s0_reg;
-  wire m0_0_4_c = m0_0_0_d <= m0_0_1_d;
-  wire [19:0] m0_0_4_d = m0_0_4_c ? m0_0_0_d : m0_0_1_d;
-  wire m0_0_5_c = m0_0_2_d <= m0_0_3_d;
-  wire [19:0] m0_0_5_d = m0_0_5_c ? m0_0_2_d : m0_0_3_d;
-  wire m0_0_6_c = m0_0_4_d <= m0_0_5_d;
-  wire [19:0] m0_0_6_d = m0_0_6_c ? m0_0_4_d : m0_0_5_d;
-  // label bit b0
-  wire signed [20:0] dif_0 = $signed({1'd0, m1_0_6_d}) - $signed({1'd0, m0_0_6_d});
-  wire signed [20:0] nd_0 = 21'sd0 - dif_0;
-  wire signed [20:0] mag_0 = dif_0[20] ? nd_0 : dif_0;
-  wire neg_0 = dif_0[20];
-  wire m1_1_0_c = d_4_s0_reg <= d_5_s0_reg;
-  wire [19:0] m1_1_0_d = m1_1_0_c ? d_4_s0_reg : d_5_s0_reg;
-  wire m1_1_1_c = d_6_s0_reg <= d_7_s0_reg;
-  wire [19:0] m1_1_1_d = m1_1_1_c ? d_6_s0_reg : d_7_s0_reg;
-  wire m1_1_2_c = d_12_s0_reg <= d_13_s0_reg;
-  wire [19:0] m1_1_2_d = m1_1_2_c ? d_12_s0_reg : d_13_s0_reg;
-  wire m1_1_3_c = d_14_s0_reg <= d_15_s0_reg;
-  wire [19:0] m1_1_3_d = m1_1_3_c ? d_14_s0_reg : d_15_s0_reg;
-  wire m1_1_4_c = m1_1_0_d <= m1_1_1_d;
-  wire [19:0] m1_1_4_d = m1_1_4_c ? m1_1_0_d : m1_1_1_d;
-  wire m1_1_5_c = m1_1_2_d <= m1_1_3_d;
-  wire [19:0] m1_1_5_d = m1_1_5_c ? m1_1_2_d : m1_1_3_d;
-  wire m1_1_6_c = m1_1_4_d <= m1_1_5_d;
-  wire [19:0] m1_1_6_d = m1_1_6_c ? m1_1_4_d : m1_1_5_d;
-  wire m0_1_0_c = d_0_s0_reg <= d_1_s0_reg;
-  wire [19:0] m0_1_0_d = m0_1_0_c ? d_0_s0_reg : d_1_s0_reg;
-  wire m0_1_1_c = d_2_s0_reg <= d_3_s0_reg;
-  wire [19:0] m0_1_1_d = m0_1_1_c ? d_2_s0_reg : d_3_s0_reg;
-  wire m0_1_2_c = d_8_s0_reg <= d_9_s0_reg;
-  wire [19:0] m0_1_2_d = m0_1_2_c ? d_8_s0_reg : d_9_s0_reg;
-  wire m0_1_3_c = d_10_s0_reg <= d_11_s0_reg;
-  wire [19:0] m0_1_3_d = m0_1_3_c ? d_10_s0_reg : d_11_s0_reg;
-  wire m0_1_4_c = m0_1_0_d <= m0_1_1_d;
-  wire [19:0] m0_1_4_d = m0_1_4_c ? m0_1_0_d : m0_1_1_d;
-  wire m0_1_5_c = m0_1_2_d <= m0_1_3_d;
-  wire [19:0] m0_1_5_d = m0_1_5_c ? m0_1_2_d : m0_1_3_d;
-  wire m0_1_6_c = m0_1_4_d <= m0_1_5_d;
-  wire [19:0] m0_1_6_d = m0_1_6_c ? m0_1_4_d : m0_1_5_d;
-  // label bit b1
-  wire signed [20:0] dif_1 = $signed({1'd0, m1_1_6_d}) - $signed({1'd0, m0_1_6_d});
-  wire signed [20:0] nd_1 = 21'sd0 - dif_1;
-  wire signed [20:0] mag_1 = dif_1[20] ? nd_1 : dif_1;
-  wire neg_1 = dif_1[20];
-  wire m1_2_0_c = d_2_s0_reg <= d_3_s0_reg;
-  wire [19:0] m1_2_0_d = m1_2_0_c ? d_2_s0_reg : d_3_s0_reg;
-  wire m1_2_1_c = d_6_s0_reg <= d_7_s0_reg;
-  wire [19:0] m1_2_1_d = m1_2_1_c ? d_6_s0_reg : d_7_s0_reg;
-  wire m1_2_2_c = d_10_s0_reg <= d_11_s0_reg;
-  wire [19:0] m1_2_2_d = m1_2_2_c ? d_10_s0_reg : d_11_s0_reg;
-  wire m1_2_3_c = d_14_s0_reg <= d_15_s0_reg;
-  wire [19:0] m1_2_3_d = m1_2_3_c ? d_14_s0_reg : d_15_s0_reg;
-  wire m1_2_4_c = m1_2_0_d <= m1_2_1_d;
-  wire [19:0] m1_2_4_d = m1_2_4_c ? m1_2_0_d : m1_2_1_d;
-  wire m1_2_5_c = m1_2_2_d <= m1_2_3_d;
-  wire [19:0] m1_2_5_d = m1_2_5_c ? m1_2_2_d : m1_2_3_d;
-  wire m1_2_6_c = m1_2_4_d <= m1_2_5_d;
-  wire [19:0] m1_2_6_d = m1_2_6_c ? m1_2_4_d : m1_2_5_d;
-  wire m0_2_0_c = d_0_s0_reg <= d_1_s0_reg;
-  wire [19:0] m0_2_0_d = m0_2_0_c ? d_0_s0_reg : d_1_s0_reg;
-  wire m0_2_1_c = d_4_s0_reg <= d_5_s0_reg;
-  wire [19:0] m0_2_1_d = m0_2_1_c ? d_4_s0_reg : d_5_s0_reg;
-  wire m0_2_2_c = d_8_s0_reg <= d_9_s0_reg;
-  wire [19:0] m0_2_2_d = m0_2_2_c ? d_8_s0_reg : d_9_s0_reg;
-  wire m0_2_3_c = d_12_s0_reg <= d_13_s0_reg;
-  wire [19:0] m0_2_3_d = m0_2_3_c ? d_12_s0_reg : d_13_s0_reg;
-  wire m0_2_4_c = m0_2_0_d <= m0_2_1_d;
-  wire [19:0] m0_2_4_d = m0_2_4_c ? m0_2_0_d : m0_2_1_d;
-  wire m0_2_5_c = m0_2_2_d <= m0_2_3_d;
-  wire [19:0] m0_2_5_d = m0_2_5_c ? m0_2_2_d : m0_2_3_d;
-  wire m0_2_6_c = m0_2_4_d <= m0_2_5_d;
-  wire [19:0] m0_2_6_d = m0_2_6_c ? m0_2_4_d : m0_2_5_d;
-  // label bit b2
-  wire signed [20:0] dif_2 = $signed({1'd0, m1_2_6_d}) - $signed({1'd0, m0_2_6_d});
-  wire signed [20:0] nd_2 = 21'sd0 - dif_2;
-  wire signed [20:0] mag_2 = dif_2[20] ? nd_2 : dif_2;
-  wire neg_2 = dif_2[20];
-  wire m1_3_0_c = d_1_s0_reg <= d_3_s0_reg;
-  wire [19:0] m1_3_0_d = m1_3_0_c ? d_1_s0_reg : d_3_s0_reg;
-  wire m1_3_1_c = d_5_s0_reg <= d_7_s0_reg;
-  wire [19:0] m1_3_1_d = m1_3_1_c ? d_5_s0_reg : d_7_s0_reg;
-  wire m1_3_2_c = d_9_s0_reg <= d_11_s0_reg;
-  wire [19:0] m1_3_2_d = m1_3_2_c ? d_9_s0_reg : d_11_s0_reg;
-  wire m1_3_3_c = d_13_s0_reg <= d_15_s0_reg;
-  wire [19:0] m1_3_3_d = m1_3_3_c ? d_13_s0_reg : d_15_s0_reg;
-  wire m1_3_4_c = m1_3_0_d <= m1_3_1_d;
-  wire [19:0] m1_3_4_d = m1_3_4_c ? m1_3_0_d : m1_3_1_d;
-  wire m1_3_5_c = m1_3_2_d <= m1_3_3_d;
-  wire [19:0] m1_3_5_d = m1_3_5_c ? m1_3_2_d : m1_3_3_d;
-  wire m1_3_6_c = m1_3_4_d <= m1_3_5_d;
-  wire [19:0] m1_3_6_d = m1_3_6_c ? m1_3_4_d : m1_3_5_d;
-  wire m0_3_0_c = d_0_s0_reg <= d_2_s0_reg;
-  wire [19:0] m0_3_0_d = m0_3_0_c ? d_0_s0_reg : d_2_s0_reg;
-  wire m0_3_1_c = d_4_s0_reg <= d_6_s0_reg;
-  wire [19:0] m0_3_1_d = m0_3_1_c ? d_4_s0_reg : d_6_s0_reg;
-  wire m0_3_2_c = d_8_s0_reg <= d_10_s0_reg;
-  wire [19:0] m0_3_2_d = m0_3_2_c ? d_8_s0_reg : d_10_s0_reg;
-  wire m0_3_3_c = d_12_s0_reg <= d_14_s0_reg;
-  wire [19:0] m0_3_3_d = m0_3_3_c ? d_12_s0_reg : d_14_s0_reg;
-  wire m0_3_4_c = m0_3_0_d <= m0_3_1_d;
-  wire [19:0] m0_3_4_d = m0_3_4_c ? m0_3_0_d : m0_3_1_d;
-  wire m0_3_5_c = m0_3_2_d <= m0_3_3_d;
-  wire [19:0] m0_3_5_d = m0_3_5_c ? m0_3_2_d : m0_3_3_d;
-  wire m0_3_6_c = m0_3_4_d <= m0_3_5_d;
-  wire [19:0] m0_3_6_d = m0_3_6_c ? m0_3_4_d : m0_3_5_d;
-  // label bit b3
-  wire signed [20:0] dif_3 = $signed({1'd0, m1_3_6_d}) - $signed({1'd0, m0_3_6_d});
-  wire signed [20:0] nd_3 = 21'sd0 - dif_3;
-  wire signed [20:0] mag_3 = dif_3[20] ? nd_3 : dif_3;
-  wire neg_3 = dif_3[20];
+  // ---------------------------------------------------------------- distance (stage 1)
+  // the squared distance to every point, in input codes squared
+  wire [18:0] si_0 = {{8{di_0_s0_reg[10]}}, di_0_s0_reg} * {{8{di_0_s0_reg[10]}}, di_0_s0_reg};
+  wire [18:0] sq_0 = {{8{dq_0_s0_reg[10]}}, dq_0_s0_reg} * {{8{dq_0_s0_reg[10]}}, dq_0_s0_reg};
+  wire [18:0] si_1 = {{8{di_1_s0_reg[10]}}, di_1_s0_reg} * {{8{di_1_s0_reg[10]}}, di_1_s0_reg};
+  wire [18:0] sq_1 = {{8{dq_1_s0_reg[10]}}, dq_1_s0_reg} * {{8{dq_1_s0_reg[10]}}, dq_1_s0_reg};
+  wire [18:0] si_2 = {{8{di_2_s0_reg[10]}}, di_2_s0_reg} * {{8{di_2_s0_reg[10]}}, di_2_s0_reg};
+  wire [18:0] sq_2 = {{8{dq_2_s0_reg[10]}}, dq_2_s0_reg} * {{8{dq_2_s0_reg[10]}}, dq_2_s0_reg};
+  wire [18:0] si_3 = {{8{di_3_s0_reg[10]}}, di_3_s0_reg} * {{8{di_3_s0_reg[10]}}, di_3_s0_reg};
+  wire [18:0] sq_3 = {{8{dq_3_s0_reg[10]}}, dq_3_s0_reg} * {{8{dq_3_s0_reg[10]}}, dq_3_s0_reg};
+  wire [18:0] si_4 = {{8{di_4_s0_reg[10]}}, di_4_s0_reg} * {{8{di_4_s0_reg[10]}}, di_4_s0_reg};
+  wire [18:0] sq_4 = {{8{dq_4_s0_reg[10]}}, dq_4_s0_reg} * {{8{dq_4_s0_reg[10]}}, dq_4_s0_reg};
+  wire [18:0] si_5 = {{8{di_5_s0_reg[10]}}, di_5_s0_reg} * {{8{di_5_s0_reg[10]}}, di_5_s0_reg};
+  wire [18:0] sq_5 = {{8{dq_5_s0_reg[10]}}, dq_5_s0_reg} * {{8{dq_5_s0_reg[10]}}, dq_5_s0_reg};
+  wire [18:0] si_6 = {{8{di_6_s0_reg[10]}}, di_6_s0_reg} * {{8{di_6_s0_reg[10]}}, di_6_s0_reg};
+  wire [18:0] sq_6 = {{8{dq_6_s0_reg[10]}}, dq_6_s0_reg} * {{8{dq_6_s0_reg[10]}}, dq_6_s0_reg};
+  wire [18:0] si_7 = {{8{di_7_s0_reg[10]}}, di_7_s0_reg} * {{8{di_7_s0_reg[10]}}, di_7_s0_reg};
+  wire [18:0] sq_7 = {{8{dq_7_s0_reg[10]}}, dq_7_s0_reg} * {{8{dq_7_s0_reg[10]}}, dq_7_s0_reg};
+  wire [18:0] si_8 = {{8{di_8_s0_reg[10]}}, di_8_s0_reg} * {{8{di_8_s0_reg[10]}}, di_8_s0_reg};
+  wire [18:0] sq_8 = {{8{dq_8_s0_reg[10]}}, dq_8_s0_reg} * {{8{dq_8_s0_reg[10]}}, dq_8_s0_reg};
+  wire [18:0] si_9 = {{8{di_9_s0_reg[10]}}, di_9_s0_reg} * {{8{di_9_s0_reg[10]}}, di_9_s0_reg};
+  wire [18:0] sq_9 = {{8{dq_9_s0_reg[10]}}, dq_9_s0_reg} * {{8{dq_9_s0_reg[10]}}, dq_9_s0_reg};
+  wire [18:0] si_10 = {{8{di_10_s0_reg[10]}}, di_10_s0_reg} * {{8{di_10_s0_reg[10]}}, di_10_s0_reg};
+  wire [18:0] sq_10 = {{8{dq_10_s0_reg[10]}}, dq_10_s0_reg} * {{8{dq_10_s0_reg[10]}}, dq_10_s0_reg};
+  wire [18:0] si_11 = {{8{di_11_s0_reg[10]}}, di_11_s0_reg} * {{8{di_11_s0_reg[10]}}, di_11_s0_reg};
+  wire [18:0] sq_11 = {{8{dq_11_s0_reg[10]}}, dq_11_s0_reg} * {{8{dq_11_s0_reg[10]}}, dq_11_s0_reg};
+  wire [18:0] si_12 = {{8{di_12_s0_reg[10]}}, di_12_s0_reg} * {{8{di_12_s0_reg[10]}}, di_12_s0_reg};
+  wire [18:0] sq_12 = {{8{dq_12_s0_reg[10]}}, dq_12_s0_reg} * {{8{dq_12_s0_reg[10]}}, dq_12_s0_reg};
+  wire [18:0] si_13 = {{8{di_13_s0_reg[10]}}, di_13_s0_reg} * {{8{di_13_s0_reg[10]}}, di_13_s0_reg};
+  wire [18:0] sq_13 = {{8{dq_13_s0_reg[10]}}, dq_13_s0_reg} * {{8{dq_13_s0_reg[10]}}, dq_13_s0_reg};
+  wire [18:0] si_14 = {{8{di_14_s0_reg[10]}}, di_14_s0_reg} * {{8{di_14_s0_reg[10]}}, di_14_s0_reg};
+  wire [18:0] sq_14 = {{8{dq_14_s0_reg[10]}}, dq_14_s0_reg} * {{8{dq_14_s0_reg[10]}}, dq_14_s0_reg};
+  wire [18:0] si_15 = {{8{di_15_s0_reg[10]}}, di_15_s0_reg} * {{8{di_15_s0_reg[10]}}, di_15_s0_reg};
+  wire [18:0] sq_15 = {{8{dq_15_s0_reg[10]}}, dq_15_s0_reg} * {{8{dq_15_s0_reg[10]}}, dq_15_s0_reg};
 
-  // register stage 1 (after step "minimum")
+  // register stage 1 (after distance)
   reg  tlast_s1_reg = 1'd0;
-  reg  signed [20:0] mag_0_s1_reg = 21'sd0;
-  reg  neg_0_s1_reg = 1'd0;
-  reg  signed [20:0] mag_1_s1_reg = 21'sd0;
-  reg  neg_1_s1_reg = 1'd0;
-  reg  signed [20:0] mag_2_s1_reg = 21'sd0;
-  reg  neg_2_s1_reg = 1'd0;
-  reg  signed [20:0] mag_3_s1_reg = 21'sd0;
-  reg  neg_3_s1_reg = 1'd0;
+  reg  [18:0] si_0_s1_reg = 19'd0;
+  reg  [18:0] sq_0_s1_reg = 19'd0;
+  reg  [18:0] si_1_s1_reg = 19'd0;
+  reg  [18:0] sq_1_s1_reg = 19'd0;
+  reg  [18:0] si_2_s1_reg = 19'd0;
+  reg  [18:0] sq_2_s1_reg = 19'd0;
+  reg  [18:0] si_3_s1_reg = 19'd0;
+  reg  [18:0] sq_3_s1_reg = 19'd0;
+  reg  [18:0] si_4_s1_reg = 19'd0;
+  reg  [18:0] sq_4_s1_reg = 19'd0;
+  reg  [18:0] si_5_s1_reg = 19'd0;
+  reg  [18:0] sq_5_s1_reg = 19'd0;
+  reg  [18:0] si_6_s1_reg = 19'd0;
+  reg  [18:0] sq_6_s1_reg = 19'd0;
+  reg  [18:0] si_7_s1_reg = 19'd0;
+  reg  [18:0] sq_7_s1_reg = 19'd0;
+  reg  [18:0] si_8_s1_reg = 19'd0;
+  reg  [18:0] sq_8_s1_reg = 19'd0;
+  reg  [18:0] si_9_s1_reg = 19'd0;
+  reg  [18:0] sq_9_s1_reg = 19'd0;
+  reg  [18:0] si_10_s1_reg = 19'd0;
+  reg  [18:0] sq_10_s1_reg = 19'd0;
+  reg  [18:0] si_11_s1_reg = 19'd0;
+  reg  [18:0] sq_11_s1_reg = 19'd0;
+  reg  [18:0] si_12_s1_reg = 19'd0;
+  reg  [18:0] sq_12_s1_reg = 19'd0;
+  reg  [18:0] si_13_s1_reg = 19'd0;
+  reg  [18:0] sq_13_s1_reg = 19'd0;
+  reg  [18:0] si_14_s1_reg = 19'd0;
+  reg  [18:0] sq_14_s1_reg = 19'd0;
+  reg  [18:0] si_15_s1_reg = 19'd0;
+  reg  [18:0] sq_15_s1_reg = 19'd0;
   always @(posedge aclk) begin
     if (ce_s1) begin
       tlast_s1_reg <= tlast_s0_reg;
-      mag_0_s1_reg <= mag_0;
-      neg_0_s1_reg <= neg_0;
-      mag_1_s1_reg <= mag_1;
-      neg_1_s1_reg <= neg_1;
-      mag_2_s1_reg <= mag_2;
-      neg_2_s1_reg <= neg_2;
-      mag_3_s1_reg <= mag_3;
-      neg_3_s1_reg <= neg_3;
+      si_0_s1_reg <= si_0;
+      sq_0_s1_reg <= sq_0;
+      si_1_s1_reg <= si_1;
+      sq_1_s1_reg <= sq_1;
+      si_2_s1_reg <= si_2;
+      sq_2_s1_reg <= sq_2;
+      si_3_s1_reg <= si_3;
+      sq_3_s1_reg <= sq_3;
+      si_4_s1_reg <= si_4;
+      sq_4_s1_reg <= sq_4;
+      si_5_s1_reg <= si_5;
+      sq_5_s1_reg <= sq_5;
+      si_6_s1_reg <= si_6;
+      sq_6_s1_reg <= sq_6;
+      si_7_s1_reg <= si_7;
+      sq_7_s1_reg <= sq_7;
+      si_8_s1_reg <= si_8;
+      sq_8_s1_reg <= sq_8;
+      si_9_s1_reg <= si_9;
+      sq_9_s1_reg <= sq_9;
+      si_10_s1_reg <= si_10;
+      sq_10_s1_reg <= sq_10;
+      si_11_s1_reg <= si_11;
+      sq_11_s1_reg <= sq_11;
+      si_12_s1_reg <= si_12;
+      sq_12_s1_reg <= sq_12;
+      si_13_s1_reg <= si_13;
+      sq_13_s1_reg <= sq_13;
+      si_14_s1_reg <= si_14;
+      sq_14_s1_reg <= sq_14;
+      si_15_s1_reg <= si_15;
+      sq_15_s1_reg <= sq_15;
     end
   end
 
-  // ---------------------------------------------------------------- step 3: round
-  // the rounding shift by 9 (half-away); the saturation compare runs beside the add
-  wire signed [20:0] rsum_0 = mag_0_s1_reg + 21'sd256;
-  wire [22:0] oc_0 = {{2{mag_0_s1_reg[20]}}, mag_0_s1_reg} + 23'd4178176;
-  wire ovf_0 = oc_0[22];
-  wire [4:0] vo_0 = rsum_0[13:9];
-  wire signed [20:0] rsum_1 = mag_1_s1_reg + 21'sd256;
-  wire [22:0] oc_1 = {{2{mag_1_s1_reg[20]}}, mag_1_s1_reg} + 23'd4178176;
-  wire ovf_1 = oc_1[22];
-  wire [4:0] vo_1 = rsum_1[13:9];
-  wire signed [20:0] rsum_2 = mag_2_s1_reg + 21'sd256;
-  wire [22:0] oc_2 = {{2{mag_2_s1_reg[20]}}, mag_2_s1_reg} + 23'd4178176;
-  wire ovf_2 = oc_2[22];
-  wire [4:0] vo_2 = rsum_2[13:9];
-  wire signed [20:0] rsum_3 = mag_3_s1_reg + 21'sd256;
-  wire [22:0] oc_3 = {{2{mag_3_s1_reg[20]}}, mag_3_s1_reg} + 23'd4178176;
-  wire ovf_3 = oc_3[22];
-  wire [4:0] vo_3 = rsum_3[13:9];
+  // ---------------------------------------------------------------- distance (stage 2)
+  // the squared distance to every point, in input codes squared
+  wire [19:0] d_0 = {1'd0, si_0_s1_reg} + {1'd0, sq_0_s1_reg};
+  wire [19:0] d_1 = {1'd0, si_1_s1_reg} + {1'd0, sq_1_s1_reg};
+  wire [19:0] d_2 = {1'd0, si_2_s1_reg} + {1'd0, sq_2_s1_reg};
+  wire [19:0] d_3 = {1'd0, si_3_s1_reg} + {1'd0, sq_3_s1_reg};
+  wire [19:0] d_4 = {1'd0, si_4_s1_reg} + {1'd0, sq_4_s1_reg};
+  wire [19:0] d_5 = {1'd0, si_5_s1_reg} + {1'd0, sq_5_s1_reg};
+  wire [19:0] d_6 = {1'd0, si_6_s1_reg} + {1'd0, sq_6_s1_reg};
+  wire [19:0] d_7 = {1'd0, si_7_s1_reg} + {1'd0, sq_7_s1_reg};
+  wire [19:0] d_8 = {1'd0, si_8_s1_reg} + {1'd0, sq_8_s1_reg};
+  wire [19:0] d_9 = {1'd0, si_9_s1_reg} + {1'd0, sq_9_s1_reg};
+  wire [19:0] d_10 = {1'd0, si_10_s1_reg} + {1'd0, sq_10_s1_reg};
+  wire [19:0] d_11 = {1'd0, si_11_s1_reg} + {1'd0, sq_11_s1_reg};
+  wire [19:0] d_12 = {1'd0, si_12_s1_reg} + {1'd0, sq_12_s1_reg};
+  wire [19:0] d_13 = {1'd0, si_13_s1_reg} + {1'd0, sq_13_s1_reg};
+  wire [19:0] d_14 = {1'd0, si_14_s1_reg} + {1'd0, sq_14_s1_reg};
+  wire [19:0] d_15 = {1'd0, si_15_s1_reg} + {1'd0, sq_15_s1_reg};
 
-  // register stage 2 (after step "round")
+  // register stage 2 (after distance)
   reg  tlast_s2_reg = 1'd0;
-  reg  neg_0_s2_reg = 1'd0;
-  reg  neg_1_s2_reg = 1'd0;
-  reg  neg_2_s2_reg = 1'd0;
-  reg  neg_3_s2_reg = 1'd0;
-  reg  ovf_0_s2_reg = 1'd0;
-  reg  [4:0] vo_0_s2_reg = 5'd0;
-  reg  ovf_1_s2_reg = 1'd0;
-  reg  [4:0] vo_1_s2_reg = 5'd0;
-  reg  ovf_2_s2_reg = 1'd0;
-  reg  [4:0] vo_2_s2_reg = 5'd0;
-  reg  ovf_3_s2_reg = 1'd0;
-  reg  [4:0] vo_3_s2_reg = 5'd0;
+  reg  [19:0] d_0_s2_reg = 20'd0;
+  reg  [19:0] d_1_s2_reg = 20'd0;
+  reg  [19:0] d_2_s2_reg = 20'd0;
+  reg  [19:0] d_3_s2_reg = 20'd0;
+  reg  [19:0] d_4_s2_reg = 20'd0;
+  reg  [19:0] d_5_s2_reg = 20'd0;
+  reg  [19:0] d_6_s2_reg = 20'd0;
+  reg  [19:0] d_7_s2_reg = 20'd0;
+  reg  [19:0] d_8_s2_reg = 20'd0;
+  reg  [19:0] d_9_s2_reg = 20'd0;
+  reg  [19:0] d_10_s2_reg = 20'd0;
+  reg  [19:0] d_11_s2_reg = 20'd0;
+  reg  [19:0] d_12_s2_reg = 20'd0;
+  reg  [19:0] d_13_s2_reg = 20'd0;
+  reg  [19:0] d_14_s2_reg = 20'd0;
+  reg  [19:0] d_15_s2_reg = 20'd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
       tlast_s2_reg <= tlast_s1_reg;
-      neg_0_s2_reg <= neg_0_s1_reg;
-      neg_1_s2_reg <= neg_1_s1_reg;
-      neg_2_s2_reg <= neg_2_s1_reg;
-      neg_3_s2_reg <= neg_3_s1_reg;
-      ovf_0_s2_reg <= ovf_0;
-      vo_0_s2_reg <= vo_0;
-      ovf_1_s2_reg <= ovf_1;
-      vo_1_s2_reg <= vo_1;
-      ovf_2_s2_reg <= ovf_2;
-      vo_2_s2_reg <= vo_2;
-      ovf_3_s2_reg <= ovf_3;
-      vo_3_s2_reg <= vo_3;
+      d_0_s2_reg <= d_0;
+      d_1_s2_reg <= d_1;
+      d_2_s2_reg <= d_2;
+      d_3_s2_reg <= d_3;
+      d_4_s2_reg <= d_4;
+      d_5_s2_reg <= d_5;
+      d_6_s2_reg <= d_6;
+      d_7_s2_reg <= d_7;
+      d_8_s2_reg <= d_8;
+      d_9_s2_reg <= d_9;
+      d_10_s2_reg <= d_10;
+      d_11_s2_reg <= d_11;
+      d_12_s2_reg <= d_12;
+      d_13_s2_reg <= d_13;
+      d_14_s2_reg <= d_14;
+      d_15_s2_reg <= d_15;
     end
   end
 
-  // ---------------------------------------------------------------- step 4: sign
-  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [4:0] s_0 = ovf_0_s2_reg ? 5'd31 : vo_0_s2_reg;
-  wire signed [5:0] x_0 = neg_0_s2_reg ? ~$signed({1'd0, s_0}) : $signed({1'd0, s_0});
-  // LLR 0: positive means bit 0 is more likely
-  wire signed [5:0] llr_0 = x_0 + $signed({5'd0, neg_0_s2_reg});
-  wire [4:0] s_1 = ovf_1_s2_reg ? 5'd31 : vo_1_s2_reg;
-  wire signed [5:0] x_1 = neg_1_s2_reg ? ~$signed({1'd0, s_1}) : $signed({1'd0, s_1});
-  // LLR 1: positive means bit 0 is more likely
-  wire signed [5:0] llr_1 = x_1 + $signed({5'd0, neg_1_s2_reg});
-  wire [4:0] s_2 = ovf_2_s2_reg ? 5'd31 : vo_2_s2_reg;
-  wire signed [5:0] x_2 = neg_2_s2_reg ? ~$signed({1'd0, s_2}) : $signed({1'd0, s_2});
-  // LLR 2: positive means bit 0 is more likely
-  wire signed [5:0] llr_2 = x_2 + $signed({5'd0, neg_2_s2_reg});
-  wire [4:0] s_3 = ovf_3_s2_reg ? 5'd31 : vo_3_s2_reg;
-  wire signed [5:0] x_3 = neg_3_s2_reg ? ~$signed({1'd0, s_3}) : $signed({1'd0, s_3});
-  // LLR 3: positive means bit 0 is more likely
-  wire signed [5:0] llr_3 = x_3 + $signed({5'd0, neg_3_s2_reg});
+  // ---------------------------------------------------------------- minimum (stage 3)
+  // per label bit: D = min over the points with the bit 1 - min over the points with the bit 0
+  wire m1_0_0_c = d_8_s2_reg <= d_9_s2_reg;
+  wire [19:0] m1_0_0_d = m1_0_0_c ? d_8_s2_reg : d_9_s2_reg;
+  wire m1_0_1_c = d_10_s2_reg <= d_11_s2_reg;
+  wire [19:0] m1_0_1_d = m1_0_1_c ? d_10_s2_reg : d_11_s2_reg;
+  wire m1_0_2_c = d_12_s2_reg <= d_13_s2_reg;
+  wire [19:0] m1_0_2_d = m1_0_2_c ? d_12_s2_reg : d_13_s2_reg;
+  wire m1_0_3_c = d_14_s2_reg <= d_15_s2_reg;
+  wire [19:0] m1_0_3_d = m1_0_3_c ? d_14_s2_reg : d_15_s2_reg;
+  wire m0_0_0_c = d_0_s2_reg <= d_1_s2_reg;
+  wire [19:0] m0_0_0_d = m0_0_0_c ? d_0_s2_reg : d_1_s2_reg;
+  wire m0_0_1_c = d_2_s2_reg <= d_3_s2_reg;
+  wire [19:0] m0_0_1_d = m0_0_1_c ? d_2_s2_reg : d_3_s2_reg;
+  wire m0_0_2_c = d_4_s2_reg <= d_5_s2_reg;
+  wire [19:0] m0_0_2_d = m0_0_2_c ? d_4_s2_reg : d_5_s2_reg;
+  wire m0_0_3_c = d_6_s2_reg <= d_7_s2_reg;
+  wire [19:0] m0_0_3_d = m0_0_3_c ? d_6_s2_reg : d_7_s2_reg;
+  wire m1_1_0_c = d_4_s2_reg <= d_5_s2_reg;
+  wire [19:0] m1_1_0_d = m1_1_0_c ? d_4_s2_reg : d_5_s2_reg;
+  wire m1_1_1_c = d_6_s2_reg <= d_7_s2_reg;
+  wire [19:0] m1_1_1_d = m1_1_1_c ? d_6_s2_reg : d_7_s2_reg;
+  wire m1_1_2_c = d_12_s2_reg <= d_13_s2_reg;
+  wire [19:0] m1_1_2_d = m1_1_2_c ? d_12_s2_reg : d_13_s2_reg;
+  wire m1_1_3_c = d_14_s2_reg <= d_15_s2_reg;
+  wire [19:0] m1_1_3_d = m1_1_3_c ? d_14_s2_reg : d_15_s2_reg;
+  wire m0_1_0_c = d_0_s2_reg <= d_1_s2_reg;
+  wire [19:0] m0_1_0_d = m0_1_0_c ? d_0_s2_reg : d_1_s2_reg;
+  wire m0_1_1_c = d_2_s2_reg <= d_3_s2_reg;
+  wire [19:0] m0_1_1_d = m0_1_1_c ? d_2_s2_reg : d_3_s2_reg;
+  wire m0_1_2_c = d_8_s2_reg <= d_9_s2_reg;
+  wire [19:0] m0_1_2_d = m0_1_2_c ? d_8_s2_reg : d_9_s2_reg;
+  wire m0_1_3_c = d_10_s2_reg <= d_11_s2_reg;
+  wire [19:0] m0_1_3_d = m0_1_3_c ? d_10_s2_reg : d_11_s2_reg;
+  wire m1_2_0_c = d_2_s2_reg <= d_3_s2_reg;
+  wire [19:0] m1_2_0_d = m1_2_0_c ? d_2_s2_reg : d_3_s2_reg;
+  wire m1_2_1_c = d_6_s2_reg <= d_7_s2_reg;
+  wire [19:0] m1_2_1_d = m1_2_1_c ? d_6_s2_reg : d_7_s2_reg;
+  wire m1_2_2_c = d_10_s2_reg <= d_11_s2_reg;
+  wire [19:0] m1_2_2_d = m1_2_2_c ? d_10_s2_reg : d_11_s2_reg;
+  wire m1_2_3_c = d_14_s2_reg <= d_15_s2_reg;
+  wire [19:0] m1_2_3_d = m1_2_3_c ? d_14_s2_reg : d_15_s2_reg;
+  wire m0_2_0_c = d_0_s2_reg <= d_1_s2_reg;
+  wire [19:0] m0_2_0_d = m0_2_0_c ? d_0_s2_reg : d_1_s2_reg;
+  wire m0_2_1_c = d_4_s2_reg <= d_5_s2_reg;
+  wire [19:0] m0_2_1_d = m0_2_1_c ? d_4_s2_reg : d_5_s2_reg;
+  wire m0_2_2_c = d_8_s2_reg <= d_9_s2_reg;
+  wire [19:0] m0_2_2_d = m0_2_2_c ? d_8_s2_reg : d_9_s2_reg;
+  wire m0_2_3_c = d_12_s2_reg <= d_13_s2_reg;
+  wire [19:0] m0_2_3_d = m0_2_3_c ? d_12_s2_reg : d_13_s2_reg;
+  wire m1_3_0_c = d_1_s2_reg <= d_3_s2_reg;
+  wire [19:0] m1_3_0_d = m1_3_0_c ? d_1_s2_reg : d_3_s2_reg;
+  wire m1_3_1_c = d_5_s2_reg <= d_7_s2_reg;
+  wire [19:0] m1_3_1_d = m1_3_1_c ? d_5_s2_reg : d_7_s2_reg;
+  wire m1_3_2_c = d_9_s2_reg <= d_11_s2_reg;
+  wire [19:0] m1_3_2_d = m1_3_2_c ? d_9_s2_reg : d_11_s2_reg;
+  wire m1_3_3_c = d_13_s2_reg <= d_15_s2_reg;
+  wire [19:0] m1_3_3_d = m1_3_3_c ? d_13_s2_reg : d_15_s2_reg;
+  wire m0_3_0_c = d_0_s2_reg <= d_2_s2_reg;
+  wire [19:0] m0_3_0_d = m0_3_0_c ? d_0_s2_reg : d_2_s2_reg;
+  wire m0_3_1_c = d_4_s2_reg <= d_6_s2_reg;
+  wire [19:0] m0_3_1_d = m0_3_1_c ? d_4_s2_reg : d_6_s2_reg;
+  wire m0_3_2_c = d_8_s2_reg <= d_10_s2_reg;
+  wire [19:0] m0_3_2_d = m0_3_2_c ? d_8_s2_reg : d_10_s2_reg;
+  wire m0_3_3_c = d_12_s2_reg <= d_14_s2_reg;
+  wire [19:0] m0_3_3_d = m0_3_3_c ? d_12_s2_reg : d_14_s2_reg;
 
-  // register stage 3 (after step "sign")
+  // register stage 3 (after minimum)
   reg  tlast_s3_reg = 1'd0;
-  reg  signed [5:0] llr_0_s3_reg = 6'sd0;
-  reg  signed [5:0] llr_1_s3_reg = 6'sd0;
-  reg  signed [5:0] llr_2_s3_reg = 6'sd0;
-  reg  signed [5:0] llr_3_s3_reg = 6'sd0;
+  reg  [19:0] m1_0_0_d_s3_reg = 20'd0;
+  reg  [19:0] m1_0_1_d_s3_reg = 20'd0;
+  reg  [19:0] m1_0_2_d_s3_reg = 20'd0;
+  reg  [19:0] m1_0_3_d_s3_reg = 20'd0;
+  reg  [19:0] m0_0_0_d_s3_reg = 20'd0;
+  reg  [19:0] m0_0_1_d_s3_reg = 20'd0;
+  reg  [19:0] m0_0_2_d_s3_reg = 20'd0;
+  reg  [19:0] m0_0_3_d_s3_reg = 20'd0;
+  reg  [19:0] m1_1_0_d_s3_reg = 20'd0;
+  reg  [19:0] m1_1_1_d_s3_reg = 20'd0;
+  reg  [19:0] m1_1_2_d_s3_reg = 20'd0;
+  reg  [19:0] m1_1_3_d_s3_reg = 20'd0;
+  reg  [19:0] m0_1_0_d_s3_reg = 20'd0;
+  reg  [19:0] m0_1_1_d_s3_reg = 20'd0;
+  reg  [19:0] m0_1_2_d_s3_reg = 20'd0;
+  reg  [19:0] m0_1_3_d_s3_reg = 20'd0;
+  reg  [19:0] m1_2_0_d_s3_reg = 20'd0;
+  reg  [19:0] m1_2_1_d_s3_reg = 20'd0;
+  reg  [19:0] m1_2_2_d_s3_reg = 20'd0;
+  reg  [19:0] m1_2_3_d_s3_reg = 20'd0;
+  reg  [19:0] m0_2_0_d_s3_reg = 20'd0;
+  reg  [19:0] m0_2_1_d_s3_reg = 20'd0;
+  reg  [19:0] m0_2_2_d_s3_reg = 20'd0;
+  reg  [19:0] m0_2_3_d_s3_reg = 20'd0;
+  reg  [19:0] m1_3_0_d_s3_reg = 20'd0;
+  reg  [19:0] m1_3_1_d_s3_reg = 20'd0;
+  reg  [19:0] m1_3_2_d_s3_reg = 20'd0;
+  reg  [19:0] m1_3_3_d_s3_reg = 20'd0;
+  reg  [19:0] m0_3_0_d_s3_reg = 20'd0;
+  reg  [19:0] m0_3_1_d_s3_reg = 20'd0;
+  reg  [19:0] m0_3_2_d_s3_reg = 20'd0;
+  reg  [19:0] m0_3_3_d_s3_reg = 20'd0;
   always @(posedge aclk) begin
     if (ce_s3) begin
       tlast_s3_reg <= tlast_s2_reg;
-      llr_0_s3_reg <= llr_0;
-      llr_1_s3_reg <= llr_1;
-      llr_2_s3_reg <= llr_2;
-      llr_3_s3_reg <= llr_3;
+      m1_0_0_d_s3_reg <= m1_0_0_d;
+      m1_0_1_d_s3_reg <= m1_0_1_d;
+      m1_0_2_d_s3_reg <= m1_0_2_d;
+      m1_0_3_d_s3_reg <= m1_0_3_d;
+      m0_0_0_d_s3_reg <= m0_0_0_d;
+      m0_0_1_d_s3_reg <= m0_0_1_d;
+      m0_0_2_d_s3_reg <= m0_0_2_d;
+      m0_0_3_d_s3_reg <= m0_0_3_d;
+      m1_1_0_d_s3_reg <= m1_1_0_d;
+      m1_1_1_d_s3_reg <= m1_1_1_d;
+      m1_1_2_d_s3_reg <= m1_1_2_d;
+      m1_1_3_d_s3_reg <= m1_1_3_d;
+      m0_1_0_d_s3_reg <= m0_1_0_d;
+      m0_1_1_d_s3_reg <= m0_1_1_d;
+      m0_1_2_d_s3_reg <= m0_1_2_d;
+      m0_1_3_d_s3_reg <= m0_1_3_d;
+      m1_2_0_d_s3_reg <= m1_2_0_d;
+      m1_2_1_d_s3_reg <= m1_2_1_d;
+      m1_2_2_d_s3_reg <= m1_2_2_d;
+      m1_2_3_d_s3_reg <= m1_2_3_d;
+      m0_2_0_d_s3_reg <= m0_2_0_d;
+      m0_2_1_d_s3_reg <= m0_2_1_d;
+      m0_2_2_d_s3_reg <= m0_2_2_d;
+      m0_2_3_d_s3_reg <= m0_2_3_d;
+      m1_3_0_d_s3_reg <= m1_3_0_d;
+      m1_3_1_d_s3_reg <= m1_3_1_d;
+      m1_3_2_d_s3_reg <= m1_3_2_d;
+      m1_3_3_d_s3_reg <= m1_3_3_d;
+      m0_3_0_d_s3_reg <= m0_3_0_d;
+      m0_3_1_d_s3_reg <= m0_3_1_d;
+      m0_3_2_d_s3_reg <= m0_3_2_d;
+      m0_3_3_d_s3_reg <= m0_3_3_d;
+    end
+  end
+
+  // ---------------------------------------------------------------- minimum (stage 4)
+  // per label bit: D = min over the points with the bit 1 - min over the points with the bit 0
+  wire m1_0_4_c = m1_0_0_d_s3_reg <= m1_0_1_d_s3_reg;
+  wire [19:0] m1_0_4_d = m1_0_4_c ? m1_0_0_d_s3_reg : m1_0_1_d_s3_reg;
+  wire m1_0_5_c = m1_0_2_d_s3_reg <= m1_0_3_d_s3_reg;
+  wire [19:0] m1_0_5_d = m1_0_5_c ? m1_0_2_d_s3_reg : m1_0_3_d_s3_reg;
+  wire m0_0_4_c = m0_0_0_d_s3_reg <= m0_0_1_d_s3_reg;
+  wire [19:0] m0_0_4_d = m0_0_4_c ? m0_0_0_d_s3_reg : m0_0_1_d_s3_reg;
+  wire m0_0_5_c = m0_0_2_d_s3_reg <= m0_0_3_d_s3_reg;
+  wire [19:0] m0_0_5_d = m0_0_5_c ? m0_0_2_d_s3_reg : m0_0_3_d_s3_reg;
+  wire m1_1_4_c = m1_1_0_d_s3_reg <= m1_1_1_d_s3_reg;
+  wire [19:0] m1_1_4_d = m1_1_4_c ? m1_1_0_d_s3_reg : m1_1_1_d_s3_reg;
+  wire m1_1_5_c = m1_1_2_d_s3_reg <= m1_1_3_d_s3_reg;
+  wire [19:0] m1_1_5_d = m1_1_5_c ? m1_1_2_d_s3_reg : m1_1_3_d_s3_reg;
+  wire m0_1_4_c = m0_1_0_d_s3_reg <= m0_1_1_d_s3_reg;
+  wire [19:0] m0_1_4_d = m0_1_4_c ? m0_1_0_d_s3_reg : m0_1_1_d_s3_reg;
+  wire m0_1_5_c = m0_1_2_d_s3_reg <= m0_1_3_d_s3_reg;
+  wire [19:0] m0_1_5_d = m0_1_5_c ? m0_1_2_d_s3_reg : m0_1_3_d_s3_reg;
+  wire m1_2_4_c = m1_2_0_d_s3_reg <= m1_2_1_d_s3_reg;
+  wire [19:0] m1_2_4_d = m1_2_4_c ? m1_2_0_d_s3_reg : m1_2_1_d_s3_reg;
+  wire m1_2_5_c = m1_2_2_d_s3_reg <= m1_2_3_d_s3_reg;
+  wire [19:0] m1_2_5_d = m1_2_5_c ? m1_2_2_d_s3_reg : m1_2_3_d_s3_reg;
+  wire m0_2_4_c = m0_2_0_d_s3_reg <= m0_2_1_d_s3_reg;
+  wire [19:0] m0_2_4_d = m0_2_4_c ? m0_2_0_d_s3_reg : m0_2_1_d_s3_reg;
+  wire m0_2_5_c = m0_2_2_d_s3_reg <= m0_2_3_d_s3_reg;
+  wire [19:0] m0_2_5_d = m0_2_5_c ? m0_2_2_d_s3_reg : m0_2_3_d_s3_reg;
+  wire m1_3_4_c = m1_3_0_d_s3_reg <= m1_3_1_d_s3_reg;
+  wire [19:0] m1_3_4_d = m1_3_4_c ? m1_3_0_d_s3_reg : m1_3_1_d_s3_reg;
+  wire m1_3_5_c = m1_3_2_d_s3_reg <= m1_3_3_d_s3_reg;
+  wire [19:0] m1_3_5_d = m1_3_5_c ? m1_3_2_d_s3_reg : m1_3_3_d_s3_reg;
+  wire m0_3_4_c = m0_3_0_d_s3_reg <= m0_3_1_d_s3_reg;
+  wire [19:0] m0_3_4_d = m0_3_4_c ? m0_3_0_d_s3_reg : m0_3_1_d_s3_reg;
+  wire m0_3_5_c = m0_3_2_d_s3_reg <= m0_3_3_d_s3_reg;
+  wire [19:0] m0_3_5_d = m0_3_5_c ? m0_3_2_d_s3_reg : m0_3_3_d_s3_reg;
+
+  // register stage 4 (after minimum)
+  reg  tlast_s4_reg = 1'd0;
+  reg  [19:0] m1_0_4_d_s4_reg = 20'd0;
+  reg  [19:0] m1_0_5_d_s4_reg = 20'd0;
+  reg  [19:0] m0_0_4_d_s4_reg = 20'd0;
+  reg  [19:0] m0_0_5_d_s4_reg = 20'd0;
+  reg  [19:0] m1_1_4_d_s4_reg = 20'd0;
+  reg  [19:0] m1_1_5_d_s4_reg = 20'd0;
+  reg  [19:0] m0_1_4_d_s4_reg = 20'd0;
+  reg  [19:0] m0_1_5_d_s4_reg = 20'd0;
+  reg  [19:0] m1_2_4_d_s4_reg = 20'd0;
+  reg  [19:0] m1_2_5_d_s4_reg = 20'd0;
+  reg  [19:0] m0_2_4_d_s4_reg = 20'd0;
+  reg  [19:0] m0_2_5_d_s4_reg = 20'd0;
+  reg  [19:0] m1_3_4_d_s4_reg = 20'd0;
+  reg  [19:0] m1_3_5_d_s4_reg = 20'd0;
+  reg  [19:0] m0_3_4_d_s4_reg = 20'd0;
+  reg  [19:0] m0_3_5_d_s4_reg = 20'd0;
+  always @(posedge aclk) begin
+    if (ce_s4) begin
+      tlast_s4_reg <= tlast_s3_reg;
+      m1_0_4_d_s4_reg <= m1_0_4_d;
+      m1_0_5_d_s4_reg <= m1_0_5_d;
+      m0_0_4_d_s4_reg <= m0_0_4_d;
+      m0_0_5_d_s4_reg <= m0_0_5_d;
+      m1_1_4_d_s4_reg <= m1_1_4_d;
+      m1_1_5_d_s4_reg <= m1_1_5_d;
+      m0_1_4_d_s4_reg <= m0_1_4_d;
+      m0_1_5_d_s4_reg <= m0_1_5_d;
+      m1_2_4_d_s4_reg <= m1_2_4_d;
+      m1_2_5_d_s4_reg <= m1_2_5_d;
+      m0_2_4_d_s4_reg <= m0_2_4_d;
+      m0_2_5_d_s4_reg <= m0_2_5_d;
+      m1_3_4_d_s4_reg <= m1_3_4_d;
+      m1_3_5_d_s4_reg <= m1_3_5_d;
+      m0_3_4_d_s4_reg <= m0_3_4_d;
+      m0_3_5_d_s4_reg <= m0_3_5_d;
+    end
+  end
+
+  // ---------------------------------------------------------------- minimum (stage 5)
+  // per label bit: D = min over the points with the bit 1 - min over the points with the bit 0
+  wire m1_0_6_c = m1_0_4_d_s4_reg <= m1_0_5_d_s4_reg;
+  wire [19:0] m1_0_6_d = m1_0_6_c ? m1_0_4_d_s4_reg : m1_0_5_d_s4_reg;
+  wire m0_0_6_c = m0_0_4_d_s4_reg <= m0_0_5_d_s4_reg;
+  wire [19:0] m0_0_6_d = m0_0_6_c ? m0_0_4_d_s4_reg : m0_0_5_d_s4_reg;
+  wire m1_1_6_c = m1_1_4_d_s4_reg <= m1_1_5_d_s4_reg;
+  wire [19:0] m1_1_6_d = m1_1_6_c ? m1_1_4_d_s4_reg : m1_1_5_d_s4_reg;
+  wire m0_1_6_c = m0_1_4_d_s4_reg <= m0_1_5_d_s4_reg;
+  wire [19:0] m0_1_6_d = m0_1_6_c ? m0_1_4_d_s4_reg : m0_1_5_d_s4_reg;
+  wire m1_2_6_c = m1_2_4_d_s4_reg <= m1_2_5_d_s4_reg;
+  wire [19:0] m1_2_6_d = m1_2_6_c ? m1_2_4_d_s4_reg : m1_2_5_d_s4_reg;
+  wire m0_2_6_c = m0_2_4_d_s4_reg <= m0_2_5_d_s4_reg;
+  wire [19:0] m0_2_6_d = m0_2_6_c ? m0_2_4_d_s4_reg : m0_2_5_d_s4_reg;
+  wire m1_3_6_c = m1_3_4_d_s4_reg <= m1_3_5_d_s4_reg;
+  wire [19:0] m1_3_6_d = m1_3_6_c ? m1_3_4_d_s4_reg : m1_3_5_d_s4_reg;
+  wire m0_3_6_c = m0_3_4_d_s4_reg <= m0_3_5_d_s4_reg;
+  wire [19:0] m0_3_6_d = m0_3_6_c ? m0_3_4_d_s4_reg : m0_3_5_d_s4_reg;
+
+  // register stage 5 (after minimum)
+  reg  tlast_s5_reg = 1'd0;
+  reg  [19:0] m1_0_6_d_s5_reg = 20'd0;
+  reg  [19:0] m0_0_6_d_s5_reg = 20'd0;
+  reg  [19:0] m1_1_6_d_s5_reg = 20'd0;
+  reg  [19:0] m0_1_6_d_s5_reg = 20'd0;
+  reg  [19:0] m1_2_6_d_s5_reg = 20'd0;
+  reg  [19:0] m0_2_6_d_s5_reg = 20'd0;
+  reg  [19:0] m1_3_6_d_s5_reg = 20'd0;
+  reg  [19:0] m0_3_6_d_s5_reg = 20'd0;
+  always @(posedge aclk) begin
+    if (ce_s5) begin
+      tlast_s5_reg <= tlast_s4_reg;
+      m1_0_6_d_s5_reg <= m1_0_6_d;
+      m0_0_6_d_s5_reg <= m0_0_6_d;
+      m1_1_6_d_s5_reg <= m1_1_6_d;
+      m0_1_6_d_s5_reg <= m0_1_6_d;
+      m1_2_6_d_s5_reg <= m1_2_6_d;
+      m0_2_6_d_s5_reg <= m0_2_6_d;
+      m1_3_6_d_s5_reg <= m1_3_6_d;
+      m0_3_6_d_s5_reg <= m0_3_6_d;
+    end
+  end
+
+  // ---------------------------------------------------------------- minimum (stage 6)
+  // per label bit: D = min over the points with the bit 1 - min over the points with the bit 0
+  // label bit b0
+  wire signed [20:0] dif_0 = $signed({1'd0, m1_0_6_d_s5_reg}) - $signed({1'd0, m0_0_6_d_s5_reg});
+  wire neg_0 = dif_0[20];
+  // label bit b1
+  wire signed [20:0] dif_1 = $signed({1'd0, m1_1_6_d_s5_reg}) - $signed({1'd0, m0_1_6_d_s5_reg});
+  wire neg_1 = dif_1[20];
+  // label bit b2
+  wire signed [20:0] dif_2 = $signed({1'd0, m1_2_6_d_s5_reg}) - $signed({1'd0, m0_2_6_d_s5_reg});
+  wire neg_2 = dif_2[20];
+  // label bit b3
+  wire signed [20:0] dif_3 = $signed({1'd0, m1_3_6_d_s5_reg}) - $signed({1'd0, m0_3_6_d_s5_reg});
+  wire neg_3 = dif_3[20];
+
+  // register stage 6 (after minimum)
+  reg  tlast_s6_reg = 1'd0;
+  reg  signed [20:0] dif_0_s6_reg = 21'sd0;
+  reg  neg_0_s6_reg = 1'd0;
+  reg  signed [20:0] dif_1_s6_reg = 21'sd0;
+  reg  neg_1_s6_reg = 1'd0;
+  reg  signed [20:0] dif_2_s6_reg = 21'sd0;
+  reg  neg_2_s6_reg = 1'd0;
+  reg  signed [20:0] dif_3_s6_reg = 21'sd0;
+  reg  neg_3_s6_reg = 1'd0;
+  always @(posedge aclk) begin
+    if (ce_s6) begin
+      tlast_s6_reg <= tlast_s5_reg;
+      dif_0_s6_reg <= dif_0;
+      neg_0_s6_reg <= neg_0;
+      dif_1_s6_reg <= dif_1;
+      neg_1_s6_reg <= neg_1;
+      dif_2_s6_reg <= dif_2;
+      neg_2_s6_reg <= neg_2;
+      dif_3_s6_reg <= dif_3;
+      neg_3_s6_reg <= neg_3;
+    end
+  end
+
+  // ---------------------------------------------------------------- minimum (stage 7)
+  // per label bit: D = min over the points with the bit 1 - min over the points with the bit 0
+  wire signed [20:0] nd_0 = 21'sd0 - dif_0_s6_reg;
+  wire signed [20:0] mag_0 = dif_0_s6_reg[20] ? nd_0 : dif_0_s6_reg;
+  wire signed [20:0] nd_1 = 21'sd0 - dif_1_s6_reg;
+  wire signed [20:0] mag_1 = dif_1_s6_reg[20] ? nd_1 : dif_1_s6_reg;
+  wire signed [20:0] nd_2 = 21'sd0 - dif_2_s6_reg;
+  wire signed [20:0] mag_2 = dif_2_s6_reg[20] ? nd_2 : dif_2_s6_reg;
+  wire signed [20:0] nd_3 = 21'sd0 - dif_3_s6_reg;
+  wire signed [20:0] mag_3 = dif_3_s6_reg[20] ? nd_3 : dif_3_s6_reg;
+
+  // register stage 7 (after minimum)
+  reg  tlast_s7_reg = 1'd0;
+  reg  signed [20:0] mag_0_s7_reg = 21'sd0;
+  reg  neg_0_s7_reg = 1'd0;
+  reg  signed [20:0] mag_1_s7_reg = 21'sd0;
+  reg  neg_1_s7_reg = 1'd0;
+  reg  signed [20:0] mag_2_s7_reg = 21'sd0;
+  reg  neg_2_s7_reg = 1'd0;
+  reg  signed [20:0] mag_3_s7_reg = 21'sd0;
+  reg  neg_3_s7_reg = 1'd0;
+  always @(posedge aclk) begin
+    if (ce_s7) begin
+      tlast_s7_reg <= tlast_s6_reg;
+      mag_0_s7_reg <= mag_0;
+      neg_0_s7_reg <= neg_0_s6_reg;
+      mag_1_s7_reg <= mag_1;
+      neg_1_s7_reg <= neg_1_s6_reg;
+      mag_2_s7_reg <= mag_2;
+      neg_2_s7_reg <= neg_2_s6_reg;
+      mag_3_s7_reg <= mag_3;
+      neg_3_s7_reg <= neg_3_s6_reg;
+    end
+  end
+
+  // ---------------------------------------------------------------- round (stage 8)
+  // the rounding shift by 9 (half-away); the saturation compare runs beside the add
+  wire signed [20:0] rsum_0 = mag_0_s7_reg + 21'sd256;
+  wire [22:0] oc_0 = {{2{mag_0_s7_reg[20]}}, mag_0_s7_reg} + 23'd4178176;
+  wire ovf_0 = oc_0[22];
+  wire [4:0] vo_0 = rsum_0[13:9];
+  wire signed [20:0] rsum_1 = mag_1_s7_reg + 21'sd256;
+  wire [22:0] oc_1 = {{2{mag_1_s7_reg[20]}}, mag_1_s7_reg} + 23'd4178176;
+  wire ovf_1 = oc_1[22];
+  wire [4:0] vo_1 = rsum_1[13:9];
+  wire signed [20:0] rsum_2 = mag_2_s7_reg + 21'sd256;
+  wire [22:0] oc_2 = {{2{mag_2_s7_reg[20]}}, mag_2_s7_reg} + 23'd4178176;
+  wire ovf_2 = oc_2[22];
+  wire [4:0] vo_2 = rsum_2[13:9];
+  wire signed [20:0] rsum_3 = mag_3_s7_reg + 21'sd256;
+  wire [22:0] oc_3 = {{2{mag_3_s7_reg[20]}}, mag_3_s7_reg} + 23'd4178176;
+  wire ovf_3 = oc_3[22];
+  wire [4:0] vo_3 = rsum_3[13:9];
+
+  // register stage 8 (after round)
+  reg  tlast_s8_reg = 1'd0;
+  reg  neg_0_s8_reg = 1'd0;
+  reg  neg_1_s8_reg = 1'd0;
+  reg  neg_2_s8_reg = 1'd0;
+  reg  neg_3_s8_reg = 1'd0;
+  reg  ovf_0_s8_reg = 1'd0;
+  reg  [4:0] vo_0_s8_reg = 5'd0;
+  reg  ovf_1_s8_reg = 1'd0;
+  reg  [4:0] vo_1_s8_reg = 5'd0;
+  reg  ovf_2_s8_reg = 1'd0;
+  reg  [4:0] vo_2_s8_reg = 5'd0;
+  reg  ovf_3_s8_reg = 1'd0;
+  reg  [4:0] vo_3_s8_reg = 5'd0;
+  always @(posedge aclk) begin
+    if (ce_s8) begin
+      tlast_s8_reg <= tlast_s7_reg;
+      neg_0_s8_reg <= neg_0_s7_reg;
+      neg_1_s8_reg <= neg_1_s7_reg;
+      neg_2_s8_reg <= neg_2_s7_reg;
+      neg_3_s8_reg <= neg_3_s7_reg;
+      ovf_0_s8_reg <= ovf_0;
+      vo_0_s8_reg <= vo_0;
+      ovf_1_s8_reg <= ovf_1;
+      vo_1_s8_reg <= vo_1;
+      ovf_2_s8_reg <= ovf_2;
+      vo_2_s8_reg <= vo_2;
+      ovf_3_s8_reg <= ovf_3;
+      vo_3_s8_reg <= vo_3;
+    end
+  end
+
+  // ---------------------------------------------------------------- sign (stage 9)
+  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [4:0] s_0 = ovf_0_s8_reg ? 5'd31 : vo_0_s8_reg;
+  wire signed [5:0] x_0 = neg_0_s8_reg ? ~$signed({1'd0, s_0}) : $signed({1'd0, s_0});
+  // LLR 0: positive means bit 0 is more likely
+  wire signed [5:0] llr_0 = x_0 + $signed({5'd0, neg_0_s8_reg});
+  wire [4:0] s_1 = ovf_1_s8_reg ? 5'd31 : vo_1_s8_reg;
+  wire signed [5:0] x_1 = neg_1_s8_reg ? ~$signed({1'd0, s_1}) : $signed({1'd0, s_1});
+  // LLR 1: positive means bit 0 is more likely
+  wire signed [5:0] llr_1 = x_1 + $signed({5'd0, neg_1_s8_reg});
+  wire [4:0] s_2 = ovf_2_s8_reg ? 5'd31 : vo_2_s8_reg;
+  wire signed [5:0] x_2 = neg_2_s8_reg ? ~$signed({1'd0, s_2}) : $signed({1'd0, s_2});
+  // LLR 2: positive means bit 0 is more likely
+  wire signed [5:0] llr_2 = x_2 + $signed({5'd0, neg_2_s8_reg});
+  wire [4:0] s_3 = ovf_3_s8_reg ? 5'd31 : vo_3_s8_reg;
+  wire signed [5:0] x_3 = neg_3_s8_reg ? ~$signed({1'd0, s_3}) : $signed({1'd0, s_3});
+  // LLR 3: positive means bit 0 is more likely
+  wire signed [5:0] llr_3 = x_3 + $signed({5'd0, neg_3_s8_reg});
+
+  // register stage 9 (after sign)
+  reg  tlast_s9_reg = 1'd0;
+  reg  signed [5:0] llr_0_s9_reg = 6'sd0;
+  reg  signed [5:0] llr_1_s9_reg = 6'sd0;
+  reg  signed [5:0] llr_2_s9_reg = 6'sd0;
+  reg  signed [5:0] llr_3_s9_reg = 6'sd0;
+  always @(posedge aclk) begin
+    if (ce_s9) begin
+      tlast_s9_reg <= tlast_s8_reg;
+      llr_0_s9_reg <= llr_0;
+      llr_1_s9_reg <= llr_1;
+      llr_2_s9_reg <= llr_2;
+      llr_3_s9_reg <= llr_3;
     end
   end
 
   // ---------------------------------------------------------------- output word
-  assign m_axis_tdata = {llr_0_s3_reg, llr_1_s3_reg, llr_2_s3_reg, llr_3_s3_reg};
-  assign m_axis_tlast = tlast_s3_reg;
+  assign m_axis_tdata = {llr_0_s9_reg, llr_1_s9_reg, llr_2_s9_reg, llr_3_s9_reg};
+  assign m_axis_tlast = tlast_s9_reg;
 
   // bits that are provably constant or not needed (ranges from the generator)
   wire unused_bits = ^{rsum_0[20:14], rsum_0[8:0], oc_0[21:0], rsum_1[20:14], rsum_1[8:0], oc_1[21:0], rsum_2[20:14], rsum_2[8:0], oc_2[21:0], rsum_3[20:14], rsum_3[8:0], oc_3[21:0]};

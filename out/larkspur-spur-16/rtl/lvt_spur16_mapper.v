@@ -82,7 +82,7 @@ module lvt_spur16_mapper (
   // the label, b0 (first bit in time) in the MSB
   wire [3:0] lab = in_tdata[3:0];
 
-  // ---------------------------------------------------------------- step 1: lookup
+  // ---------------------------------------------------------------- lookup (stage 0)
   // the point table: {Q, I} by label
   function [19:0] point_word_table;
     input [3:0] key;
@@ -110,7 +110,7 @@ module lvt_spur16_mapper (
   wire signed [9:0] lvl_i = $signed(point_word[9:0]);
   wire signed [9:0] lvl_q = $signed(point_word[19:10]);
 
-  // register stage 0 (after step "lookup")
+  // register stage 0 (after lookup)
   reg  tlast_s0_reg = 1'd0;
   reg  signed [9:0] lvl_i_s0_reg = 10'sd0;
   reg  signed [9:0] lvl_q_s0_reg = 10'sd0;

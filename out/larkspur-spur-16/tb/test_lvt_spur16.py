@@ -47,7 +47,7 @@ def _int(handle) -> int:
 
 @cocotb.test()
 async def bulk(dut) -> None:
-    """Harness run: every word of the hex files compared in the simulator."""
+    """Harness run: every word of the hex files compared in the simulator (or the harness stalled)."""
     await RisingEdge(dut.done)
     await ReadOnly()
     res = {"test": "bulk", "cycles": _int(dut.cycles)}
@@ -66,6 +66,10 @@ async def bulk(dut) -> None:
                    f"(tuser/tlast bits {got >> w:x})")
             res[f"{blk}_first"] = msg
             problems.append(msg)
+    if dut.stalled.value == 1:
+        res["stall"] = (f"harness: no output word for {_int(dut.idle)} cycles, {res['map_compared']} mapper and "
+                        f"{res['dem_compared']} demapper words compared")
+        problems.append(res["stall"])
     _record(res)
     assert not problems, "; ".join(problems)
 

@@ -38,7 +38,7 @@
 //        4 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^4 codes.
 // Output: 2 signed 5-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
 //         saturated symmetrically to +-15.
-// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 8 cycles, one symbol per clock.
+// Architecture: per axis (decide by shift and clamp, nearest competitor from a table); latency 5 cycles, one symbol per clock.
 module lvt_tlm_demapper (
   // clock and reset
   input  wire           aclk,
@@ -56,7 +56,7 @@ module lvt_tlm_demapper (
 );
 
   // ---------------------------------------------------------------- constants
-  localparam LATENCY = 8;  // cycles from an accepted input word to its output word
+  localparam LATENCY = 5;  // cycles from an accepted input word to its output word
 
   // ---------------------------------------------------------------- stream control
   // One shared enable: every stage moves when the output register is empty or being read, so
@@ -70,9 +70,6 @@ module lvt_tlm_demapper (
   wire ce_s2 = ce_all;
   wire ce_s3 = ce_all;
   wire ce_s4 = ce_all;
-  wire ce_s5 = ce_all;
-  wire ce_s6 = ce_all;
-  wire ce_s7 = ce_all;
 
   wire in_tvalid = s_axis_tvalid;
   wire [21:0] in_tdata = s_axis_tdata;
@@ -85,9 +82,6 @@ module lvt_tlm_demapper (
     if (ce_s2) valid_reg[2] <= valid_reg[1];
     if (ce_s3) valid_reg[3] <= valid_reg[2];
     if (ce_s4) valid_reg[4] <= valid_reg[3];
-    if (ce_s5) valid_reg[5] <= valid_reg[4];
-    if (ce_s6) valid_reg[6] <= valid_reg[5];
-    if (ce_s7) valid_reg[7] <= valid_reg[6];
     // synchronous active-low reset: clears control only, never the datapath
     if (!aresetn) valid_reg <= {LATENCY{1'b0}};
   end
@@ -102,310 +96,167 @@ module lvt_tlm_demapper (
   // unsigned reliability code
   wire [5:0] scale = in_tdata[21:16];
 
-  // ---------------------------------------------------------------- step 1: range
-  // per axis: y + (L << f), whose bits give n_hat, and the compares of the clamps; the adders side by side
-  wire signed [8:0] sum_i = $signed({y_i[7], y_i}) + 9'sd32;
-  // I axis (2 levels): n = clamp((y + (L << 4)) >>> 5, 0, 1)
-  wire nm_i = sum_i[5];
-  // y below the lowest decision region
-  wire lo_i = sum_i[8];
-  wire signed [8:0] hsum_i = $signed({y_i[7], y_i}) - 9'sd32;
-  // y < L << 4: no high clamp
-  wire hs_i = hsum_i[8];
-  // the low 5 bits of y: the residual inside the levels is yl - 2^4
-  wire [4:0] yl_i = y_i[4:0];
-  // residual at the lowest level, y + (L-1) << f
-  wire signed [7:0] elo_i = y_i + 8'sd16;
-  // residual at the highest level, y - (L-1) << f
-  wire signed [7:0] ehi_i = y_i - 8'sd16;
-  wire signed [8:0] sum_q = $signed({y_q[7], y_q}) + 9'sd32;
-  // Q axis (2 levels): n = clamp((y + (L << 4)) >>> 5, 0, 1)
-  wire nm_q = sum_q[5];
-  // y below the lowest decision region
-  wire lo_q = sum_q[8];
-  wire signed [8:0] hsum_q = $signed({y_q[7], y_q}) - 9'sd32;
-  // y < L << 4: no high clamp
-  wire hs_q = hsum_q[8];
-  // the low 5 bits of y: the residual inside the levels is yl - 2^4
-  wire [4:0] yl_q = y_q[4:0];
-  // residual at the lowest level, y + (L-1) << f
-  wire signed [7:0] elo_q = y_q + 8'sd16;
-  // residual at the highest level, y - (L-1) << f
-  wire signed [7:0] ehi_q = y_q - 8'sd16;
+  // ---------------------------------------------------------------- scale (stage 0)
+  // the reliability scale: one multiply per LLR, P = metric * S
+  wire signed [13:0] p_i0 = $signed({{6{y_i[7]}}, y_i}) * $signed({8'd0, scale});
+  wire signed [13:0] p_q0 = $signed({{6{y_q[7]}}, y_q}) * $signed({8'd0, scale});
 
-  // register stage 0 (after step "range")
-  reg  [5:0] scale_s0_reg = 6'd0;
+  // register stage 0 (after scale)
   reg  tlast_s0_reg = 1'd0;
-  reg  nm_i_s0_reg = 1'd0;
-  reg  lo_i_s0_reg = 1'd0;
-  reg  hs_i_s0_reg = 1'd0;
-  reg  [4:0] yl_i_s0_reg = 5'd0;
-  reg  signed [7:0] elo_i_s0_reg = 8'sd0;
-  reg  signed [7:0] ehi_i_s0_reg = 8'sd0;
-  reg  nm_q_s0_reg = 1'd0;
-  reg  lo_q_s0_reg = 1'd0;
-  reg  hs_q_s0_reg = 1'd0;
-  reg  [4:0] yl_q_s0_reg = 5'd0;
-  reg  signed [7:0] elo_q_s0_reg = 8'sd0;
-  reg  signed [7:0] ehi_q_s0_reg = 8'sd0;
+  reg  signed [13:0] p_i0_s0_reg = 14'sd0;
+  reg  signed [13:0] p_q0_s0_reg = 14'sd0;
   always @(posedge aclk) begin
     if (ce_s0) begin
-      scale_s0_reg <= scale;
       tlast_s0_reg <= in_tlast;
-      nm_i_s0_reg <= nm_i;
-      lo_i_s0_reg <= lo_i;
-      hs_i_s0_reg <= hs_i;
-      yl_i_s0_reg <= yl_i;
-      elo_i_s0_reg <= elo_i;
-      ehi_i_s0_reg <= ehi_i;
-      nm_q_s0_reg <= nm_q;
-      lo_q_s0_reg <= lo_q;
-      hs_q_s0_reg <= hs_q;
-      yl_q_s0_reg <= yl_q;
-      elo_q_s0_reg <= elo_q;
-      ehi_q_s0_reg <= ehi_q;
+      p_i0_s0_reg <= p_i0;
+      p_q0_s0_reg <= p_q0;
     end
   end
 
-  // ---------------------------------------------------------------- step 2: decide
-  // per axis: the clamp muxes of n_hat and of the residual e
-  // the high clamp
-  wire nh_i = hs_i_s0_reg ? nm_i_s0_reg : 1'd1;
-  // the low clamp
-  wire n_i = lo_i_s0_reg ? 1'd0 : nh_i;
-  // yl - 2^4: the residual inside the levels (top bit flipped)
-  wire signed [4:0] emid_i = $signed(yl_i_s0_reg) ^ 5'sh10;
-  wire signed [7:0] eh_i = hs_i_s0_reg ? $signed({{3{emid_i[4]}}, emid_i}) : ehi_i_s0_reg;
-  wire signed [7:0] e_i = lo_i_s0_reg ? elo_i_s0_reg : eh_i;
-  // the high clamp
-  wire nh_q = hs_q_s0_reg ? nm_q_s0_reg : 1'd1;
-  // the low clamp
-  wire n_q = lo_q_s0_reg ? 1'd0 : nh_q;
-  // yl - 2^4: the residual inside the levels (top bit flipped)
-  wire signed [4:0] emid_q = $signed(yl_q_s0_reg) ^ 5'sh10;
-  wire signed [7:0] eh_q = hs_q_s0_reg ? $signed({{3{emid_q[4]}}, emid_q}) : ehi_q_s0_reg;
-  wire signed [7:0] e_q = lo_q_s0_reg ? elo_q_s0_reg : eh_q;
+  // ---------------------------------------------------------------- round (stage 1)
+  // t = P + C: the rounding by 2^7 (half-even) and the sign in one adder, C chosen by the sign (for a negative LLR, ~floor((P - K) / 2^shift) = -round(P / 2^shift))
+  wire vlo_i0 = |p_i0_s0_reg[6:0];
+  wire [1:0] rk_i0 = {p_i0_s0_reg[7], vlo_i0};
+  function signed [7:0] rc_i0_table;
+    input [1:0] key;
+    case (key)
+      2'd0: rc_i0_table = -8'sd64;
+      2'd1: rc_i0_table = -8'sd65;
+      2'd2: rc_i0_table = -8'sd65;
+      2'd3: rc_i0_table = -8'sd64;
+      default: rc_i0_table = 8'sd0;
+    endcase
+  endfunction
+  wire signed [7:0] rc_i0 = rc_i0_table(rk_i0);
+  wire vlo_q0 = |p_q0_s0_reg[6:0];
+  wire [1:0] rk_q0 = {p_q0_s0_reg[7], vlo_q0};
+  function signed [7:0] rc_q0_table;
+    input [1:0] key;
+    case (key)
+      2'd0: rc_q0_table = -8'sd64;
+      2'd1: rc_q0_table = -8'sd65;
+      2'd2: rc_q0_table = -8'sd65;
+      2'd3: rc_q0_table = -8'sd64;
+      default: rc_q0_table = 8'sd0;
+    endcase
+  endfunction
+  wire signed [7:0] rc_q0 = rc_q0_table(rk_q0);
 
-  // register stage 1 (after step "decide")
-  reg  [5:0] scale_s1_reg = 6'd0;
+  // register stage 1 (after round)
   reg  tlast_s1_reg = 1'd0;
-  reg  n_i_s1_reg = 1'd0;
-  reg  signed [7:0] e_i_s1_reg = 8'sd0;
-  reg  n_q_s1_reg = 1'd0;
-  reg  signed [7:0] e_q_s1_reg = 8'sd0;
+  reg  signed [13:0] p_i0_s1_reg = 14'sd0;
+  reg  signed [13:0] p_q0_s1_reg = 14'sd0;
+  reg  signed [7:0] rc_i0_s1_reg = 8'sd0;
+  reg  signed [7:0] rc_q0_s1_reg = 8'sd0;
   always @(posedge aclk) begin
     if (ce_s1) begin
-      scale_s1_reg <= scale_s0_reg;
       tlast_s1_reg <= tlast_s0_reg;
-      n_i_s1_reg <= n_i;
-      e_i_s1_reg <= e_i;
-      n_q_s1_reg <= n_q;
-      e_q_s1_reg <= e_q;
+      p_i0_s1_reg <= p_i0_s0_reg;
+      p_q0_s1_reg <= p_q0_s0_reg;
+      rc_i0_s1_reg <= rc_i0;
+      rc_q0_s1_reg <= rc_q0;
     end
   end
 
-  // ---------------------------------------------------------------- step 3: competitor
-  // per axis bit: tables of the decided level (and the residual's sign): the nearest competitor's |dn| and side, the gates of the partial products, the LLR's sign
-  // axis bit 0 (label bit b0): sign, the decided level's bit
-  localparam [1:0] TABLE_NEG_I0 = 2'b10;  // entry k at bit k
-  wire neg_i0 = TABLE_NEG_I0[n_i_s1_reg];
-  // (|dn| << 4) + (dn > 0), dn the nearest competitor
-  function [4:0] dp_i0_table;
-    input [0:0] key;
-    case (key)
-      1'd0: dp_i0_table = 5'd17;
-      1'd1: dp_i0_table = 5'd16;
-      default: dp_i0_table = 5'd0;
-    endcase
-  endfunction
-  wire [4:0] dp_i0 = dp_i0_table(n_i_s1_reg);
-  // the competitor is on the right (dn > 0)
-  localparam [1:0] TABLE_POS_I0 = 2'b01;  // entry k at bit k
-  wire pos_i0 = TABLE_POS_I0[n_i_s1_reg];
-  // axis bit 0 (label bit b1): sign, the decided level's bit
-  localparam [1:0] TABLE_NEG_Q0 = 2'b10;  // entry k at bit k
-  wire neg_q0 = TABLE_NEG_Q0[n_q_s1_reg];
-  // (|dn| << 4) + (dn > 0), dn the nearest competitor
-  function [4:0] dp_q0_table;
-    input [0:0] key;
-    case (key)
-      1'd0: dp_q0_table = 5'd17;
-      1'd1: dp_q0_table = 5'd16;
-      default: dp_q0_table = 5'd0;
-    endcase
-  endfunction
-  wire [4:0] dp_q0 = dp_q0_table(n_q_s1_reg);
-  // the competitor is on the right (dn > 0)
-  localparam [1:0] TABLE_POS_Q0 = 2'b01;  // entry k at bit k
-  wire pos_q0 = TABLE_POS_Q0[n_q_s1_reg];
+  // ---------------------------------------------------------------- round (stage 2)
+  // t = P + C: the rounding by 2^7 (half-even) and the sign in one adder, C chosen by the sign (for a negative LLR, ~floor((P - K) / 2^shift) = -round(P / 2^shift))
+  // LLR i0: P + C
+  wire signed [13:0] rs_i0 = p_i0_s1_reg + $signed({{6{rc_i0_s1_reg[7]}}, rc_i0_s1_reg});
+  // LLR q0: P + C
+  wire signed [13:0] rs_q0 = p_q0_s1_reg + $signed({{6{rc_q0_s1_reg[7]}}, rc_q0_s1_reg});
+  // ---------------------------------------------------------------- saturate (stage 2)
+  // r = (t >>> 7) xor sign, then symmetric saturation to +-15 from r's top bits
+  // t >>> 7
+  wire signed [6:0] rsh_i0 = $signed(rs_i0[13:7]);
+  // t >>> 7
+  wire signed [6:0] rsh_q0 = $signed(rs_q0[13:7]);
 
-  // register stage 2 (after step "competitor")
-  reg  [5:0] scale_s2_reg = 6'd0;
+  // register stage 2 (after round, saturate)
   reg  tlast_s2_reg = 1'd0;
-  reg  signed [7:0] e_i_s2_reg = 8'sd0;
-  reg  signed [7:0] e_q_s2_reg = 8'sd0;
-  reg  neg_i0_s2_reg = 1'd0;
-  reg  [4:0] dp_i0_s2_reg = 5'd0;
-  reg  pos_i0_s2_reg = 1'd0;
-  reg  neg_q0_s2_reg = 1'd0;
-  reg  [4:0] dp_q0_s2_reg = 5'd0;
-  reg  pos_q0_s2_reg = 1'd0;
+  reg  signed [6:0] rsh_i0_s2_reg = 7'sd0;
+  reg  signed [6:0] rsh_q0_s2_reg = 7'sd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
-      scale_s2_reg <= scale_s1_reg;
       tlast_s2_reg <= tlast_s1_reg;
-      e_i_s2_reg <= e_i_s1_reg;
-      e_q_s2_reg <= e_q_s1_reg;
-      neg_i0_s2_reg <= neg_i0;
-      dp_i0_s2_reg <= dp_i0;
-      pos_i0_s2_reg <= pos_i0;
-      neg_q0_s2_reg <= neg_q0;
-      dp_q0_s2_reg <= dp_q0;
-      pos_q0_s2_reg <= pos_q0;
+      rsh_i0_s2_reg <= rsh_i0;
+      rsh_q0_s2_reg <= rsh_q0;
     end
   end
 
-  // ---------------------------------------------------------------- step 4: select
-  // per axis bit: dn > 0 ? ~e : e (the +1 of -e sits in the table's constant) and the gated copies as AND terms (a mux to zero in front of a register would become its reset)
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [7:0] se_i0 = pos_i0_s2_reg ? ~e_i_s2_reg : e_i_s2_reg;
-  // -sign(dn) e, minus one where dn > 0
-  wire signed [7:0] se_q0 = pos_q0_s2_reg ? ~e_q_s2_reg : e_q_s2_reg;
+  // ---------------------------------------------------------------- saturate (stage 3)
+  // r = (t >>> 7) xor sign, then symmetric saturation to +-15 from r's top bits
+  // xor the sign: ~floor((P - K) / D) = -round(P / D)
+  wire signed [6:0] r_i0 = ~rsh_i0_s2_reg;
+  wire alo_i0 = |r_i0[3:0];
+  // r >= 2^(lw-1) when positive
+  wire ahi_i0 = |r_i0[5:4];
+  wire ehi_i0 = &r_i0[5:4];
+  // r >= -(2^(lw-1) - 1) when negative
+  wire fit_i0 = ehi_i0 & alo_i0;
+  wire nfit_i0 = ~fit_i0;
+  // |r| > the largest LLR
+  wire ovf_i0 = r_i0[6] ? nfit_i0 : ahi_i0;
+  wire signed [4:0] sat_i0 = r_i0[6] ? -5'sd15 : 5'sd15;
+  wire signed [4:0] rl_i0 = $signed(r_i0[4:0]);
+  // xor the sign: ~floor((P - K) / D) = -round(P / D)
+  wire signed [6:0] r_q0 = ~rsh_q0_s2_reg;
+  wire alo_q0 = |r_q0[3:0];
+  // r >= 2^(lw-1) when positive
+  wire ahi_q0 = |r_q0[5:4];
+  wire ehi_q0 = &r_q0[5:4];
+  // r >= -(2^(lw-1) - 1) when negative
+  wire fit_q0 = ehi_q0 & alo_q0;
+  wire nfit_q0 = ~fit_q0;
+  // |r| > the largest LLR
+  wire ovf_q0 = r_q0[6] ? nfit_q0 : ahi_q0;
+  wire signed [4:0] sat_q0 = r_q0[6] ? -5'sd15 : 5'sd15;
+  wire signed [4:0] rl_q0 = $signed(r_q0[4:0]);
 
-  // register stage 3 (after step "select")
-  reg  [5:0] scale_s3_reg = 6'd0;
+  // register stage 3 (after saturate)
   reg  tlast_s3_reg = 1'd0;
-  reg  neg_i0_s3_reg = 1'd0;
-  reg  [4:0] dp_i0_s3_reg = 5'd0;
-  reg  neg_q0_s3_reg = 1'd0;
-  reg  [4:0] dp_q0_s3_reg = 5'd0;
-  reg  signed [7:0] se_i0_s3_reg = 8'sd0;
-  reg  signed [7:0] se_q0_s3_reg = 8'sd0;
+  reg  ovf_i0_s3_reg = 1'd0;
+  reg  signed [4:0] sat_i0_s3_reg = 5'sd0;
+  reg  signed [4:0] rl_i0_s3_reg = 5'sd0;
+  reg  ovf_q0_s3_reg = 1'd0;
+  reg  signed [4:0] sat_q0_s3_reg = 5'sd0;
+  reg  signed [4:0] rl_q0_s3_reg = 5'sd0;
   always @(posedge aclk) begin
     if (ce_s3) begin
-      scale_s3_reg <= scale_s2_reg;
       tlast_s3_reg <= tlast_s2_reg;
-      neg_i0_s3_reg <= neg_i0_s2_reg;
-      dp_i0_s3_reg <= dp_i0_s2_reg;
-      neg_q0_s3_reg <= neg_q0_s2_reg;
-      dp_q0_s3_reg <= dp_q0_s2_reg;
-      se_i0_s3_reg <= se_i0;
-      se_q0_s3_reg <= se_q0;
+      ovf_i0_s3_reg <= ovf_i0;
+      sat_i0_s3_reg <= sat_i0;
+      rl_i0_s3_reg <= rl_i0;
+      ovf_q0_s3_reg <= ovf_q0;
+      sat_q0_s3_reg <= sat_q0;
+      rl_q0_s3_reg <= rl_q0;
     end
   end
 
-  // ---------------------------------------------------------------- step 5: residual
-  // per axis bit: u = |(dn << f) - e| = ((|dn| << f) + (dn > 0)) + (dn > 0 ? ~e : e), one adder (and its gated copies)
-  // axis bit 0: u = |(dn << 4) - e| >= 0
-  wire [7:0] u_i0 = {3'd0, dp_i0_s3_reg} + $unsigned(se_i0_s3_reg);
-  // axis bit 0: u = |(dn << 4) - e| >= 0
-  wire [7:0] u_q0 = {3'd0, dp_q0_s3_reg} + $unsigned(se_q0_s3_reg);
+  // ---------------------------------------------------------------- saturate (stage 4)
+  // r = (t >>> 7) xor sign, then symmetric saturation to +-15 from r's top bits
+  // LLR i0: positive means bit 0 is more likely
+  wire signed [4:0] llr_i0 = ovf_i0_s3_reg ? sat_i0_s3_reg : rl_i0_s3_reg;
+  // LLR q0: positive means bit 0 is more likely
+  wire signed [4:0] llr_q0 = ovf_q0_s3_reg ? sat_q0_s3_reg : rl_q0_s3_reg;
 
-  // register stage 4 (after step "residual")
-  reg  [5:0] scale_s4_reg = 6'd0;
+  // register stage 4 (after saturate)
   reg  tlast_s4_reg = 1'd0;
-  reg  neg_i0_s4_reg = 1'd0;
-  reg  neg_q0_s4_reg = 1'd0;
-  reg  [7:0] u_i0_s4_reg = 8'd0;
-  reg  [7:0] u_q0_s4_reg = 8'd0;
+  reg  signed [4:0] llr_i0_s4_reg = 5'sd0;
+  reg  signed [4:0] llr_q0_s4_reg = 5'sd0;
   always @(posedge aclk) begin
     if (ce_s4) begin
-      scale_s4_reg <= scale_s3_reg;
       tlast_s4_reg <= tlast_s3_reg;
-      neg_i0_s4_reg <= neg_i0_s3_reg;
-      neg_q0_s4_reg <= neg_q0_s3_reg;
-      u_i0_s4_reg <= u_i0;
-      u_q0_s4_reg <= u_q0;
-    end
-  end
-
-  // ---------------------------------------------------------------- step 6: scale
-  // the reliability scale: one multiply per LLR, P = |metric| * S
-  wire [12:0] p_i0 = {5'd0, u_i0_s4_reg} * {7'd0, scale_s4_reg};
-  wire [12:0] p_q0 = {5'd0, u_q0_s4_reg} * {7'd0, scale_s4_reg};
-
-  // register stage 5 (after step "scale")
-  reg  tlast_s5_reg = 1'd0;
-  reg  neg_i0_s5_reg = 1'd0;
-  reg  neg_q0_s5_reg = 1'd0;
-  reg  [12:0] p_i0_s5_reg = 13'd0;
-  reg  [12:0] p_q0_s5_reg = 13'd0;
-  always @(posedge aclk) begin
-    if (ce_s5) begin
-      tlast_s5_reg <= tlast_s4_reg;
-      neg_i0_s5_reg <= neg_i0_s4_reg;
-      neg_q0_s5_reg <= neg_q0_s4_reg;
-      p_i0_s5_reg <= p_i0;
-      p_q0_s5_reg <= p_q0;
-    end
-  end
-
-  // ---------------------------------------------------------------- step 7: round
-  // the rounding shift by 7 (half-even); the saturation compare runs beside the add
-  // half-even: 2^(sh-1) - 1 + p[sh]
-  wire [6:0] rhalf_i0 = p_i0_s5_reg[7] ? 7'd64 : 7'd63;
-  wire [12:0] rsum_i0 = p_i0_s5_reg + {6'd0, rhalf_i0};
-  wire [14:0] oc_i0 = {2'd0, p_i0_s5_reg} + 15'd14399;
-  wire [14:0] od_i0 = {2'd0, p_i0_s5_reg} + 15'd14400;
-  wire ovf_i0 = p_i0_s5_reg[7] ? od_i0[14] : oc_i0[14];
-  wire [3:0] vo_i0 = rsum_i0[10:7];
-  // half-even: 2^(sh-1) - 1 + p[sh]
-  wire [6:0] rhalf_q0 = p_q0_s5_reg[7] ? 7'd64 : 7'd63;
-  wire [12:0] rsum_q0 = p_q0_s5_reg + {6'd0, rhalf_q0};
-  wire [14:0] oc_q0 = {2'd0, p_q0_s5_reg} + 15'd14399;
-  wire [14:0] od_q0 = {2'd0, p_q0_s5_reg} + 15'd14400;
-  wire ovf_q0 = p_q0_s5_reg[7] ? od_q0[14] : oc_q0[14];
-  wire [3:0] vo_q0 = rsum_q0[10:7];
-
-  // register stage 6 (after step "round")
-  reg  tlast_s6_reg = 1'd0;
-  reg  neg_i0_s6_reg = 1'd0;
-  reg  neg_q0_s6_reg = 1'd0;
-  reg  ovf_i0_s6_reg = 1'd0;
-  reg  [3:0] vo_i0_s6_reg = 4'd0;
-  reg  ovf_q0_s6_reg = 1'd0;
-  reg  [3:0] vo_q0_s6_reg = 4'd0;
-  always @(posedge aclk) begin
-    if (ce_s6) begin
-      tlast_s6_reg <= tlast_s5_reg;
-      neg_i0_s6_reg <= neg_i0_s5_reg;
-      neg_q0_s6_reg <= neg_q0_s5_reg;
-      ovf_i0_s6_reg <= ovf_i0;
-      vo_i0_s6_reg <= vo_i0;
-      ovf_q0_s6_reg <= ovf_q0;
-      vo_q0_s6_reg <= vo_q0;
-    end
-  end
-
-  // ---------------------------------------------------------------- step 8: sign
-  // symmetric saturation to +-15 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [3:0] s_i0 = ovf_i0_s6_reg ? 4'd15 : vo_i0_s6_reg;
-  wire signed [4:0] x_i0 = neg_i0_s6_reg ? ~$signed({1'd0, s_i0}) : $signed({1'd0, s_i0});
-  // LLR i0: positive means bit 0 is more likely
-  wire signed [4:0] llr_i0 = x_i0 + $signed({4'd0, neg_i0_s6_reg});
-  wire [3:0] s_q0 = ovf_q0_s6_reg ? 4'd15 : vo_q0_s6_reg;
-  wire signed [4:0] x_q0 = neg_q0_s6_reg ? ~$signed({1'd0, s_q0}) : $signed({1'd0, s_q0});
-  // LLR q0: positive means bit 0 is more likely
-  wire signed [4:0] llr_q0 = x_q0 + $signed({4'd0, neg_q0_s6_reg});
-
-  // register stage 7 (after step "sign")
-  reg  tlast_s7_reg = 1'd0;
-  reg  signed [4:0] llr_i0_s7_reg = 5'sd0;
-  reg  signed [4:0] llr_q0_s7_reg = 5'sd0;
-  always @(posedge aclk) begin
-    if (ce_s7) begin
-      tlast_s7_reg <= tlast_s6_reg;
-      llr_i0_s7_reg <= llr_i0;
-      llr_q0_s7_reg <= llr_q0;
+      llr_i0_s4_reg <= llr_i0;
+      llr_q0_s4_reg <= llr_q0;
     end
   end
 
   // ---------------------------------------------------------------- output word
-  assign m_axis_tdata = {llr_i0_s7_reg, llr_q0_s7_reg};
-  assign m_axis_tlast = tlast_s7_reg;
+  assign m_axis_tdata = {llr_i0_s4_reg, llr_q0_s4_reg};
+  assign m_axis_tlast = tlast_s4_reg;
 
   // bits that are provably constant or not needed (ranges from the generator)
-  wire unused_bits = ^{sum_i[7:6], sum_i[4:0], hsum_i[7:0], sum_q[7:6], sum_q[4:0], hsum_q[7:0], rsum_i0[12:11], rsum_i0[6:0], oc_i0[13:0], od_i0[13:0], rsum_q0[12:11], rsum_q0[6:0], oc_q0[13:0], od_q0[13:0]};
+  wire unused_bits = ^{rs_i0[6:0], rs_q0[6:0]};
 
 endmodule
 

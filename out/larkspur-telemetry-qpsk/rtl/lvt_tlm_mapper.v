@@ -82,7 +82,7 @@ module lvt_tlm_mapper (
   // the label, b0 (first bit in time) in the MSB
   wire [1:0] lab = in_tdata[1:0];
 
-  // ---------------------------------------------------------------- step 1: lookup
+  // ---------------------------------------------------------------- lookup (stage 0)
   // per axis: the axis label gathered from the label bits, the level code from a table
   // I axis label: b0
   wire idx_i = lab[1];
@@ -109,7 +109,7 @@ module lvt_tlm_mapper (
   endfunction
   wire signed [9:0] lvl_q = lvl_q_table(idx_q);
 
-  // register stage 0 (after step "lookup")
+  // register stage 0 (after lookup)
   reg  tlast_s0_reg = 1'd0;
   reg  signed [9:0] lvl_i_s0_reg = 10'sd0;
   reg  signed [9:0] lvl_q_s0_reg = 10'sd0;
