@@ -22,8 +22,9 @@ _TREADY = {(True, "shared"): "registered: a two-entry skid buffer at the input",
 
 
 def languages(design: Design) -> tuple[str, ...]:
-    """The HDLs this design is generated in."""
-    return ("verilog",)
+    """The HDLs this design is generated in (interface.language)."""
+    chosen = design.spec.interface.language
+    return ("verilog", "vhdl") if chosen == "both" else (chosen,)
 
 
 def rtl_path(module: Module, language: str) -> str:
@@ -37,7 +38,7 @@ def rtl_files(design: Design) -> dict[str, str]:
         backend = BACKENDS[language]
         for role, module in design_modules(design).items():
             what = f"{role} of design {design.spec.name}: synthesizable {backend.LANGUAGE}"
-            out[rtl_path(module, language)] = banner(design, what) + backend.module_text(module)
+            out[rtl_path(module, language)] = banner(design, what, backend.COMMENT) + backend.module_text(module)
     return out
 
 

@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-from . import verilog
+from . import verilog, vhdl
 from .names import KEYWORDS, hdl_name
 from .render import environment, render
 
 #: back ends by the value of interface.language they serve
-BACKENDS = {"verilog": verilog}
+BACKENDS = {"verilog": verilog, "vhdl": vhdl}
 
-__all__ = ["BACKENDS", "KEYWORDS", "environment", "hdl_name", "render", "verilog"]
+__all__ = ["BACKENDS", "KEYWORDS", "environment", "hdl_name", "render", "verilog", "vhdl"]

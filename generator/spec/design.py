@@ -96,7 +96,8 @@ class InterfaceSpec:
     mapper_stages: int = _f(0, "mapper register stages, latency in cycles (0: as many as it has steps)")
     demapper_stages: int = _f(0, "demapper register stages, latency in cycles (0: as many as it has steps)")
     target_mhz: float = _f(0.0, "target clock, MHz: the generator chooses both stage counts (0: off, use the *_stages)")
-    family: str = _f("ice40", "FPGA family whose delay model interface.target_mhz uses: ice40 or ecp5")
+    family: str = _f("ice40", "FPGA family whose delay model places the registers: ice40 or ecp5")
+    language: str = _f("verilog", "hardware description language of rtl/: verilog, vhdl or both")
     tlast: bool = _f(True, "carry s_axis_tlast to m_axis_tlast with its symbol")
     tuser_width: int = _f(0, "width of a tuser field carried with each symbol (0: none)")
     flow_control: str = _f("shared", "shared (one enable for every stage: fastest) or per-stage (empty stages fill while the output waits)")
@@ -272,6 +273,7 @@ class DesignSpec:
         _int("interface.tuser_width", i.tuser_width, 0, 62, " (the model carries it in int64 words)")
         _choice("interface.flow_control", i.flow_control, FLOW_CONTROLS)
         _choice("interface.family", i.family, FAMILIES)
+        _choice("interface.language", i.language, LANGUAGES)
         if not isinstance(i.skid, bool):
             raise SpecError("interface.skid", shown(i.skid), "true or false")
 

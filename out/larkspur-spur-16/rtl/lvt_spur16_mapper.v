@@ -25,11 +25,12 @@
 //   interface.demapper_stages = 0
 //   interface.target_mhz = 0.0
 //   interface.family = "ice40"
+//   interface.language = "verilog"
 //   interface.tlast = true
 //   interface.tuser_width = 0
 //   interface.flow_control = "shared"
 //   interface.skid = false
-// Content hash: 8577ce8be92cc156
+// Content hash: d589a6380a6e3318
 `timescale 1ns / 1ps
 `default_nettype none
 
