@@ -208,6 +208,139 @@ def test_markdown_shows_both_families() -> None:
             "ECP5 (300.0 MHz) mapper 1.50, demapper 0.80.") in md
 
 
+# --------------------------------------------------------------------------- hardware.json across runs (no tools)
+
+
+def _run(flows: dict[str, int], fmax: dict[str, float] | None = None, *, yosys: str = "Yosys Z", seed: int = 1,
+         content_hash: str | None = "h1", adder: dict[str, float] | None = None) -> dict:
+    """A result as estimate() returns it for these flows ({flow: demapper LUTs}) and families ({family: MHz})."""
+    fmax = fmax or {}
+
+    def figures(luts: int, mhz: dict[str, float] | None) -> dict:
+        out: dict = {"flows": {f: {"luts": luts if f == "ice40" else n, "ffs": 9, "brams": 0, "multipliers": 0,
+                                   "carries": 2, "cells": 30} for f, n in flows.items()}}
+        if mhz:
+            out["fmax"] = {fam: {"fmax_mhz": f, "logic_cells_wrapped": 40} for fam, f in mhz.items()}
+        return out
+
+    versions = {"yosys": yosys, **{f"nextpnr-{fam}": f"nextpnr-{fam} 1" for fam in fmax}}
+    return {"design": "d", "content_hash": content_hash, "tools": versions,
+            "parts": {fam: {k: tools.PARTS[fam][k] for k in tools.PART_KEYS} for fam in fmax},
+            "settings": {"flows": list(flows), "families": list(fmax), "seed": seed if fmax else None,
+                         "pnr_target_mhz": 250.0 if fmax else None, "wrapper": "w"},
+            "modules": {"mapper": {"module": "d_mapper", "latency_cycles": 1, "initiation_interval": 1,
+                                   "pipeline": [1], **figures(5, {k: 2 * v for k, v in fmax.items()})},
+                        "demapper": {"module": "d_demapper", "latency_cycles": 7, "initiation_interval": 1,
+                                     "pipeline": [1, 2], **figures(flows.get("ice40", 100), fmax)}},
+            "references": {"adder": {"module": "d_ref_adder", "width": 9, **figures(9, adder)}} if adder else {}}
+
+
+def test_cost_merges_flows_and_families() -> None:
+    """`cost --flows ecp5 --families ecp5` after an iCE40 run adds to it: per module, per flow, per family."""
+    old = _run({"generic": 120, "ice40": 100}, {"ice40": 200.0}, adder={"ice40": 250.0})
+    new = _run({"ecp5": 80}, {"ecp5": 240.0}, adder={"ecp5": 300.0})
+    merged = cost.merge_results(old, new)
+    assert merged["settings"]["flows"] == ["generic", "ice40", "ecp5"]
+    assert merged["settings"]["families"] == ["ice40", "ecp5"] and list(merged["parts"]) == ["ice40", "ecp5"]
+    assert merged["tools"] == {"nextpnr-ecp5": "nextpnr-ecp5 1", "nextpnr-ice40": "nextpnr-ice40 1", "yosys": "Yosys Z"}
+    dm = merged["modules"]["demapper"]
+    assert {f: v["luts"] for f, v in dm["flows"].items()} == {"generic": 120, "ice40": 100, "ecp5": 80}
+    assert {fam: v["fmax_mhz"] for fam, v in dm["fmax"].items()} == {"ice40": 200.0, "ecp5": 240.0}
+    assert dm["fmax"]["ice40"]["fmax_vs_adder"] == 0.8 and dm["fmax"]["ecp5"]["fmax_vs_adder"] == 0.8
+    assert list(merged["references"]["adder"]["fmax"]) == ["ice40", "ecp5"]
+    md = cost.markdown(merged)
+    assert "| `d_demapper` | 7 | 1 | 120 | 9 | 100 | 9 | 0 | 0 | 80 | 9 | 0 | 0 |" in md
+    assert "| `d_demapper` | 200.0 | 0.80 | 240.0 | 0.80 |" in md
+    assert "| `d_ref_adder` (reference) | 250.0 | - | 300.0 | - |" in md
+    # a newer figure of the same flow or family replaces the older one; the rest stays
+    again = cost.merge_results(merged, _run({"ice40": 90, "xilinx": 70}, {"ice40": 210.0}))
+    dm = again["modules"]["demapper"]
+    assert {f: v["luts"] for f, v in dm["flows"].items()} == {"generic": 120, "ice40": 90, "ecp5": 80, "xilinx": 70}
+    assert {fam: v["fmax_mhz"] for fam, v in dm["fmax"].items()} == {"ice40": 210.0, "ecp5": 240.0}
+    assert dm["fmax"]["ice40"]["fmax_vs_adder"] == 0.84                   # against the adder kept from before
+    assert again["settings"]["flows"] == ["generic", "ice40", "ecp5", "xilinx"]
+
+
+def test_cost_replaces_what_is_not_comparable() -> None:
+    old = _run({"ice40": 100}, {"ice40": 200.0})
+    # another design, another Yosys: the new run alone
+    for new in (_run({"ecp5": 80}, content_hash="h2"), _run({"ecp5": 80}, yosys="Yosys 0.40")):
+        assert cost.merge_results(old, new) == cost.merge_results(None, new) == new
+    # placed with another seed: the old family's Fmax goes (one seed per table), its synthesis stays
+    merged = cost.merge_results(old, _run({"ecp5": 80}, {"ecp5": 240.0}, seed=2))
+    assert list(merged["modules"]["demapper"]["fmax"]) == ["ecp5"] and merged["settings"]["families"] == ["ecp5"]
+    assert list(merged["modules"]["demapper"]["flows"]) == ["ice40", "ecp5"] and merged["settings"]["seed"] == 2
+    # placed again with another nextpnr and no references: the adder's earlier figure is not a fair divisor
+    with_adder = _run({"ice40": 100}, {"ice40": 200.0}, adder={"ice40": 250.0})
+    newer = _run({"ice40": 100}, {"ice40": 205.0})
+    newer["tools"]["nextpnr-ice40"] = "nextpnr-ice40 2"
+    merged = cost.merge_results(with_adder, newer)
+    assert "fmax" not in merged["references"]["adder"] and merged["tools"]["nextpnr-ice40"] == "nextpnr-ice40 2"
+    assert merged["modules"]["demapper"]["fmax"]["ice40"]["fmax_vs_adder"] is None
+    # synthesis only (--no-fmax): every earlier Fmax stays, with its seed and target
+    merged = cost.merge_results(old, _run({"ecp5": 80}))
+    assert merged["modules"]["demapper"]["fmax"]["ice40"]["fmax_mhz"] == 200.0
+    assert merged["settings"]["families"] == ["ice40"] and merged["settings"]["seed"] == 1
+    assert merged["settings"]["pnr_target_mhz"] == 250.0 and "nextpnr-ice40" in merged["tools"]
+    # a hardware.json of an earlier version (no content hash) merges when the modules are the same
+    assert "ice40" in cost.merge_results({**old, "content_hash": None}, _run({"ecp5": 80}))["settings"]["flows"]
+    changed = _run({"ecp5": 80})
+    changed["modules"]["demapper"]["latency_cycles"] = 8
+    assert cost.merge_results({**old, "content_hash": None}, {**changed, "content_hash": None})["settings"]["flows"] \
+        == ["ecp5"]
+
+
+def test_fmax_ratio_is_rounded_once() -> None:
+    """The table and the sentences show the same figure: the stored ratio at two decimals (0.71, never 0.7)."""
+    result = _run({"ice40": 100}, {"ecp5": 230.31}, adder={"ecp5": 326.4})
+    cost._ratios(result)
+    assert result["modules"]["demapper"]["fmax"]["ecp5"]["fmax_vs_adder"] == 0.7056
+    md = cost.markdown(result)
+    assert "| `d_demapper` | 230.3 | 0.71 |" in md
+    assert "ECP5 (326.4 MHz) mapper 1.41, demapper 0.71." in md
+    import re
+
+    shown = re.findall(r"\b\d+\.\d+\b", md.split("Fmax / adder |")[1])
+    assert "0.7" not in shown and "0.706" not in shown and shown.count("0.71") == 2
+
+
+def test_cost_write_report_merges_on_disk(tmp_path: Path) -> None:
+    """write_report keeps the earlier flows in hardware.json, writes hardware.md from the merged figures and
+    assembles report.md again (no tools: hand-made results for a generated design)."""
+    src = cost.build_source(DesignSpec(name="t-m").with_settings({"constellation.order": 4}), tmp_path)
+    h = src.manifest["content_hash"]
+    cost.write_report(src, {k: v for k, v in _run({"generic": 120, "ice40": 100}, {"ice40": 200.0},
+                                                    adder={"ice40": 250.0}).items() if k != "content_hash"})
+    cost.write_report(src, {k: v for k, v in _run({"xilinx": 70}).items() if k != "content_hash"})
+    report = src.root / "report"
+    data = json.loads((report / "hardware.json").read_text())
+    assert data["content_hash"] == h and data["settings"]["flows"] == ["generic", "ice40", "xilinx"]
+    assert data["modules"]["demapper"]["fmax"]["ice40"]["fmax_vs_adder"] == 0.8
+    md = (report / "hardware.md").read_text()
+    assert md == cost.markdown(data) and "Xilinx 7 LUTs" in md and "iCE40 Fmax / adder" in md
+    text = (report / "report.md").read_text()
+    assert md.strip() in text and text.startswith("# Design review: d\n")
+    assert sorted(p.name for p in report.iterdir()) == ["hardware.json", "hardware.md", "report.md"]
+
+
+@pytest.mark.synth
+@pytest.mark.skipif(not shutil.which("yosys"), reason="yosys not installed")
+def test_cost_runs_add_up(tmp_path: Path) -> None:
+    """Two real synthesis-only runs on different flows: hardware.json and hardware.md hold both."""
+    src = cost.build_source(DesignSpec(name="t-add").with_settings({"constellation.order": 4}), tmp_path)
+    assert main(["cost", str(src.root), "--flows", "generic", "--no-fmax", "--no-reference", "--quiet"]) == 0
+    first = json.loads((src.root / "report" / "hardware.json").read_text())
+    assert main(["cost", str(src.root), "--flows", "ice40", "--no-fmax", "--no-reference", "--quiet"]) == 0
+    data = json.loads((src.root / "report" / "hardware.json").read_text())
+    assert data["settings"]["flows"] == ["generic", "ice40"]
+    for role in ("mapper", "demapper"):
+        assert data["modules"][role]["flows"]["generic"] == first["modules"][role]["flows"]["generic"]
+        assert data["modules"][role]["flows"]["ice40"]["luts"] > 0
+    md = (src.root / "report" / "hardware.md").read_text()
+    assert "generic 4-LUT LUTs" in md and "iCE40 LUTs" in md
+    assert md.strip() in (src.root / "report" / "report.md").read_text()
+
+
 def test_not_a_design(tmp_path: Path, capsys) -> None:
     assert main(["cost", str(tmp_path)]) == 2
     assert "a directory written by `qamsmith generate`" in capsys.readouterr().err

@@ -16,6 +16,7 @@ design and tool versions give the same figures.
 
 from __future__ import annotations
 
+import copy
 import json
 import shutil
 import tempfile
@@ -30,7 +31,7 @@ from ..ir.references import adder_module, bruteforce_module, widest_adder
 from ..model import derive
 from ..spec import DesignSpec
 from ..version import __version__
-from .report import splice_hardware
+from .report import rebuild_report
 from .tools import (FLOWS, PART_KEYS, PARTS, PNR_FAMILIES, PNR_TARGET_MHZ, SEED, YOSYS_TIMEOUT_S, ToolFailed,
                     Tools, available_flows, check_families, find_tools, nextpnr_missing, part_title, place_route,
                     synthesize)
@@ -273,7 +274,18 @@ def _cell(v: Any) -> str:
     return str(v)
 
 
+def _ratio_text(r: float | None) -> str:
+    """An Fmax ratio as the table and the sentences show it: the stored figure rounded once, to two decimals."""
+    return "-" if r is None else f"{r:.2f}"
+
+
 _FLOW_UNITS = {"ice40": ("BRAM", "mult"), "ecp5": ("EBR", "DSP"), "xilinx": ("BRAM", "DSP")}
+
+
+def _modules(result: dict[str, Any]) -> list[tuple[str, dict[str, Any]]]:
+    """(role, figures) in the order of ROLES, whatever order hardware.json was read in."""
+    mods = result["modules"]
+    return [(role, mods[role]) for role in [*ROLES, *sorted(set(mods) - set(ROLES))] if role in mods]
 
 
 def markdown(result: dict[str, Any]) -> str:
@@ -292,13 +304,13 @@ def markdown(result: dict[str, Any]) -> str:
         if f in _FLOW_UNITS:
             head += [f"{_FLOW_TITLES[f]} {u}" for u in _FLOW_UNITS[f]]
     lines += ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
-    rows = [(fig["module"], fig) for fig in result["modules"].values()]
+    rows = [(f"`{fig['module']}`", fig) for _, fig in _modules(result)]
     refs = result["references"]
     for key in ("maxlog_demapper", "bruteforce_demapper", "adder"):
         if "flows" in refs.get(key, {}):
-            rows.append((f"{refs[key]['module']} (reference)", refs[key]))
+            rows.append((f"`{refs[key]['module']}` (reference)", refs[key]))
     for name, fig in rows:
-        row = [f"`{name}`", _cell(fig.get("latency_cycles")), _cell(fig.get("initiation_interval"))]
+        row = [name, _cell(fig.get("latency_cycles")), _cell(fig.get("initiation_interval"))]
         for f in flows:
             fl = fig["flows"].get(f, {})
             row += [_cell(fl.get("luts")), _cell(fl.get("ffs"))]
@@ -317,11 +329,10 @@ def markdown(result: dict[str, Any]) -> str:
         for name, fig in rows:
             if "fmax" not in fig:
                 continue
-            row = [f"`{name}`"]
+            row = [name]
             for fam in families:
                 fm = fig["fmax"].get(fam, {})
-                ratio = fm.get("fmax_vs_adder")
-                row += [_cell(fm.get("fmax_mhz")), "-" if ratio is None else f"{ratio:.2f}"]
+                row += [_cell(fm.get("fmax_mhz")), _ratio_text(fm.get("fmax_vs_adder"))]
             lines.append("| " + " | ".join(row) + " |")
     lines.append("")
     lines += summary_lines(result)
@@ -342,7 +353,7 @@ def summary_lines(result: dict[str, Any]) -> list[str]:
     adder = refs.get("adder", {})
     per_family = []
     for fam, fm in adder.get("fmax", {}).items():
-        ratios = [f"{role} {fig['fmax'][fam]['fmax_vs_adder']:.2f}" for role, fig in result["modules"].items()
+        ratios = [f"{role} {_ratio_text(fig['fmax'][fam]['fmax_vs_adder'])}" for role, fig in _modules(result)
                   if fig.get("fmax", {}).get(fam, {}).get("fmax_vs_adder") is not None]
         per_family.append(f"{_FLOW_TITLES[fam]} ({fm['fmax_mhz']:.1f} MHz) {', '.join(ratios)}")
     if per_family:
@@ -350,17 +361,94 @@ def summary_lines(result: dict[str, Any]) -> list[str]:
     return out
 
 
+# --------------------------------------------------------------------------- hardware.json across runs
+
+
+def _same_design(old: dict[str, Any], new: dict[str, Any]) -> bool:
+    """Whether two results measured the same design: its content hash, or (a file without one) its modules."""
+    if old.get("content_hash") and new.get("content_hash"):
+        return old["content_hash"] == new["content_hash"]
+    mods = old.get("modules")
+    return (old.get("design") == new.get("design") and isinstance(mods, dict)
+            and all(isinstance(mods.get(role), dict)
+                    and all(mods[role].get(k) == fig.get(k) for k in ("module", "latency_cycles", "pipeline"))
+                    for role, fig in new["modules"].items()))
+
+
+def _merge_entry(old: dict[str, Any] | None, new: dict[str, Any] | None, keep_families: set[str]) -> dict[str, Any]:
+    """One module's (or reference's) figures: the new flows and families over the old; old families only if kept."""
+    old, new = old or {}, new or {}
+    base = copy.deepcopy(new or old)
+    flows = {**old.get("flows", {}), **new.get("flows", {})}
+    if flows:
+        base["flows"] = {f: copy.deepcopy(flows[f]) for f in [*FLOWS, *sorted(flows)] if f in flows}
+    fmax = {fam: fig for fam, fig in old.get("fmax", {}).items() if fam in keep_families}
+    fmax.update(new.get("fmax", {}))
+    base.pop("fmax", None)
+    if fmax:
+        base["fmax"] = {fam: copy.deepcopy(fmax[fam]) for fam in [*PNR_FAMILIES, *sorted(fmax)] if fam in fmax}
+    return base
+
+
+def merge_results(old: dict[str, Any] | None, new: dict[str, Any]) -> dict[str, Any]:
+    """hardware.json after a run: the new figures over the earlier ones, per module, per flow, per family.
+
+    A figure of a flow or family the new run measured replaces the earlier one; the others stay as long as
+    they are comparable: the same design (content hash) and Yosys version, and for an earlier Fmax the same
+    nextpnr seed and target (when the new run placed anything) and, on a family placed again, the same
+    nextpnr. What is not comparable is dropped. The ratios are computed again on the merged figures."""
+    merged = copy.deepcopy(new)
+    if (not isinstance(old, dict) or not isinstance(old.get("settings"), dict) or not _same_design(old, new)
+            or old.get("tools", {}).get("yosys") != new["tools"].get("yosys")):
+        return merged
+    before, now = old["settings"], new["settings"]
+    old_tools = old.get("tools", {})
+    placed = list(now.get("families") or [])
+    same_place = not placed or (before.get("seed"), before.get("pnr_target_mhz")) == (now.get("seed"),
+                                                                                      now.get("pnr_target_mhz"))
+    keep = {fam for fam in before.get("families") or [] if same_place and (
+        fam not in placed or old_tools.get(f"nextpnr-{fam}") == new["tools"].get(f"nextpnr-{fam}"))}
+    settings = merged["settings"]
+    flows = {*before.get("flows", []), *now.get("flows", [])}
+    settings["flows"] = [f for f in FLOWS if f in flows]
+    settings["families"] = [fam for fam in PNR_FAMILIES if fam in keep or fam in placed]
+    if not placed and keep:
+        settings["seed"], settings["pnr_target_mhz"] = before.get("seed"), before.get("pnr_target_mhz")
+    merged["parts"] = {fam: copy.deepcopy((new["parts"] if fam in placed else old.get("parts", {})).get(fam))
+                       for fam in settings["families"]}
+    tools = dict(new["tools"])
+    for fam in keep - set(placed):                     # the nextpnr that measured an Fmax kept from before
+        if f"nextpnr-{fam}" in old_tools:
+            tools[f"nextpnr-{fam}"] = old_tools[f"nextpnr-{fam}"]
+    merged["tools"] = dict(sorted(tools.items()))
+    for part in ("modules", "references"):
+        entries = {**old.get(part, {}), **new[part]}
+        merged[part] = {key: _merge_entry(old.get(part, {}).get(key), new[part].get(key), keep) for key in entries}
+    _ratios(merged)
+    return merged
+
+
+def _read_result(path: Path) -> dict[str, Any] | None:
+    """An earlier hardware.json (None when there is none, or it is not one qamsmith could have written)."""
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    return data if isinstance(data, dict) else None
+
+
 def write_report(dd: DesignDirectory, result: dict[str, Any]) -> tuple[Path, Path]:
-    """report/hardware.json and report/hardware.md of the design (each written atomically)."""
+    """report/hardware.json: this run's figures merged into the earlier ones (merge_results); report/hardware.md
+    from the merged figures; report.md assembled again (report.rebuild_report). Each file is written atomically."""
     folder = dd.root / REPORT_DIR
     paths = (folder / "hardware.json", folder / "hardware.md")
-    write_file(paths[0], json.dumps(result, sort_keys=True, indent=2) + "\n", key="report")
-    write_file(paths[1], markdown(result), key="report")
-    report_md = folder / "report.md"
-    if report_md.is_file():                          # `qamsmith analyze` wrote a report: put the figures in it
-        write_file(report_md, splice_hardware(report_md.read_text(encoding="utf-8"), markdown(result)), key="report")
+    merged = merge_results(_read_result(paths[0]), {**result, "content_hash": dd.manifest.get("content_hash")})
+    write_file(paths[0], json.dumps(merged, sort_keys=True, indent=2) + "\n", key="report")
+    write_file(paths[1], markdown(merged), key="report")
+    rebuild_report(folder)
     return paths
 
 
 __all__ = ["DEFAULT_FLOWS", "PNR_FAMILIES", "REFERENCES", "ROLES", "build_source", "estimate", "markdown",
-           "maxlog_variant", "missing_families", "reference_banner", "summary_lines", "wrapper_context", "write_report"]
+           "maxlog_variant", "merge_results", "missing_families", "reference_banner", "summary_lines",
+           "wrapper_context", "write_report"]

@@ -1,28 +1,44 @@
-"""The design-review report: `qamsmith analyze` writes out/<name>/report/ (PNG plots, report.md, JSON).
+"""The design-review report: out/<name>/report/ (PNG plots, report.md and the JSON behind them).
 
-matplotlib is imported only here and only when a report is drawn (Agg backend, no display).
-The directory is built in a temporary directory beside its target and renamed into place, so
-an error leaves the previous report (or nothing) behind, never half a report.
+Several commands write into report/: `qamsmith analyze` (analysis.json, widths.json, the plots),
+`qamsmith widths` (widths.json), `qamsmith cost` (hardware.json, hardware.md) and any later command
+with a section in `SECTIONS`. None of them removes what another wrote, and report.md is assembled
+again from every JSON present (`rebuild_report`) each time one of them writes, so it never lags
+behind its data.
+
+matplotlib is imported only here and only when a plot is drawn (Agg backend, no display). A plot
+drawn from a JSON file carries that file's hash in its PNG text, so a rebuild redraws it only when
+the data changed (and needs no matplotlib otherwise). `analyze` builds the whole directory beside
+its target and renames it into place; the other commands replace single files, each atomically.
 """
 
 from __future__ import annotations
 
+import hashlib
+import importlib.util
+import json
 import tempfile
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable, Iterable
 
 import numpy as np
 
-from ..artifacts import probe_directory, replace_directory
+from ..artifacts import REPORT_DIR, probe_directory, replace_directory, write_file
 from ..errors import SpecError
-from ..model import Design, demap, derive
+from ..model import Design, demap, derive, hard_decisions
+from ..numbers import label_bits
 from ..spec import DesignSpec
 from ..version import __version__
 from . import analysis as an
 
 #: received-cloud plot: symbols drawn
 CLOUD_SYMBOLS = 4000
+#: the cloud plot widens its view to the input full scale when that is at most this many times the cloud's reach
+CLOUD_FULL_SCALE_REACH = 1.5
 PLOTS = ("constellation.png", "cloud.png", "llr_transfer.png", "ber.png", "gmi.png", "loss_vs_width.png")
+#: PNG text key naming the JSON (and its hash) a plot was drawn from
+SOURCE_KEY = "Source"
 
 
 def _pyplot():
@@ -39,16 +55,54 @@ def _pyplot():
     return plt
 
 
-def _save(fig: Any, path: Path) -> None:
-    # no Software/date metadata: same spec, same bytes
-    fig.savefig(path, metadata={"Software": None}, bbox_inches="tight")
+def _have_matplotlib() -> bool:
+    return importlib.util.find_spec("matplotlib") is not None
+
+
+def _save(fig: Any, path: Path, source: str | None = None) -> None:
+    # no Software/date metadata: same spec, same bytes; `source` names the data the plot was drawn from
+    metadata: dict[str, str | None] = {"Software": None}
+    if source is not None:
+        metadata[SOURCE_KEY] = source
+    fig.savefig(path, metadata=metadata, bbox_inches="tight")
     fig.clf()
 
 
-# --------------------------------------------------------------------------- plots
+def _png_text(data: bytes) -> dict[str, str]:
+    """The tEXt entries of a PNG file's bytes (empty when it is not a PNG)."""
+    out: dict[str, str] = {}
+    if data[:8] != b"\x89PNG\r\n\x1a\n":
+        return out
+    pos = 8
+    while pos + 8 <= len(data):
+        length = int.from_bytes(data[pos:pos + 4], "big")
+        kind = data[pos + 4:pos + 8]
+        if kind == b"IEND":
+            break
+        if kind == b"tEXt":
+            key, _, value = data[pos + 8:pos + 8 + length].partition(b"\0")
+            out[key.decode("latin-1")] = value.decode("latin-1")
+        pos += 12 + length
+    return out
 
 
-def plot_constellation(plt: Any, design: Design, path: Path) -> None:
+def _linear_threshold(half_widths: Iterable[float | None], default: float) -> float:
+    """The linear range of a symlog axis: the power of ten at or below the median 95 % half-width (the
+    Monte-Carlo resolution), so differences the simulation cannot resolve are drawn on a linear scale."""
+    h = [float(v) for v in half_widths if v is not None and np.isfinite(v) and v > 0]
+    if not h:
+        return default
+    return float(10.0 ** np.clip(np.floor(np.log10(np.median(h))), -6, -1))
+
+
+def _values(points: list[dict[str, Any]], key: str) -> np.ndarray:
+    return np.array([np.nan if p.get(key) is None else p[key] for p in points], dtype=float)
+
+
+# --------------------------------------------------------------------------- plots of the design (analyze only)
+
+
+def plot_constellation(plt: Any, design: Design) -> Any:
     """The fixed-point mapper's output codes with their labels (binary, b0 first)."""
     const = design.constellation
     k = const.bits
@@ -69,40 +123,53 @@ def plot_constellation(plt: Any, design: Design, path: Path) -> None:
     lim = max(np.max(np.abs(pi)), np.max(np.abs(pq)), 1) * 1.15
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
-    _save(fig, path)
+    return fig
 
 
-def plot_cloud(plt: Any, design: Design, esn0_db: float, seed: int, path: Path) -> None:
-    """A received cloud at one Es/N0 in demapper input codes, with the decision boundaries and full scale."""
+def plot_cloud(plt: Any, design: Design, esn0_db: float, seed: int) -> Any:
+    """A received cloud at one Es/N0 in demapper input codes: symbols whose nearest point is not the one
+    sent in red, the decision boundaries, and the input full scale when it is near the cloud."""
     chain = an.Chain(design)
     _, kept = chain.run(esn0_db, CLOUD_SYMBOLS, seed, floats=False, keep=CLOUD_SYMBOLS)
     f = design.spec.demapper.input_fraction
-    fig, ax = plt.subplots(figsize=(6.4, 6.4))
-    ax.scatter(kept["i"], kept["q"], s=1.5, c=kept["labels"] % 10, cmap="tab10", alpha=0.6, zorder=2)
     const = design.constellation
+    wrong = np.any(hard_decisions(design, kept["i"], kept["q"]) != label_bits(kept["labels"], const.bits), axis=1)
+    n, n_wrong = int(wrong.size), int(np.count_nonzero(wrong))
+    fig, ax = plt.subplots(figsize=(6.4, 7.0), constrained_layout=True)
+    ax.scatter(kept["i"][~wrong], kept["q"][~wrong], s=2, color="C0", alpha=0.6, zorder=2, linewidths=0,
+               label=f"nearest point is the one sent ({n - n_wrong})")
+    ax.scatter(kept["i"][wrong], kept["q"][wrong], s=3, color="C3", alpha=0.9, zorder=3, linewidths=0,
+               label=f"symbol error ({n_wrong}, {100.0 * n_wrong / max(n, 1):.1f} %)")
     if const.axes is not None:
         for comp, axis in enumerate(const.axes):
             L = axis.levels
-            for n in range(1, L):
-                edge = (2 * n - L) << f          # midway between levels n-1 and n, in input codes
+            for m in range(1, L):
+                edge = (2 * m - L) << f          # midway between levels m-1 and m, in input codes
                 if comp == 0:
-                    ax.axvline(edge, color="k", lw=0.6, zorder=3)
+                    ax.axvline(edge, color="k", lw=0.6, zorder=4)
                 else:
-                    ax.axhline(edge, color="k", lw=0.6, zorder=3)
+                    ax.axhline(edge, color="k", lw=0.6, zorder=4)
     ifmt = design.input_format
     lo, hi = ifmt.min_code, ifmt.max_code
-    ax.plot([lo, hi, hi, lo, lo], [lo, lo, hi, hi, lo], color="C3", lw=1.0, zorder=4, label="input full scale")
     reach = max(np.max(np.abs(kept["i"])), np.max(np.abs(kept["q"])), 1) * 1.1
     lim = min(max(reach, (max(np.max(np.abs(const.points.real)), 1) + 1) * 2 ** f), hi * 1.1)
+    scale_note = ""
+    if hi <= CLOUD_FULL_SCALE_REACH * lim:       # the full scale is near the cloud: widen the view to show it
+        lim = max(lim, hi * 1.06)
+        ax.plot([lo, hi, hi, lo, lo], [lo, lo, hi, hi, lo], color="C1", lw=1.2, zorder=5,
+                label=f"input full scale ({lo} to {hi})")
+    else:
+        scale_note = f"; input full scale {lo} to {hi}, outside this view"
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
     ax.set_aspect("equal")
-    ax.set_title(f"received cloud at Es/N0 = {esn0_db:.2f} dB ({CLOUD_SYMBOLS} symbols), demapper input codes\n"
-                 "lines: hard-decision boundaries" + ("" if const.axes is not None else " (2-D search: not drawn)"))
+    ax.set_title(f"received cloud at Es/N0 = {esn0_db:.2f} dB ({n} symbols), demapper input codes\n"
+                 + ("black lines: hard-decision boundaries" if const.axes is not None
+                    else "2-D search: boundaries not drawn") + scale_note)
     ax.set_xlabel("I input code")
     ax.set_ylabel("Q input code")
-    ax.legend(loc="upper right", fontsize=7)
-    _save(fig, path)
+    fig.legend(loc="outside lower center", ncol=3, fontsize=8, markerscale=4, frameon=False)
+    return fig
 
 
 def llr_transfer(design: Design, scale_code: int | None = None) -> tuple[np.ndarray, np.ndarray, list[int]]:
@@ -123,7 +190,7 @@ def llr_transfer(design: Design, scale_code: int | None = None) -> tuple[np.ndar
     return i, llr, cols
 
 
-def plot_llr_transfer(plt: Any, design: Design, path: Path, esn0_db: float) -> None:
+def plot_llr_transfer(plt: Any, design: Design, esn0_db: float) -> Any:
     """LLR code of each I bit against the I input code (Q input 0), the hardware's transfer curves."""
     code = an.Chain(design).reliability(10.0 ** (-esn0_db / 10.0))
     i, llr, cols = llr_transfer(design, code)
@@ -144,11 +211,15 @@ def plot_llr_transfer(plt: Any, design: Design, path: Path, esn0_db: float) -> N
                  + ("" if code is None else f"\nreliability code {code} (1/N0 at Es/N0 {esn0_db:.2f} dB)"))
     ax.set_xlabel("I input code (Q input = 0)")
     ax.set_ylabel("hard bit" if alg == "hard" else "LLR code (positive: bit 0)")
-    ax.legend(fontsize=7, ncol=min(len(cols), 6))
-    _save(fig, path)
+    ax.legend(fontsize=8, ncol=min(len(cols), 6))
+    return fig
 
 
-def plot_ber(plt: Any, doc: dict[str, Any], path: Path) -> None:
+# --------------------------------------------------------------------------- plots of a JSON (redrawn by rebuild_report)
+
+
+def plot_ber(plt: Any, doc: dict[str, Any]) -> Any:
+    """BER of the fixed point (95 % intervals) against theory and the float nearest-point decision."""
     pts = doc["points"]
     x = np.array([p["esn0_db"] for p in pts])
     fig, ax = plt.subplots(figsize=(7.5, 4.8))
@@ -171,60 +242,100 @@ def plot_ber(plt: Any, doc: dict[str, Any], path: Path) -> None:
     ax.set_xlabel("Es/N0 (dB)")
     ax.set_ylabel("bit error rate (hard decisions)")
     ax.set_title(f"{doc['design']}: BER, {doc['symbols']} symbols per point")
-    ax.legend(fontsize=7)
-    _save(fig, path)
+    ax.legend(fontsize=8)
+    return fig
 
 
-def plot_gmi(plt: Any, doc: dict[str, Any], path: Path) -> None:
+def plot_gmi(plt: Any, doc: dict[str, Any]) -> Any:
+    """GMI against Es/N0 (top) and what is lost (below): the GMI gap to float exact log-MAP with 95 % intervals."""
     pts = doc["points"]
-    x = np.array([p["esn0_db"] for p in pts])
-    fig, ax = plt.subplots(figsize=(7.5, 4.8))
-    fine = np.linspace(x.min(), x.max(), 200)
+    x = np.array([p["esn0_db"] for p in pts], dtype=float)
     k = doc["bits_per_symbol"]
-    ax.plot(fine, np.minimum(an.shannon_capacity(fine), 1e9), color="0.6", lw=1.0, label="Shannon log2(1 + Es/N0)")
+    op = doc["operating_point_esn0_db"]
+    fig, (ax, gap_ax) = plt.subplots(2, 1, figsize=(7.5, 7.8), sharex=True, height_ratios=(3, 2),
+                                     constrained_layout=True)
+    fine = np.linspace(x.min(), x.max(), 200)
+    ax.plot(fine, an.shannon_capacity(fine), color="0.6", lw=1.0, label="Shannon log2(1 + Es/N0)")
     ax.axhline(k, color="0.6", ls=":", lw=0.8)
-    for key, style, name in (("gmi_exact", "-", "float exact log-MAP"), ("gmi_maxlog", "--", "float max-log"),
-                             ("gmi_fixed", "o", "fixed point (bit-exact)")):
-        y = [p[key] for p in pts]
+    for key, style, color, name in (("gmi_exact", "-", "C0", "float exact log-MAP"),
+                                    ("gmi_maxlog", "--", "C1", "float max-log"),
+                                    ("gmi_fixed", "o", "C2", "fixed point (bit-exact)")):
+        y = _values(pts, key)
         if style == "o":
-            ax.plot(x, y, "o", ms=4, label=name)
+            ax.plot(x, y, "o", ms=4, color=color, label=name)
         else:
-            ax.plot(x, y, style, lw=1.2, label=name)
-    ax.axvline(doc["operating_point_esn0_db"], color="C3", ls="--", lw=0.8, label="operating point")
+            ax.plot(x, y, style, lw=1.2, color=color, label=name)
+    ax.axvline(op, color="C3", ls="--", lw=0.8, label="operating point")
     ax.axhline(doc["operating_point_gmi"], color="C3", ls=":", lw=0.6)
-    ax.set_ylim(0, k * 1.08)
-    ax.set_xlabel("Es/N0 (dB)")
+    shown = np.concatenate([_values(pts, key) for key in ("gmi_exact", "gmi_maxlog", "gmi_fixed")])
+    low = float(np.nanmin(shown)) if np.isfinite(shown).any() else 0.0
+    ax.set_ylim(max(0.0, low - 0.06 * k), k * 1.04)
     ax.set_ylabel("BICM GMI (bits/symbol)")
     ax.set_title(f"{doc['design']}: GMI (LLRs scaled by their best factor)")
-    ax.legend(fontsize=7, loc="lower right")
-    _save(fig, path)
+    ax.legend(fontsize=8, loc="lower right")
+
+    exact = _values(pts, "gmi_exact")
+    series = (("fixed", "gmi_fixed", "o", "C2", "float exact - fixed point"),
+              ("maxlog", "gmi_maxlog", "s", "C1", "float exact - float max-log"))
+    halves: list[float | None] = []
+    for name, key, marker, color, label in series:
+        gap = exact - _values(pts, key)
+        cis = [p.get(f"gmi_gap_{name}_vs_exact_ci95") for p in pts]
+        lo = np.array([np.nan if c is None else c[0] for c in cis], dtype=float)
+        hi = np.array([np.nan if c is None else c[1] for c in cis], dtype=float)
+        halves += list((hi - lo) / 2)
+        err = [np.where(np.isnan(lo), 0.0, gap - lo), np.where(np.isnan(hi), 0.0, hi - gap)]
+        gap_ax.errorbar(x, gap, yerr=err, fmt=marker + "-", ms=3.5, lw=0.8, capsize=2.5, color=color,
+                        label=label + (", 95 %" if np.isfinite(lo).any() else " (no interval in analysis.json)"))
+    lt = _linear_threshold(halves, 1e-4)
+    gap_ax.set_yscale("symlog", linthresh=lt)
+    gap_ax.axhspan(-lt, lt, color="0.9", zorder=0, lw=0, label=f"linear part of the axis (|gap| < {lt:g})")
+    gap_ax.axhline(0.0, color="0.4", lw=0.6)
+    gap_ax.axvline(op, color="C3", ls="--", lw=0.8)
+    gap_ax.set_xlabel("Es/N0 (dB)")
+    gap_ax.set_ylabel("GMI gap (bits/symbol, symlog)")
+    gap_ax.set_title(f"loss at the operating point ({op:.2f} dB, horizontal distance): "
+                     f"{_f(doc.get('loss_db_vs_exact'))} dB {_ci(doc.get('loss_db_vs_exact_ci95'))} vs float "
+                     f"exact,\n{_f(doc.get('loss_db_vs_maxlog'))} dB {_ci(doc.get('loss_db_vs_maxlog_ci95'))} "
+                     "vs float max-log (95 % intervals)", fontsize=9)
+    gap_ax.legend(fontsize=8, loc="upper right")
+    return fig
 
 
-def plot_widths(plt: Any, widths: dict[str, Any], path: Path) -> None:
+def plot_widths(plt: Any, widths: dict[str, Any]) -> Any:
+    """Loss (dB, 95 % intervals) against each stage's width on a symlog axis, so losses at or below zero show."""
     stages = [s for s in ("mapper", "input", "llr") if widths.get(f"{s}_best")]
-    fig, axes = plt.subplots(1, len(stages), figsize=(4.6 * len(stages), 3.8), squeeze=False,
+    fig, axes = plt.subplots(1, len(stages), figsize=(4.6 * len(stages), 4.4), squeeze=False,
                              constrained_layout=True)
     names = {"mapper": "mapper width (bits)", "input": "demapper input width (best fraction)",
              "llr": "LLR width (best fraction)"}
+    cis = [r.get("loss_db_ci95") for s in stages for r in widths[f"{s}_best"]]
+    lt = _linear_threshold([(c[1] - c[0]) / 2 for c in cis if c], 1e-4)
+    legend: dict[str, Any] = {}
     for ax, s in zip(axes[0], stages):
         rows = widths[f"{s}_best"]
         w = np.array([r["width"] for r in rows])
-        loss = np.array([r["loss_db"] for r in rows])
-        ci = np.array([r["loss_db_ci95"] for r in rows])
-        shown = np.maximum(loss, 1e-4)
-        ax.errorbar(w, shown, yerr=[np.maximum(shown - np.maximum(ci[:, 0], 1e-5), 0),
-                                    np.maximum(ci[:, 1] - shown, 0)], fmt="o-", ms=3, capsize=2)
-        ax.set_yscale("log")
-        ax.axhline(widths["stage_share_db"], color="C3", ls="--", lw=0.8, label="stage share of budget")
-        ax.axhline(widths["budget_db"], color="C3", ls=":", lw=0.8, label="budget")
+        loss = np.array([r["loss_db"] for r in rows], dtype=float)
+        lo = np.array([r["loss_db_ci95"][0] if r.get("loss_db_ci95") else np.nan for r in rows], dtype=float)
+        hi = np.array([r["loss_db_ci95"][1] if r.get("loss_db_ci95") else np.nan for r in rows], dtype=float)
+        ax.errorbar(w, loss, yerr=[np.where(np.isnan(lo), 0.0, loss - lo), np.where(np.isnan(hi), 0.0, hi - loss)],
+                    fmt="o-", ms=3.5, capsize=2.5, color="C0", label="loss against the reference, 95 % interval")
+        ax.set_yscale("symlog", linthresh=lt)
+        ax.axhspan(-lt, lt, color="0.9", zorder=0, lw=0, label=f"linear part of the axis (|loss| < {lt:g} dB)")
+        ax.axhline(0.0, color="0.4", lw=0.6)
+        ax.axhline(widths["stage_share_db"], color="C3", ls="--", lw=0.9, label="stage share of the budget")
+        ax.axhline(widths["budget_db"], color="C3", ls=":", lw=0.9, label="budget")
         pick = widths["chosen"].get(s)
         if pick:
-            ax.axvline(pick["width"], color="C2", lw=0.8, label="chosen")
+            ax.axvline(pick["width"], color="C2", lw=0.9, label="chosen width")
+        ax.xaxis.set_major_locator(plt.MaxNLocator(integer=True))
         ax.set_xlabel(names[s])
-        ax.set_ylabel("loss at operating point (dB, floor 1e-4)")
-        ax.legend(fontsize=6)
+        ax.set_ylabel("loss at the operating point (dB, symlog)")
+        for handle, label in zip(*ax.get_legend_handles_labels()):
+            legend.setdefault(label, handle)
     fig.suptitle(f"loss against width at Es/N0 = {widths['operating_point_esn0_db']:.2f} dB (vs wide reference)")
-    _save(fig, path)
+    fig.legend(list(legend.values()), list(legend), loc="outside lower center", ncol=3, fontsize=9, frameon=False)
+    return fig
 
 
 # --------------------------------------------------------------------------- report.md
@@ -240,26 +351,8 @@ def _ci(ci: Any, fmt: str = ".4f") -> str:
     return "n/a" if not ci else f"[{format(ci[0], fmt)}, {format(ci[1], fmt)}]"
 
 
-#: files `qamsmith cost` writes into report/; `qamsmith analyze` keeps them when it rewrites the report
-HARDWARE_FILES = ("hardware.json", "hardware.md")
-_HW_BEGIN = "<!-- hardware: from qamsmith cost -->"
-_HW_END = "<!-- /hardware -->"
-
-
-def hardware_section(hardware_md: str | None) -> str:
-    """The report's hardware part: report/hardware.md between markers, or how to produce it."""
-    body = hardware_md.strip() if hardware_md else (
-        "## Hardware cost\n\nNot measured yet: `qamsmith cost <design>` runs Yosys and nextpnr and fills this in.")
-    return f"{_HW_BEGIN}\n{body}\n{_HW_END}\n"
-
-
-def splice_hardware(report_md: str, hardware_md: str) -> str:
-    """report.md with its hardware part replaced by hardware_md (used by `qamsmith cost`)."""
-    head, sep, rest = report_md.partition(_HW_BEGIN)
-    _, sep2, tail = rest.partition(_HW_END + "\n")
-    if not sep or not sep2:
-        return report_md.rstrip("\n") + "\n\n" + hardware_section(hardware_md)
-    return head + hardware_section(hardware_md) + tail
+#: an image in report.md: (file, alt text) -> its markdown, or a line saying why it is not there
+Image = Callable[[str, str], str]
 
 
 def _f_ci(doc: dict[str, Any], key: str, sep: str = " ") -> str:
@@ -267,16 +360,29 @@ def _f_ci(doc: dict[str, Any], key: str, sep: str = " ") -> str:
     return f"{_f(doc[key])} dB{sep}{_ci(doc[key + '_ci95'])}"
 
 
-def _md_header(spec: DesignSpec, design: Design, doc: dict[str, Any]) -> list[str]:
-    """Title and one paragraph naming the constellation and every word format."""
+def words(spec: DesignSpec, design: Design) -> dict[str, Any]:
+    """The word formats of a design, as analysis.json records them for the report's first paragraph."""
     d, m = spec.demapper, spec.mapper
-    reliability = (f", reliability input {d.scale_width}-bit (driven with {doc['reliability_rule']})"
+    return {"mapper_width": m.width, "mapper_format": str(design.mapper_format), "mapper_scaling": m.scaling,
+            "input_width": d.input_width, "input_format": str(design.input_format), "llr_width": d.llr_width,
+            "llr_format": str(design.llr_format), "scale_width": d.scale_width}
+
+
+def _md_header(name: str, doc: dict[str, Any] | None) -> list[str]:
+    """Title and one paragraph naming the constellation and every word format (from analysis.json)."""
+    out = [f"# Design review: {name}\n"]
+    if doc is None:
+        return out + [f"qamsmith {__version__}.\n"]
+    w = doc.get("words")
+    if not w:
+        return out + [f"qamsmith {__version__}. {doc['order']}-point {doc['labeling']} constellation, "
+                      f"{doc['bits_per_symbol']} bits per symbol; demapper {doc['algorithm']}.\n"]
+    reliability = (f", reliability input {w['scale_width']}-bit (driven with {doc['reliability_rule']})"
                    if doc.get("reliability_rule") else "")
-    return [f"# Design review: {spec.name}\n",
-            f"qamsmith {__version__}. {doc['order']}-point {doc['labeling']} constellation, "
-            f"{doc['bits_per_symbol']} bits per symbol; mapper {m.width}-bit {design.mapper_format} ({m.scaling}); "
-            f"demapper {d.algorithm}, input {d.input_width}-bit {design.input_format}, LLR {d.llr_width}-bit "
-            f"{design.llr_format}{reliability}.\n"]
+    return out + [f"qamsmith {__version__}. {doc['order']}-point {doc['labeling']} constellation, "
+                  f"{doc['bits_per_symbol']} bits per symbol; mapper {w['mapper_width']}-bit {w['mapper_format']} "
+                  f"({w['mapper_scaling']}); demapper {doc['algorithm']}, input {w['input_width']}-bit "
+                  f"{w['input_format']}, LLR {w['llr_width']}-bit {w['llr_format']}{reliability}.\n"]
 
 
 def _md_summary(doc: dict[str, Any]) -> list[str]:
@@ -300,9 +406,11 @@ def _md_summary(doc: dict[str, Any]) -> list[str]:
     return out
 
 
-def _md_points(doc: dict[str, Any]) -> list[str]:
+def _md_points(doc: dict[str, Any], image: Image) -> list[str]:
     """The BER and GMI plots and a table of every Es/N0 point (dB), with what the figures mean."""
-    out = ["## BER and GMI against Es/N0\n", "![BER](ber.png)\n\n![GMI](gmi.png)\n",
+    out = ["## BER and GMI against Es/N0\n", f"{image('ber.png', 'BER')}\n\n{image('gmi.png', 'GMI')}\n",
+           "The lower panel of the GMI plot is the fixed point's loss itself: float exact minus fixed-point GMI "
+           "(and float exact minus float max-log) at each point, with 95 % intervals by paired batch means.\n",
            "| Es/N0 dB | Eb/N0 dB | BER fixed | BER theory | GMI fixed | GMI max-log | GMI exact | LLR factor fixed "
            "| input clip % |",
            "| ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
@@ -316,12 +424,17 @@ def _md_points(doc: dict[str, Any]) -> list[str]:
             "input scaling (relative to code x llr_lsb / N0 nats) that maximizes the GMI; "
             "`nats_per_llr_code` in analysis.json gives it in nats per LLR code.\n",
             "## Constellation, received cloud and LLR transfer\n",
-            "![mapper constellation](constellation.png)\n\n![received cloud](cloud.png)\n\n"
-            "![LLR transfer](llr_transfer.png)\n"]
+            f"{image('constellation.png', 'mapper constellation')}\n\n{image('cloud.png', 'received cloud')}\n\n"
+            f"{image('llr_transfer.png', 'LLR transfer')}\n"]
     return out
 
 
-def _md_widths(widths: dict[str, Any]) -> list[str]:
+def _md_analysis(doc: dict[str, Any], image: Image) -> list[str]:
+    """The analysis.json part: summary table, BER/GMI plots and table, the design's plots."""
+    return _md_summary(doc) + _md_points(doc, image)
+
+
+def _md_widths(widths: dict[str, Any], image: Image) -> list[str]:
     """The width explorer's part: its reference, the loss (dB) of each stage's widths, and the recommendation."""
     ref = widths["reference"]
     out = ["## Widths against the loss budget\n",
@@ -333,7 +446,7 @@ def _md_widths(widths: dict[str, Any]) -> list[str]:
            f"the reference itself is {widths['reference_loss_db_vs_exact']:.4f} dB from float exact log-MAP. "
            "The mapper row counts quantization only: keep whatever headroom the transmit filter or DAC needs "
            "on top of the width shown.\n",
-           "![loss against width](loss_vs_width.png)\n",
+           f"{image('loss_vs_width.png', 'loss against width')}\n",
            "| stage | width | fraction | loss dB | 95 % interval |\n| --- | ---: | ---: | ---: | --- |"]
     for s in ("mapper", "input", "llr"):
         for r in widths.get(f"{s}_best", []):
@@ -350,27 +463,174 @@ def _md_widths(widths: dict[str, Any]) -> list[str]:
     return out
 
 
-def _md_method(doc: dict[str, Any], widths: dict[str, Any] | None) -> list[str]:
+def _md_method(doc: dict[str, Any] | None, data: list[str]) -> list[str]:
     """How the figures were obtained (channel, input quantization, bit-exact model) and where the data is."""
-    return ["## Method\n",
-            f"{doc['method']}. Es/N0 is the mean energy of the mapper's actual output codes over N0; the demapper "
-            "input is quantized as the AGC/equalizer would deliver it (levels at odd multiples of 2^input_fraction "
-            "codes, round half to even, saturation). Fixed-point LLRs come from the bit-exact model "
-            "(`qamsmith.model.demap`), the same function the RTL is checked against. The float references use the "
-            "ideal constellation on the same noise. Data: analysis.json (this directory)"
-            + (", widths.json" if widths else "") + ".\n"]
+    how = "" if doc is None else (
+        f"{doc['method']}. Es/N0 is the mean energy of the mapper's actual output codes over N0; the demapper "
+        "input is quantized as the AGC/equalizer would deliver it (levels at odd multiples of 2^input_fraction "
+        "codes, round half to even, saturation). Fixed-point LLRs come from the bit-exact model "
+        "(`qamsmith.model.demap`), the same function the RTL is checked against. The float references use the "
+        "ideal constellation on the same noise. ")
+    return ["## Method\n", f"{how}Data (this directory): {', '.join(data) or 'none'}. This file is assembled "
+            "from them again whenever a qamsmith command writes one.\n"]
 
 
-def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], widths: dict[str, Any] | None,
-                    hardware_md: str | None = None) -> str:
-    """The design-review text: what was simulated, what it cost, which widths to pick."""
-    out = _md_header(spec, design, doc) + _md_summary(doc) + _md_points(doc)
-    if widths:
-        out += _md_widths(widths)
-    out.append(hardware_section(hardware_md))
-    out += _md_method(doc, widths)
-    return "\n".join(out)
+# --------------------------------------------------------------------------- the sections of report.md
 
+
+@dataclass(frozen=True)
+class Section:
+    """One part of report.md, there when `data` (a JSON file some command writes into report/) is.
+
+    The text is `render(doc, image)` of the JSON, or the markdown file `fragment` the command writes
+    beside it (as `qamsmith cost` writes hardware.md from hardware.json); `plots` are drawn from the
+    JSON alone, so a rebuild redraws them when it changes. `absent`: the text while `data` is missing
+    (None: the section is left out)."""
+
+    data: str
+    render: Callable[[dict[str, Any], Image], list[str]] | None = None
+    fragment: str | None = None
+    plots: tuple[tuple[str, Callable[[Any, dict[str, Any]], Any]], ...] = ()
+    absent: str | None = None
+
+
+#: report.md in this order, after the title. Another command's section joins with one line here (its JSON
+#: and, for text it renders itself, the markdown file it writes beside it, e.g. Section("explore.json",
+#: fragment="explore.md")). A <name>.json with a <name>.md beside it that is not listed here still joins,
+#: after these, in name order.
+SECTIONS: tuple[Section, ...] = (
+    Section("analysis.json", render=_md_analysis, plots=(("ber.png", plot_ber), ("gmi.png", plot_gmi)),
+            absent="## Summary\n\nNot analyzed yet: `qamsmith analyze <design>` simulates BER, GMI and the "
+                   "implementation loss and fills this in.\n"),
+    Section("widths.json", render=_md_widths, plots=(("loss_vs_width.png", plot_widths),)),
+    Section("hardware.json", fragment="hardware.md",
+            absent="## Hardware cost\n\nNot measured yet: `qamsmith cost <design>` runs Yosys and nextpnr and "
+                   "fills this in.\n"),
+)
+
+
+def _source_tag(name: str, content: bytes) -> str:
+    """What a plot drawn from the JSON `name` records in its PNG text: the file and its hash."""
+    return f"{name} sha256:{hashlib.sha256(content).hexdigest()[:16]}; qamsmith {__version__}"
+
+
+def _load(where: Path, name: str, content: bytes) -> dict[str, Any]:
+    try:
+        doc = json.loads(content)
+    except ValueError:
+        doc = None
+    if not isinstance(doc, dict):
+        raise SpecError("report", str(where / name), "a JSON object as qamsmith writes it (move the file away "
+                                                     "or run the command that writes it again)")
+    return doc
+
+
+@dataclass(frozen=True)
+class _Present:
+    """What report/ holds: its data files (JSON and markdown, report.md aside), its plots, every entry."""
+
+    data: dict[str, bytes]
+    pngs: dict[str, bytes]
+    entries: list[str]
+
+
+def _present(folder: Path) -> _Present:
+    if not folder.is_dir():
+        return _Present({}, {}, [])
+    data: dict[str, bytes] = {}
+    pngs: dict[str, bytes] = {}
+    entries = []
+    try:
+        for p in sorted(folder.iterdir()):
+            if p.name.startswith("."):                # a temporary file of an interrupted write
+                continue
+            entries.append(p.name)
+            if not p.is_file() or p.name == "report.md":
+                continue
+            if p.suffix in (".json", ".md"):
+                data[p.name] = p.read_bytes()
+            elif p.suffix == ".png":
+                pngs[p.name] = p.read_bytes()
+    except OSError as exc:
+        raise SpecError("report", str(folder), f"a readable directory ({exc.strerror or exc})") from None
+    return _Present(data, pngs, entries)
+
+
+def _assemble(present: _Present, where: Path, name: str) -> tuple[dict[str, bytes], list[str]]:
+    """report.md and the plots of JSON files that are missing or older than their JSON; and the plots to
+    remove (their JSON is gone, or it changed and matplotlib is not there to redraw them)."""
+    data, pngs = present.data, present.pngs
+    drawn: dict[str, bytes] = {}
+    stale: list[str] = []
+    shown = set(pngs)
+    undrawable: set[str] = set()
+    docs: dict[str, dict[str, Any]] = {}
+    plt = None
+    with tempfile.TemporaryDirectory(prefix="qamsmith-plots-") as tmp:
+        for sec in SECTIONS:
+            if sec.data not in data:
+                stale += [png for png, _ in sec.plots if png in pngs]
+                shown -= {png for png, _ in sec.plots}
+                continue
+            doc = docs[sec.data] = _load(where, sec.data, data[sec.data])
+            tag = _source_tag(sec.data, data[sec.data])
+            for png, draw in sec.plots:
+                if _png_text(pngs.get(png, b"")).get(SOURCE_KEY) == tag:
+                    continue
+                if not _have_matplotlib():
+                    stale += [png] if png in pngs else []
+                    shown.discard(png)
+                    undrawable.add(png)
+                    continue
+                plt = plt or _pyplot()
+                path = Path(tmp) / png
+                _save(draw(plt, doc), path, tag)
+                drawn[png] = path.read_bytes()
+                shown.add(png)
+        if plt is not None:
+            plt.close("all")
+
+    def image(file: str, alt: str) -> str:
+        if file in shown:
+            return f"![{alt}]({file})"
+        why = ("matplotlib is not installed: pip install 'qamsmith[report]'" if file in undrawable
+               else "`qamsmith analyze` draws it")
+        return f"*{alt}: no plot ({file}; {why}).*"
+
+    registered = {s.data for s in SECTIONS} | {s.fragment for s in SECTIONS if s.fragment}
+    title = next((d["design"] for d in docs.values() if isinstance(d.get("design"), str)), None)
+    analysis = docs.get("analysis.json")
+    out = _md_header(title or name, analysis)
+    for sec in SECTIONS:
+        if sec.data in docs and sec.render is not None:
+            out += sec.render(docs[sec.data], image)
+        elif sec.data in data and sec.fragment in data:
+            out.append(data[sec.fragment].decode("utf-8", "replace").strip() + "\n")
+        elif sec.absent is not None:
+            out.append(sec.absent)
+    for json_name in sorted(data):                     # a later command's <name>.json with its <name>.md
+        md = json_name[:-len(".json")] + ".md"
+        if json_name.endswith(".json") and json_name not in registered and md in data and md not in registered:
+            out.append(data[md].decode("utf-8", "replace").strip() + "\n")
+    out += _md_method(analysis, [n for n in sorted(data) if n.endswith(".json")])
+    drawn["report.md"] = "\n".join(out).encode()
+    return drawn, stale
+
+
+def rebuild_report(report_dir: Path) -> Path:
+    """Assemble report_dir/report.md again from every JSON in report_dir (and redraw the plots whose JSON
+    changed); each file is replaced atomically. Every command that writes into report/ calls it."""
+    report_dir = Path(report_dir)
+    present = _present(report_dir)
+    files, stale = _assemble(present, report_dir, report_dir.parent.name)
+    for name in sorted(files, key=lambda n: n == "report.md"):     # report.md last, after what it shows
+        write_file(report_dir / name, files[name], key="report")
+    for name in stale:
+        try:
+            (report_dir / name).unlink(missing_ok=True)
+        except OSError as exc:
+            raise SpecError("report", str(report_dir / name), f"a removable file ({exc.strerror or exc})") from None
+    return report_dir / "report.md"
 
 
 # --------------------------------------------------------------------------- writing
@@ -378,31 +638,29 @@ def report_markdown(spec: DesignSpec, design: Design, doc: dict[str, Any], width
 
 def write_report(spec: DesignSpec, target: Path, doc: dict[str, Any], widths: dict[str, Any] | None, *,
                  cloud_esn0_db: float | None = None, seed: int = an.DEFAULT_SEED) -> Path:
-    """Write report/ (plots, report.md, analysis.json, widths.json) at `target` as a whole, atomically.
-
-    What `qamsmith cost` measured (hardware.json, hardware.md) stays with the report."""
+    """Write report/ at `target` as a whole, atomically: the design's plots, analysis.json, widths.json
+    (when given) and report.md, with everything other commands wrote there kept (and in report.md)."""
     design = derive(spec)
     plt = _pyplot()
+    op = doc["operating_point_esn0_db"]
+    figures = {"constellation.png": lambda: plot_constellation(plt, design),
+               "cloud.png": lambda: plot_cloud(plt, design, cloud_esn0_db if cloud_esn0_db is not None else op, seed),
+               "llr_transfer.png": lambda: plot_llr_transfer(plt, design, op)}
     files: dict[str, bytes] = {}
-    plots = {"constellation.png": lambda path: plot_constellation(plt, design, path),
-             "cloud.png": lambda path: plot_cloud(plt, design, cloud_esn0_db if cloud_esn0_db is not None
-                                                  else doc["operating_point_esn0_db"], seed, path),
-             "llr_transfer.png": lambda path: plot_llr_transfer(plt, design, path, doc["operating_point_esn0_db"]),
-             "ber.png": lambda path: plot_ber(plt, doc, path),
-             "gmi.png": lambda path: plot_gmi(plt, doc, path)}
-    if widths:
-        plots["loss_vs_width.png"] = lambda path: plot_widths(plt, widths, path)
     with tempfile.TemporaryDirectory(prefix="qamsmith-plots-") as tmp:
-        for name, draw in plots.items():
-            draw(Path(tmp) / name)
+        for name, draw in figures.items():
+            _save(draw(), Path(tmp) / name)
             files[name] = (Path(tmp) / name).read_bytes()
     plt.close("all")
-    files["analysis.json"] = an.to_json(doc).encode()
+    files["analysis.json"] = an.to_json({**doc, "words": words(spec, design)}).encode()
     if widths:
         files["widths.json"] = an.to_json(widths).encode()
-    kept = [name for name in HARDWARE_FILES if (target / name).is_file()]
-    hardware_md = (target / "hardware.md").read_text(encoding="utf-8") if "hardware.md" in kept else None
-    files["report.md"] = report_markdown(spec, design, doc, widths, hardware_md).encode()
+    old = _present(target)
+    present = _Present({**old.data, **{n: b for n, b in files.items() if n.endswith(".json")}},
+                       {**old.pngs, **{n: b for n, b in files.items() if n.endswith(".png")}}, old.entries)
+    derived, stale = _assemble(present, target, spec.name)
+    files.update(derived)
+    kept = [n for n in old.entries if n not in files and n not in stale]
     return replace_directory(target, files, keep=kept, key="report")
 
 
@@ -437,4 +695,18 @@ def analyze(spec: DesignSpec, target: Path, *, esn0_db: list[float] | None = Non
     return doc, explored
 
 
-__all__ = ["PLOTS", "analyze", "report_markdown", "splice_hardware", "write_report"]
+def write_widths(spec: DesignSpec, path: Path, *, budget_db: float = an.DEFAULT_BUDGET_DB,
+                 symbols: int = an.DEFAULT_EXPLORE_SYMBOLS, seed: int = an.DEFAULT_SEED,
+                 operating_point_db: float | None = None,
+                 gmi_fraction: float = an.DEFAULT_GMI_FRACTION) -> dict[str, Any]:
+    """`qamsmith widths`: explore and write the JSON at `path` (analysis.widths_run); when `path` is a
+    design's report/widths.json, report.md and loss_vs_width.png follow it."""
+    path = Path(path)
+    result = an.widths_run(spec, path, budget_db=budget_db, symbols=symbols, seed=seed,
+                           operating_point_db=operating_point_db, gmi_fraction=gmi_fraction)
+    if path.name == "widths.json" and path.parent.name == REPORT_DIR:
+        rebuild_report(path.parent)
+    return result
+
+
+__all__ = ["PLOTS", "SECTIONS", "Section", "analyze", "rebuild_report", "words", "write_report", "write_widths"]
