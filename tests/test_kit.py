@@ -3,14 +3,15 @@
 Outside checks, each with its source:
 - FuseSoC CAPI2 (the FuseSoC documentation's CAPI2 reference, and the JSON schema FuseSoC ships in
   fusesoc/capi2/json_schema.py): `fusesoc` from PyPI adds the design directory as a library, lists
-  the core and runs its `sim` target (Icarus Verilog runs the generated harness over the vectors).
+  the core and runs its `sim` target (Icarus Verilog runs the generated harness over the vectors)
+  and its `sim_vhdl` target (GHDL runs the generated VHDL testbench).
 - IP-XACT, IEEE 1685-2014 (namespace http://www.accellera.org/XMLSchema/IPXACT/1685-2014): `ipyxact`
   parses each component back; the order of the component's elements follows the standard's schema
   (component.xsd; the same order as ipyxact's binding ipxact2014.py, generated from the 2014 index.xsd).
 - C: gcc compiles the header (`-std=c99 -Wall -Werror -fsyntax-only`, and C89 with -pedantic) and a
   small program that prints every constant.
 - Verilog / VHDL: the instantiation templates compile against the RTL (Icarus, `-Wall`, no warning:
-  a port width that differs would warn) and, for VHDL, are analyzed by GHDL.
+  a port width that differs would warn; GHDL elaborates the VHDL ones against the VHDL entities).
 """
 
 from __future__ import annotations
@@ -28,12 +29,16 @@ from typing import Any
 import pytest
 
 from qamsmith.artifacts import MANIFEST, c_prefix, kit_entry, kit_files, write_design
+from qamsmith.flows.tools import which
 from qamsmith.spec import DesignSpec, examples
 
-#: a design whose mapper reads `$readmemh` images, with tuser, a skid buffer and a target clock
+#: a design in both languages whose Verilog mapper reads `$readmemh` images, with tuser, a skid buffer
+#: and a target clock
 READMEMH = {"name": "kit-readmemh", "mapper.tables": "readmemh", "interface.tuser_width": 3, "interface.skid": True,
-            "interface.target_mhz": 100.0}
-NAMES = [*sorted(examples()), READMEMH["name"]]
+            "interface.target_mhz": 100.0, "interface.language": "both"}
+#: a design in VHDL only
+VHDL_ONLY = {"name": "kit-vhdl", "interface.language": "vhdl", "interface.tuser_width": 2}
+NAMES = [*sorted(examples()), READMEMH["name"], VHDL_ONLY["name"]]
 IPXACT_NS = "http://www.accellera.org/XMLSchema/IPXACT/1685-2014"
 #: the content model of ipxact:component in IEEE 1685-2014 (component.xsd), in schema order
 COMPONENT_ORDER = ["vendor", "library", "name", "version", "busInterfaces", "indirectInterfaces", "channels",
@@ -45,6 +50,8 @@ COMPONENT_ORDER = ["vendor", "library", "name", "version", "busInterfaces", "ind
 def _spec(name: str) -> DesignSpec:
     if name == READMEMH["name"]:
         return DesignSpec.from_toml(examples()["larkspur-backhaul-256"]).with_settings(READMEMH)
+    if name == VHDL_ONLY["name"]:
+        return DesignSpec.from_toml(examples()["larkspur-spur-16"]).with_settings(VHDL_ONLY)
     return DesignSpec.from_toml(examples()[name])
 
 
@@ -114,7 +121,7 @@ def test_file_lists_hold_the_rtl_and_compile_from_the_design_directory(designs: 
         commented = "\n".join(line for line in lines if line.startswith("//"))
         for image in images:       # ROM images travel with the list (as comments: they are data, not sources)
             assert (image in commented) == (m["mapper"]["rom"]["style"] == "readmemh"), image
-    if shutil.which("iverilog"):
+    if shutil.which("iverilog") and "verilog" in m["kit"]["filelists"]:
         f = root / m["kit"]["filelists"]["verilog"]
         proc = subprocess.run(["iverilog", "-g2005", "-o", os.devnull, "-c", str(f)], cwd=root, capture_output=True,
                               text=True, timeout=120)
@@ -125,10 +132,11 @@ def test_file_lists_hold_the_rtl_and_compile_from_the_design_directory(designs: 
 
 
 @pytest.mark.parametrize("name", NAMES)
-def test_fusesoc_lists_the_core_and_its_sim_target_passes(designs: dict[str, Path], name: str, tmp_path: Path) -> None:
-    """FuseSoC CAPI2 (FuseSoC documentation, CAPI2 reference): the core parses, and Icarus runs the harness."""
-    if not shutil.which("fusesoc") or not shutil.which("iverilog"):
-        pytest.skip("fusesoc or iverilog not on PATH")
+def test_fusesoc_lists_the_core_and_its_sim_targets_pass(designs: dict[str, Path], name: str, tmp_path: Path) -> None:
+    """FuseSoC CAPI2 (FuseSoC documentation, CAPI2 reference): the core parses, Icarus runs the Verilog harness
+    (target sim) and GHDL the VHDL testbench (target sim_vhdl)."""
+    fusesoc_exe = which("fusesoc")                    # in the scripts folder of .ci/run's virtual environment
+    assert fusesoc_exe, "fusesoc is in the test extra"
     root = designs[name]
     m = _manifest(root)
     vlnv = m["kit"]["core"]["vlnv"]
@@ -137,7 +145,7 @@ def test_fusesoc_lists_the_core_and_its_sim_target_passes(designs: dict[str, Pat
     conf.write_text("")
 
     def fusesoc(*args: str) -> subprocess.CompletedProcess[str]:
-        return subprocess.run(["fusesoc", "--config", str(conf), *args], cwd=tmp_path, env=env, capture_output=True,
+        return subprocess.run([fusesoc_exe, "--config", str(conf), *args], cwd=tmp_path, env=env, capture_output=True,
                               text=True, timeout=600)
 
     added = fusesoc("library", "add", name, str(root))                   # as kit/README.txt says
@@ -146,15 +154,24 @@ def test_fusesoc_lists_the_core_and_its_sim_target_passes(designs: dict[str, Pat
     assert listed.returncode == 0 and vlnv in listed.stdout, listed.stdout + listed.stderr
     shown = fusesoc("core", "show", vlnv)
     assert shown.returncode == 0, shown.stderr
-    for target in m["kit"]["core"]["targets"]:
+    targets = m["kit"]["core"]["targets"]
+    for target in targets:
         assert re.search(rf"^{target}\s*:", shown.stdout, re.M), (target, shown.stdout)
-    run = fusesoc("run", "--target", "sim", vlnv)
-    out = run.stdout + run.stderr
-    assert run.returncode == 0, out[-3000:]
-    assert "not within the directory containing the core file" not in out       # no deprecated ../ paths
-    res = re.search(r"RESULT map_compared=(\d+) map_bad=(\d+) dem_compared=(\d+) dem_bad=(\d+)", out)
-    assert res, out[-3000:]
-    assert [int(g) for g in res.groups()] == [m["vectors"]["mapper"]["count"], 0, m["vectors"]["demapper"]["count"], 0]
+    assert ("sim" in targets) == ("verilog" in m["rtl"]["languages"])
+    assert ("sim_vhdl" in targets) == ("vhdl" in m["rtl"]["languages"])
+    counts = [m["vectors"]["mapper"]["count"], 0, m["vectors"]["demapper"]["count"], 0]
+    for target in ("sim", "sim_vhdl"):
+        if target not in targets or (target == "sim" and not shutil.which("iverilog")) or (
+                target == "sim_vhdl" and not shutil.which("ghdl")):
+            continue
+        run = fusesoc("run", "--target", target, vlnv)
+        out = run.stdout + run.stderr
+        assert run.returncode == 0, out[-3000:]
+        assert "not within the directory containing the core file" not in out       # no deprecated ../ paths
+        res = re.search(r"RESULT map_compared=(\d+) map_bad=(\d+) dem_compared=(\d+) dem_bad=(\d+)", out)
+        assert res, out[-3000:]
+        assert [int(g) for g in res.groups()] == counts, target
+        assert ": PASS mapper" in out, target
 
 
 # --------------------------------------------------------------------------- IP-XACT
@@ -308,6 +325,8 @@ def test_verilog_instantiation_templates_bind_to_the_rtl(designs: dict[str, Path
         pytest.skip("iverilog not on PATH")
     root = designs[name]
     m = _manifest(root)
+    if "verilog" not in m["rtl"]["languages"]:
+        return
     for role, by_lang in m["kit"]["instances"].items():
         wrapper = tmp_path / f"{role}_check.v"
         wrapper.write_text("`timescale 1ns / 1ps\nmodule kit_check;\n  reg aclk = 1'b0;\n  reg aresetn = 1'b0;\n"
@@ -327,31 +346,37 @@ def _vhdl_wrapper(template: str) -> str:
 
 
 @pytest.mark.parametrize("name", NAMES)
-def test_a_vhdl_listing_gets_its_own_kit_files(designs: dict[str, Path], name: str, tmp_path: Path) -> None:
-    """Any HDL the manifest lists gets its templates, file list and FuseSoC file set. Until the VHDL back end
-    writes files, the manifest is given a VHDL listing here; GHDL analyzes the component and instance."""
+def test_vhdl_instantiation_templates_bind_to_the_rtl(designs: dict[str, Path], name: str, tmp_path: Path) -> None:
+    """VHDL: the file list and core hold the VHDL; each template (component, signals, instance) in an
+    architecture elaborates against the generated entity in VHDL-93 and VHDL-2008 (GHDL). A design in
+    Verilog only is given a VHDL listing in a copy of its manifest: the kit covers any listed HDL."""
     root = designs[name]
     m = copy.deepcopy(_manifest(root))
-    if "vhdl" not in m["rtl"]["languages"]:
+    generated = "vhdl" in m["rtl"]["languages"]
+    if not generated:
         m["rtl"]["languages"]["vhdl"] = "VHDL-93"
         m["rtl"]["files"]["vhdl"] = []
         for e in m["rtl"]["modules"].values():
             e["files"]["vhdl"] = f"rtl/{e['module']}.vhd"
             m["rtl"]["files"]["vhdl"].append(e["files"]["vhdl"])
-    m["kit"] = kit_entry(m)
+        m["kit"] = kit_entry(m)
     files = kit_files(m)
     assert files[m["kit"]["filelists"]["vhdl"]].count(".vhd\n") == len(m["rtl"]["modules"])
     core = files[m["kit"]["core"]["file"]]
-    assert "  rtl_vhdl:\n    file_type: vhdlSource\n" in core and m["kit"]["core"]["targets"]["rtl_vhdl"] == "rtl_vhdl"
-    if not shutil.which("ghdl"):
-        pytest.skip("ghdl not on PATH")
+    assert "  rtl_vhdl:\n    file_type: vhdlSource\n" in core
+    if not generated or not shutil.which("ghdl"):
+        return
     for role, by_lang in m["kit"]["instances"].items():
         wrapper = tmp_path / f"{role}_check.vhd"
         wrapper.write_text(_vhdl_wrapper(files[by_lang["vhdl"]]))
+        rtl = root / m["rtl"]["modules"][role]["files"]["vhdl"]
         for std in ("93c", "08"):
-            proc = subprocess.run(["ghdl", "-a", f"--std={std}", f"--workdir={tmp_path}", str(wrapper)],
-                                  capture_output=True, text=True, timeout=120)
-            assert proc.returncode == 0, (std, proc.stderr)
+            work = tmp_path / f"{role}-{std}"
+            work.mkdir()
+            for cmd in (["-a", str(rtl), str(wrapper)], ["-e", "kit_check"]):
+                proc = subprocess.run(["ghdl", cmd[0], f"--std={std}", f"--workdir={work}", *cmd[1:]],
+                                      capture_output=True, text=True, timeout=120, cwd=work)
+                assert proc.returncode == 0, (std, cmd, proc.stderr)
 
 
 # --------------------------------------------------------------------------- constraints and README

