@@ -9,7 +9,10 @@
 // blocks with random input gaps and random output backpressure, compares every output word,
 // its tlast and tuser in order, and counts mismatches. Plusargs: +map_in= +map_out= +map_count=
 // +dem_in= +dem_out= +dem_count= +seed= +in_pct= +out_pct= (percent of cycles valid / ready),
-// +finish (end the run and print the summary; without it a cocotb test reads the counters).
+// +finish (end the run, print the summary and exit with an error status when a word differed or
+// the run stalled; without it a cocotb test reads the counters),
+// +map_dump= +dem_dump= (write every accepted output word as "tdata tlast tuser" in hex, one a
+// line: the VHDL testbench writes the same lines, so the two languages can be compared directly).
 // The gaps come from an xorshift generator per block, not $random, and every register the
 // blocks share is written with nonblocking assignments: Icarus and Verilator run the same
 // cycles and print the same RESULT line. A run that stops making progress ends with STALL.
@@ -36,6 +39,8 @@ module lvt_bh256_harness #(
 
   integer map_count = 0;
   integer dem_count = 0;
+  integer map_dump = 0;  // file descriptors of the dumps (0: none)
+  integer dem_dump = 0;
   integer seed = 1;
   integer in_pct = 100;
   integer out_pct = 100;
@@ -70,6 +75,8 @@ module lvt_bh256_harness #(
       if (!$value$plusargs("dem_out=%s", path)) $fatal(1, "+dem_out= missing");
       $readmemh(path, dem_out_mem, 0, dem_count - 1);
     end
+    if ($value$plusargs("map_dump=%s", path)) map_dump = $fopen(path, "w");
+    if ($value$plusargs("dem_dump=%s", path)) dem_dump = $fopen(path, "w");
     if (map_count > DEPTH || dem_count > DEPTH) $fatal(1, "counts exceed DEPTH %0d", DEPTH);
     if ($value$plusargs("seed=%d", seed)) ;
     if ($value$plusargs("in_pct=%d", in_pct)) ;
@@ -165,6 +172,8 @@ module lvt_bh256_harness #(
                      { side(map_compared), map_out_mem[map_compared] });
           map_bad <= map_bad + 1;
         end
+        if (map_dump != 0)
+          $fdisplay(map_dump, "%h %h %h", map_m_tdata, map_m_tlast, map_m_tuser);
         map_compared <= map_compared + 1;
       end
       map_m_tready <= (map_rng & 32'hffff) % 100 < out_pct;
@@ -227,6 +236,8 @@ module lvt_bh256_harness #(
                      { side(dem_compared), dem_out_mem[dem_compared] });
           dem_bad <= dem_bad + 1;
         end
+        if (dem_dump != 0)
+          $fdisplay(dem_dump, "%h %h %h", dem_m_tdata, dem_m_tlast, dem_m_tuser);
         dem_compared <= dem_compared + 1;
       end
       dem_m_tready <= (dem_rng & 32'hffff) % 100 < out_pct;
@@ -245,9 +256,15 @@ module lvt_bh256_harness #(
       if (idle > STALL_MAX)
         $display("STALL no output word for %0d cycles: %0d of %0d mapper and %0d of %0d demapper words compared",
                  idle, map_compared, map_count, dem_compared, dem_count);
+      if (map_dump != 0) $fclose(map_dump);
+      if (dem_dump != 0) $fclose(dem_dump);
       if ($test$plusargs("finish")) begin
         $display("RESULT map_compared=%0d map_bad=%0d dem_compared=%0d dem_bad=%0d cycles=%0d",
                  map_compared, map_bad, dem_compared, dem_bad, cycles);
+        // a failed run ends with an error status, so a script or a FuseSoC run needs no parsing
+        if (map_bad != 0 || dem_bad != 0 || idle > STALL_MAX)
+          $fatal(1, "lvt_bh256_harness: FAIL");
+        $display("lvt_bh256_harness: PASS mapper %0d words, demapper %0d words", map_compared, dem_compared);
         $finish;
       end
     end
