@@ -21,7 +21,7 @@ from qamsmith.ir.core import evaluate_op
 from qamsmith.model import demap, derive, map_labels
 from qamsmith.spec import DesignSpec
 
-from test_sim import user_table
+from matrix import user_table
 
 
 def _ops_in_order(dp):

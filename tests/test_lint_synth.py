@@ -18,7 +18,7 @@ from qamsmith.errors import SpecError
 from qamsmith.model import derive
 from qamsmith.spec import ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec
 
-from test_sim import user_table
+from matrix import user_table
 
 pytestmark = pytest.mark.synth
 

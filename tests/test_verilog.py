@@ -17,7 +17,7 @@ from qamsmith.hdl.verilog import literal
 from qamsmith.model import derive
 from qamsmith.spec import DesignSpec
 
-from test_sim import user_table
+from matrix import user_table
 
 pyslang = pytest.importorskip("pyslang")
 
