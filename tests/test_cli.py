@@ -35,7 +35,7 @@ def test_generate_without_arguments_builds_the_default_example(cli, tmp_path: Pa
 
 
 @pytest.mark.parametrize("argv,pattern", [
-    (["--order", "32"], r"constellation\.order = 32: one of 2, 4, 16, 64, 256, 1024, 4096 \(non-square"),
+    (["--order", "32", "--labeling", "3gpp-nr"], r"constellation\.labeling = '3gpp-nr': gray, natural or table for order 32"),
     (["--labeling", "grey"], r"constellation\.labeling = 'grey': one of gray, 3gpp-nr"),
     (["--llr-width", "1"], r"demapper\.llr_width = 1: an integer from 2 to 32"),
     (["--input-fraction", "12"], r"demapper\.input_fraction = 12: an integer from 0 to 10"),
@@ -45,10 +45,10 @@ def test_generate_without_arguments_builds_the_default_example(cli, tmp_path: Pa
     (["--set", "mapper.width"], r"--set = 'mapper\.width': section\.key=value"),
     (["--table", "missing.csv"], r"constellation\.table_file = 'missing\.csv': a readable CSV file"),
     (["no-such-example"], r"spec = 'no-such-example': a TOML file, a design directory or a built-in example: larkspur-"),
-    (["--set", "constellation.order=16.0"], r"constellation\.order = 16\.0: one of 2, 4, 16, 64, 256, 1024, 4096 "
+    (["--set", "constellation.order=16.0"], r"constellation\.order = 16\.0: one of 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096 "
                                             r"\(an integer: 16, not 16\.0\)$"),
-    (["--order", "16.0"], r"constellation\.order = 16\.0: one of 2, 4, 16, 64, 256, 1024, 4096 \(an integer: 16, not 16\.0\)$"),
-    (["--order", "sixteen"], r"constellation\.order = 'sixteen': one of 2, 4, 16, 64, 256, 1024, 4096$"),
+    (["--order", "16.0"], r"constellation\.order = 16\.0: one of 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096 \(an integer: 16, not 16\.0\)$"),
+    (["--order", "sixteen"], r"constellation\.order = 'sixteen': one of 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096$"),
     (["--set", "mapper.width=" + "9" * 5000], r"mapper\.width = 9999999999999999… \(5000 digits\): an integer from 2 to 20$"),
     (["--mapper-width", "9" * 5000], r"mapper\.width = 9999999999999999… \(5000 digits\): an integer from 2 to 20$"),
     (["--set", "mapper.width=" + "[" * 3000 + "]" * 3000],
@@ -82,8 +82,9 @@ def test_table_csv_sets_the_order_from_its_rows(cli, tmp_path: Path) -> None:
     assert json.loads((tmp_path / "out" / "qam4-table-maxlog" / MANIFEST).read_text())["spec"]["constellation"]["order"] == 4
     csv.write_text("label,i,q\n0,-1,-1\n1,-1,1\n2,1,-1\n")
     r = cli("generate", "--table", str(csv), "--out", str(tmp_path / "bad"))
-    assert r.code == 2 and r.err == ("qamsmith: error: constellation.table_file = '3 rows': one row per label: 2, 4, 16, "
-                                     "64, 256, 1024, 4096 rows (constellation.order, not set, is the number of rows)\n")
+    assert r.code == 2 and r.err == ("qamsmith: error: constellation.table_file = '3 rows': one row per label: 2, 4, 8, "
+                                     "16, 32, 64, 128, 256, 512, 1024, 2048, 4096 rows (constellation.order, not set, is "
+                                     "the number of rows)\n")
     assert not (tmp_path / "bad").exists()
 
 
@@ -155,7 +156,7 @@ def test_flags_override_a_spec_file(cli, tmp_path: Path) -> None:
 def test_list_shows_what_is_supported(cli) -> None:
     r = cli("list")
     assert r.code == 0
-    for text in ("2, 4, 16, 64, 256, 1024, 4096", "gray, 3gpp-nr, ieee-802.11, natural, table", "maxlog, folded, hard",
+    for text in ("2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096", "gray, 3gpp-nr, ieee-802.11, natural, table", "maxlog, folded, hard",
                  "half-even, half-away, floor", "demapper.llr_width", "[default 8]", f"{DEFAULT_EXAMPLE} (default)",
                  "larkspur-telemetry-qpsk"):
         assert text in r.out, text

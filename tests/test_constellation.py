@@ -8,8 +8,11 @@ Sources, named beside each check:
   256-, 1024- and 4096-QAM factors are those of the later amendments (from memory).
 - komm (PyPI, a general-purpose communications library), version as installed: its QAM/PAM
   constellations and its reflected (Gray) and natural labelings.
-- Proakis, Digital Communications: average energy 2(M-1)/3 of square M-QAM with levels +-1, +-3, ...
+- Proakis, Digital Communications: average energy 2(M-1)/3 of square M-QAM with levels +-1, +-3, ...;
+  (LI^2 + LQ^2 - 2)/3 of an LI x LQ rectangle (one PAM per axis, the same derivation).
 - Common practice: the Gray property; the shape of square 16-QAM.
+Odd-bit orders (rectangles here; Smith's cross in tests/test_cross.py): komm's rectangular
+QAMConstellation((MI, MQ)) with ReflectedRectangularLabeling((kI, kQ)) and NaturalLabeling.
 """
 
 from __future__ import annotations
@@ -20,8 +23,12 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from qamsmith.numbers.constellation import ORDERS, bits_per_symbol, from_table, label_bits, named
+from qamsmith.numbers.constellation import ORDERS as ALL_ORDERS
+from qamsmith.numbers.constellation import bits_per_symbol, from_table, label_bits, named
 
+#: BPSK and the square orders (3GPP NR and IEEE 802.11 define only these); the odd-bit orders apart
+ORDERS = tuple(o for o in ALL_ORDERS if o == 2 or bits_per_symbol(o) % 2 == 0)
+ODD_ORDERS = tuple(o for o in ALL_ORDERS if o > 2 and bits_per_symbol(o) % 2)
 SQUARE_ORDERS = [o for o in ORDERS if o > 2]
 NAMED = ("gray", "3gpp-nr", "ieee-802.11", "natural")
 
@@ -158,6 +165,9 @@ def test_ieee80211_normalization_kmod(order: int) -> None:
 
 def _komm_constellation(order: int):
     import komm
+    k = bits_per_symbol(order)
+    if order > 2 and k % 2:                                   # an odd-bit rectangle: 2^ceil(k/2) levels on I
+        return komm.QAMConstellation((1 << ((k + 1) // 2), 1 << (k // 2)))
     return komm.PAMConstellation(2) if order == 2 else komm.QAMConstellation(order)
 
 
@@ -166,11 +176,14 @@ def _komm_labeling(order: int, kind: str):
     k = bits_per_symbol(order)
     if kind == "natural":
         return komm.NaturalLabeling(k)
+    if order > 2 and k % 2:
+        return komm.ReflectedRectangularLabeling(((k + 1) // 2, k // 2))
     return komm.ReflectedLabeling(1) if order == 2 else komm.ReflectedRectangularLabeling(k)
 
 
-KOMM_CASES = [(o, lab, kind) for o in ORDERS
-              for lab, kind in (("gray", "reflected"), ("ieee-802.11", "reflected"), ("natural", "natural"))]
+KOMM_CASES = ([(o, lab, kind) for o in ORDERS
+               for lab, kind in (("gray", "reflected"), ("ieee-802.11", "reflected"), ("natural", "natural"))]
+              + [(o, lab, kind) for o in ODD_ORDERS for lab, kind in (("gray", "reflected"), ("natural", "natural"))])
 
 
 @pytest.mark.parametrize("order,labeling,kind", KOMM_CASES,
@@ -222,13 +235,14 @@ def test_gray_property(order: int, labeling: str) -> None:
         assert bin(a ^ b).count("1") == 1, f"labels {a:b} and {b:b} are neighbours"
 
 
-@pytest.mark.parametrize("order", SQUARE_ORDERS, ids=lambda o: f"{_id(o)}-natural")
+@pytest.mark.parametrize("order", SQUARE_ORDERS + list(ODD_ORDERS), ids=lambda o: f"{_id(o)}-natural")
 def test_natural_is_not_gray(order: int) -> None:
     """Natural labeling (common practice): some neighbours differ in more than one bit from 16-QAM up; QPSK is Gray."""
     const = named(order, "natural")
     _, pairs = _min_distance_pairs(const.points)
     worst = max(bin(a ^ b).count("1") for a, b in pairs)
-    assert worst == (1 if order == 4 else const.bits // 2)   # level 2^(m-1)-1 -> 2^(m-1) flips every axis bit
+    # level 2^(m-1)-1 -> 2^(m-1) flips every axis bit: the longer axis of an odd-bit rectangle has ceil(k/2)
+    assert worst == (1 if order == 4 else (const.bits + 1) // 2)
 
 
 @pytest.mark.parametrize("order,labeling", [(o, lab) for o in SQUARE_ORDERS for lab in NAMED],
@@ -243,6 +257,26 @@ def test_grid_and_average_energy(order: int, labeling: str) -> None:
     assert energy == Fraction(2 * (order - 1), 3)
     assert const.energy == pytest.approx(2 * (order - 1) / 3, rel=1e-14)
     assert np.mean(np.abs(const.normalized) ** 2) == pytest.approx(1.0, rel=1e-13)
+
+
+ODD_NAMED = [(o, lab) for o in ODD_ORDERS for lab in ("gray", "natural")]
+
+
+@pytest.mark.parametrize("order,labeling", ODD_NAMED, ids=[_id(o, lab) + "-rectangle" for o, lab in ODD_NAMED])
+def test_odd_rectangle_grid_energy_and_gray(order: int, labeling: str) -> None:
+    """An odd-bit order's default shape: the 2^ceil(k/2) x 2^floor(k/2) grid, energy (LI^2 + LQ^2 - 2)/3 exactly;
+    gray: every neighbour pair differs in one bit (per-axis binary-reflected Gray)."""
+    const = named(order, labeling)
+    k = bits_per_symbol(order)
+    li, lq = 1 << ((k + 1) // 2), 1 << (k // 2)
+    grid = {complex(a, b) for a in range(-(li - 1), li, 2) for b in range(-(lq - 1), lq, 2)}
+    assert set(const.points.tolist()) == grid
+    energy = sum((Fraction(int(p.real)) ** 2 + Fraction(int(p.imag)) ** 2 for p in const.points), Fraction(0)) / order
+    assert energy == Fraction(li * li + lq * lq - 2, 3)
+    _, pairs = _min_distance_pairs(const.points)
+    assert len(pairs) == li * (lq - 1) + lq * (li - 1)
+    if labeling == "gray":
+        assert all(bin(a ^ b).count("1") == 1 for a, b in pairs)
 
 
 @pytest.mark.parametrize("labeling", NAMED)

@@ -165,12 +165,22 @@ def _cases():
             for alg in ("maxlog", "folded", "hard"):
                 for n, extra in enumerate(SETTINGS):
                     yield pytest.param(order, lab, alg, extra, id=f"qam{order}-{lab}-{alg}-s{n}")
+    # odd-bit orders: rectangles of unequal axes (gray, natural) and Smith's cross ("cross": gray, shape cross)
+    for order in (8, 32, 128, 2048):
+        for lab in ("gray", "natural") + (("cross",) if order > 8 else ()):
+            for alg in ("maxlog", "hard") + (("folded",) if lab == "gray" else ()):
+                for n, extra in enumerate(SETTINGS):
+                    if lab == "cross":          # a cross's mapper is a table of points (logic: refused, test_cross)
+                        extra = {key: v for key, v in extra.items() if key != "mapper.implementation"}
+                    yield pytest.param(order, lab, alg, extra, id=f"qam{order}-{lab}-{alg}-s{n}")
 
 
 @pytest.mark.parametrize("order,labeling,alg,extra", list(_cases()))
 def test_datapaths_equal_the_model(order: int, labeling: str, alg: str, extra: dict) -> None:
     """Every input code of each axis (the other axis random) and every label, through the evaluator."""
     settings = {"constellation.order": order, "constellation.labeling": labeling, "demapper.algorithm": alg, **extra}
+    if labeling == "cross":
+        settings.update({"constellation.labeling": "gray", "constellation.shape": "cross"})
     if labeling == "table":
         settings["constellation.table"] = [list(r) for r in user_table(order)]
     try:

@@ -20,7 +20,8 @@ import math
 import numpy as np
 import pytest
 
-from qamsmith.numbers.constellation import ORDERS, bits_per_symbol, label_bits, named
+from qamsmith.numbers.constellation import ORDERS as ALL_ORDERS
+from qamsmith.numbers.constellation import bits_per_symbol, label_bits, named
 from qamsmith.errors import SpecError
 from qamsmith.model import (demap, demap_direct, derive, hard_decisions, llr_exact, llr_maxlog, map_bits,
                             quantize_input)
@@ -28,6 +29,11 @@ from qamsmith.spec import ConstellationSpec, DemapperSpec, DesignSpec, MapperSpe
 
 NAMED = ("gray", "3gpp-nr", "ieee-802.11", "natural")
 GRAY_TYPE = ("gray", "3gpp-nr", "ieee-802.11")
+#: BPSK and the square orders, every named labeling; the odd-bit rectangles (8 .. 2048) with gray and natural
+#: (3GPP NR and IEEE 802.11 define no odd-bit order; Smith's cross in tests/test_cross.py)
+ORDERS = tuple(o for o in ALL_ORDERS if o == 2 or bits_per_symbol(o) % 2 == 0)
+ODD = tuple(o for o in ALL_ORDERS if o > 2 and bits_per_symbol(o) % 2)
+ODD_NAMED = [(o, lab) for o in ODD for lab in ("gray", "natural")]
 
 
 def _oid(order: int) -> str:
@@ -172,7 +178,7 @@ def axis_sweep(design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray
 
 # --------------------------------------------------------------------------- (a) exact max-log
 
-EXACT_CASES = ([(o, lab) for o in ORDERS for lab in NAMED]
+EXACT_CASES = ([(o, lab) for o in ORDERS for lab in NAMED] + ODD_NAMED
                + [(16, "table16-separable"), (64, "table64-swapped"), (16, "table16-scrambled")])
 
 
@@ -337,7 +343,8 @@ def test_widest_per_axis_spec_fits_int64() -> None:
 
 DIRECT_CASES = [(o, lab, alg, sw) for o in ORDERS for lab in ("gray", "3gpp-nr", "natural") for alg in ("maxlog", "folded")
                 for sw in (0, 7) if not (alg == "folded" and lab == "natural" and o > 4)
-                and not (o == 2 and lab == "3gpp-nr")] + [(64, "table64-swapped", "maxlog", 7)]
+                and not (o == 2 and lab == "3gpp-nr")] + [(64, "table64-swapped", "maxlog", 7)] \
+    + [(o, lab, alg, 7) for o, lab in ODD_NAMED for alg in ("maxlog", "folded") if not (alg == "folded" and lab == "natural")]
 
 
 @pytest.mark.parametrize("order,labeling,algorithm,scale_width", DIRECT_CASES,
@@ -358,7 +365,7 @@ def test_tables_equal_step_functions(order: int, labeling: str, algorithm: str, 
 
 # --------------------------------------------------------------------------- (d) folded
 
-FOLD_CASES = [(o, lab) for o in ORDERS for lab in GRAY_TYPE if not (o == 2 and lab == "3gpp-nr")]
+FOLD_CASES = [(o, lab) for o in ORDERS for lab in GRAY_TYPE if not (o == 2 and lab == "3gpp-nr")] + [(o, "gray") for o in ODD]
 
 
 @pytest.mark.parametrize("order,labeling", FOLD_CASES, ids=[f"{_oid(o)}-{lab}" for o, lab in FOLD_CASES])
@@ -394,7 +401,7 @@ def test_folded_refused_for_non_gray(order: int, labeling: str) -> None:
 
 # --------------------------------------------------------------------------- (e) hard decisions
 
-HARD_CASES = [(o, lab) for o in ORDERS for lab in NAMED] + [(16, t) for t in TABLES if t.startswith("table16")] \
+HARD_CASES = [(o, lab) for o in ORDERS for lab in NAMED] + ODD_NAMED + [(16, t) for t in TABLES if t.startswith("table16")] \
              + [(64, "table64-swapped")]
 
 
@@ -420,8 +427,10 @@ def test_hard_decisions_are_the_nearest_label(order: int, labeling: str) -> None
     np.testing.assert_array_equal(demap(design, i, q), got)          # algorithm 'hard' returns the same bits
 
 
-@pytest.mark.parametrize("order,labeling", [(o, lab) for o in ORDERS for lab in NAMED if not (o == 2 and lab == "3gpp-nr")],
-                         ids=[f"{_oid(o)}-{lab}" for o in ORDERS for lab in NAMED if not (o == 2 and lab == "3gpp-nr")])
+@pytest.mark.parametrize("order,labeling", [(o, lab) for o in ORDERS for lab in NAMED if not (o == 2 and lab == "3gpp-nr")]
+                         + ODD_NAMED,
+                         ids=[f"{_oid(o)}-{lab}" for o in ORDERS for lab in NAMED if not (o == 2 and lab == "3gpp-nr")]
+                         + [f"{_oid(o)}-{lab}" for o, lab in ODD_NAMED])
 def test_map_then_hard_decide_round_trip(order: int, labeling: str) -> None:
     """Noise-free: every label mapped, scaled to the input grid, decided back to itself."""
     design = derive(make_spec(order, labeling))
@@ -538,7 +547,7 @@ def _brute_float(points: np.ndarray, y: np.ndarray, n0: float | None) -> np.ndar
     return out
 
 
-FLOAT_CASES = [(o, lab) for o in ORDERS for lab in NAMED]
+FLOAT_CASES = [(o, lab) for o in ORDERS for lab in NAMED] + ODD_NAMED
 
 
 @pytest.mark.parametrize("order,labeling", FLOAT_CASES, ids=[f"{_oid(o)}-{lab}" for o, lab in FLOAT_CASES])
@@ -567,8 +576,9 @@ def _komm_lvalues(order: int, labeling: str, y: np.ndarray, n0: float) -> np.nda
     const = named(order, labeling)
     k = bits_per_symbol(order)
     if labeling == "gray" and order > 2:
-        kc = komm.QAMConstellation(order, deltas=2 * const.kappa)
-        kl = komm.ReflectedRectangularLabeling(k)
+        # odd k: komm's rectangle of 2^ceil(k/2) x 2^floor(k/2) levels with the product of two reflected labelings
+        kc = komm.QAMConstellation(order if k % 2 == 0 else (1 << ((k + 1) // 2), 1 << (k // 2)), deltas=2 * const.kappa)
+        kl = komm.ReflectedRectangularLabeling(k if k % 2 == 0 else ((k + 1) // 2, k // 2))
         post = kc.posteriors(y, noise_power=n0)
     elif labeling == "gray":
         kc, kl = komm.PAMConstellation(2, delta=2.0), komm.ReflectedLabeling(1)
@@ -580,9 +590,10 @@ def _komm_lvalues(order: int, labeling: str, y: np.ndarray, n0: float) -> np.nda
     return kl.marginalize(post).reshape(y.size, k)
 
 
-KOMM_CASES = [(o, lab) for o in ORDERS for lab in NAMED]
+KOMM_CASES = [(o, lab) for o in ORDERS for lab in NAMED] + ODD_NAMED
 #: Es/N0 (dB) near a raw BER of 1e-2 for each order: where a decoder works
-OPERATING_DB = {2: 4.0, 4: 7.0, 16: 13.0, 64: 19.0, 256: 25.0, 1024: 31.0, 4096: 37.0}
+OPERATING_DB = {2: 4.0, 4: 7.0, 8: 10.0, 16: 13.0, 32: 16.0, 64: 19.0, 128: 22.0, 256: 25.0, 512: 28.0, 1024: 31.0,
+                2048: 34.0, 4096: 37.0}
 
 
 @pytest.mark.parametrize("order,labeling", KOMM_CASES, ids=[f"{_oid(o)}-{lab}-komm" for o, lab in KOMM_CASES])

@@ -35,15 +35,14 @@ def _toml(tmp_path: Path, text: str, name: str = "spec.toml") -> Path:
 # --- constellation -----------------------------------------------------------------------
 
 @pytest.mark.parametrize("order", [8, 32, 128, 512, 2048], ids=lambda o: f"qam{o}")
-def test_non_square_order_is_refused_clearly(order: int) -> None:
-    err = _raises(rf"constellation\.order = {order}: one of 2, 4, 16, 64, 256, 1024, 4096 "
-                  r"\(non-square orders are not supported yet\)", lambda: _spec(constellation={"order": order}))
-    assert err.key == "constellation.order" and err.value == order
+def test_odd_bit_orders_are_accepted(order: int) -> None:
+    """Odd-bit orders (rectangular by default, cross with constellation.shape; tests/test_cross.py)."""
+    assert _spec(constellation={"order": order}).constellation.shape == "rectangular"
 
 
 @pytest.mark.parametrize("order", [0, 3, 100, 8192, "16"], ids=repr)
 def test_unknown_order(order) -> None:
-    _raises(rf"constellation\.order = {re.escape(repr(order))}: one of 2, 4, 16, 64, 256, 1024, 4096",
+    _raises(rf"constellation\.order = {re.escape(repr(order))}: one of 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096",
             lambda: _spec(constellation={"order": order}))
 
 
@@ -223,7 +222,8 @@ def test_table_without_rows() -> None:
 def test_every_field_has_a_doc_and_the_dict_round_trips() -> None:
     docs = field_docs()
     spec = DesignSpec()
-    flat = {f"{s}.{k}" for s, v in spec.to_dict().items() if isinstance(v, dict) for k in v} | {"name"}
+    # constellation.shape is written out for odd-bit orders only (tests/test_cross.py)
+    flat = {f"{s}.{k}" for s, v in spec.to_dict().items() if isinstance(v, dict) for k in v} | {"name", "constellation.shape"}
     assert set(docs) == flat
     assert all(doc.strip() and "\n" not in doc for doc in docs.values())
     assert DesignSpec.from_dict(spec.to_dict()) == spec
@@ -251,7 +251,7 @@ def test_bad_name() -> None:
 
 def test_float_order_is_refused_with_its_integer() -> None:
     """TOML `order = 16.0` is a float (16.0 == 16 in Python): refused, not a traceback in bit_length."""
-    message = r"constellation\.order = 16\.0: one of 2, 4, 16, 64, 256, 1024, 4096 \(an integer: 16, not 16\.0\)"
+    message = r"constellation\.order = 16\.0: one of 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096 \(an integer: 16, not 16\.0\)"
     _raises(message, lambda: DesignSpec.from_dict({"constellation": {"order": 16.0}}))
     _raises(message, lambda: DesignSpec().with_settings({"constellation.order": parse_value("16.0")}))
     _raises(r"mapper\.width = 12\.0: an integer from 2 to 20 \(an integer: 12, not 12\.0\)",
@@ -403,7 +403,7 @@ def test_table_csv_without_an_order_takes_the_row_count(tmp_path: Path) -> None:
     path = _toml(tmp_path, f'[constellation]\nlabeling = "table"\ntable_file = "{csv.name}"\n')
     assert DesignSpec.from_toml(path).constellation.order == 4
     three = _toml(tmp_path, "\n".join(QPSK[:3]) + "\n", "three.csv")
-    _raises(r"constellation\.table_file = '3 rows': one row per label: 2, 4, 16, 64, 256, 1024, 4096 rows "
+    _raises(r"constellation\.table_file = '3 rows': one row per label: 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096 rows "
             r"\(constellation\.order, not set, is the number of rows\)",
             lambda: DesignSpec().with_settings({"constellation.labeling": "table", "constellation.table_file": str(three)}))
     # an order the user set is kept, and the table is named against it
@@ -450,4 +450,5 @@ def test_what_the_user_wrote_is_not_part_of_the_spec(tmp_path: Path) -> None:
     assert from_file.given == frozenset({"mapper.width"})
     assert from_file == DesignSpec() and hash(from_file) == hash(DesignSpec()) and repr(from_file) == repr(DesignSpec())
     assert from_file.with_settings({"demapper.llr_width": 6}).given == frozenset({"mapper.width", "demapper.llr_width"})
-    assert DesignSpec.from_dict(from_file.to_dict()).given == frozenset(field_docs())
+    # every key of the resolved spec (constellation.shape only for odd-bit orders)
+    assert DesignSpec.from_dict(from_file.to_dict()).given == frozenset(field_docs()) - {"constellation.shape"}

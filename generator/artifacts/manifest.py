@@ -72,6 +72,55 @@ def _axis_entry(design: Design, n: int) -> dict[str, Any] | None:
     return entry
 
 
+def _cross_entry(design: Design) -> dict[str, Any]:
+    """A cross's demapper structure: the enclosing square, the two product pieces, the per-axis tables, the plan."""
+    cd = design.cross
+    cross = cd.cross
+    f = design.spec.demapper.input_fraction
+
+    def piece(pc) -> dict[str, Any]:
+        return {"i": {"amplitudes": list(pc.i.amplitudes), "label_bits": list(pc.i.label_bits), "codes": list(pc.i.codes)},
+                "q": {"amplitudes": list(pc.q.amplitudes), "label_bits": list(pc.q.label_bits), "codes": list(pc.q.codes)},
+                "constant_bits": {f"b{b}": v for b, v in pc.constants}}
+
+    axes = {}
+    for name, ax in cd.axes.items():
+        axes[name] = {"input": "iq"[ax.component], "levels": list(ax.levels), "place": [int(x) for x in ax.place],
+                      "metrics": {f"b{m.bit}": {"competitor": m.competitor.tolist(), "uses_sign": m.uses_sign,
+                                                "level_bit": [int(x) for x in m.level_bit]} for m in ax.metrics}}
+    plan = {}
+    for pb in cd.bits:
+        if pb.kind == "sign":
+            plan[f"b{pb.bit}"] = {"kind": "sign", "axis": pb.core, "llr": f"R({pb.core}, b{pb.bit}) - X_min"}
+        else:
+            plan[f"b{pb.bit}"] = {"kind": "pieces", "core": pb.core, "arms": pb.arms,
+                                  "arms_constant": None if pb.arms is not None else pb.arms_value,
+                                  "llr": "min(R_W, D + (agree ? R_L : 0))"}
+    s = cd.span
+    return {
+        "construction": ("Smith's cross (J. G. Smith, IEEE Trans. Commun. 23(3), 1975): the Gray 2N x N rectangle "
+                         "with its N/4 outer columns per side folded onto the top and bottom, (I, Q) -> "
+                         "(sgn(I)|Q|, sgn(Q)(|I| - N/2)), every point keeping its label"),
+        "n": cross.n, "square_levels": s, "corner_levels": cross.corner,
+        "square_level_input_codes": [(2 * n - (s - 1)) << f for n in range(s)],
+        "square_decision_boundaries": [(2 * n - s + 2) << f for n in range(s - 1)],
+        "pieces": {"core": piece(cross.core), "arms": piece(cross.arms)},
+        "axes": axes,
+        "bits": plan,
+        "steps": [
+            "per axis: n = clamp((y + (S << f)) >>> (f+1), 0, S-1), e = y - ((2n - (S-1)) << f): the enclosing square",
+            "per piece axis: its level place[n], dn = place[n] - n, e_p = e - (2 dn << f), delta = dn ((dn << f) - e)",
+            "per piece axis and bit: R = dn ((dn << f) - e_p), dn = competitor[place[n]][e_p < 0]; the decided bit",
+            "X_core = delta(core_q), X_arms = delta(arms_i) + delta(arms_q); the arms win where X_arms < X_core; "
+            "D = |X_arms - X_core|, X_min = min(X_core, X_arms)",
+            "sign bits: |LLR| = R - X_min; other bits: |LLR| = min(R_W, D + (decided bits agree ? R_L : 0)), "
+            "R infinite in a piece that holds the bit constant; negative: the winner's decided bit",
+            "the output stage (P = |LLR| S, rounding shift, symmetric saturation, sign)",
+        ],
+        "units": "R, delta, X and D in the per-axis metric's units: (2 amplitude units)^2 with f fraction bits",
+    }
+
+
 def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, Any], rtl: dict[str, Any],
                    testbench: dict[str, Any]) -> dict[str, Any]:
     """The manifest: every derived number the RTL, testbenches and reports read, the kit's files, the file list."""
@@ -81,7 +130,7 @@ def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, A
     labels = np.arange(const.order)
     dem: dict[str, Any] = {
         "algorithm": d.algorithm,
-        "structure": "per-axis" if design.per_axis else "2-D search",
+        "structure": "per-axis" if design.per_axis else "cross" if design.cross is not None else "2-D search",
         "input_lsb": design.input_lsb, "llr_lsb": design.llr_lsb, "scale_lsb": design.scale_lsb,
         "input_format": _qformat(design.input_format), "llr_format": _qformat(design.llr_format),
         "scale_format": _qformat(design.scale_format),
@@ -95,10 +144,12 @@ def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, A
                             f"{d.scale_width} bits, so no out-of-range code exists" if design.scale_format else
                             "no reliability input (demapper.scale_width = 0): scale = 1"),
         "per_axis": ({"i": _axis_entry(design, 0), "q": _axis_entry(design, 1)} if design.per_axis else None),
-        "search_points": (None if design.per_axis else
+        "search_points": (None if design.per_axis or design.cross is not None else
                           [[int(lab), int(a), int(b)] for lab, a, b in zip(labels, design.search_i, design.search_q)]),
     }
-    if not design.per_axis:
+    if design.cross is not None:
+        dem["cross"] = _cross_entry(design)
+    elif not design.per_axis:
         m, k = const.order, design.bits
         dem["search_cost"] = {"points": m, "distances_per_symbol": m,
                               "min_trees_per_symbol": 2 * k, "compares_per_symbol": 2 * k * (m // 2 - 1),
@@ -111,7 +162,10 @@ def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, A
                      "llr": _qformat(design.llr_format), "scale": _qformat(design.scale_format)},
         "constellation": {"order": const.order, "bits": design.bits, "labeling": const.labeling,
                           "kappa": const.kappa, "energy": const.energy,
-                          "axes": "per-axis (product labeling)" if design.per_axis else "none (2-D search)"},
+                          "axes": ("per-axis (product labeling)" if design.per_axis else
+                                   "none: Smith's cross, two product pieces" if design.cross is not None else
+                                   "none (2-D search)"),
+                          **({"shape": const.shape} if design.bits % 2 and const.order > 2 else {})},
         "mapper": {
             "points": [[int(lab), int(a), int(b)] for lab, a, b in zip(labels, design.point_i, design.point_q)],
             "lsb": design.mapper_lsb, "width": design.mapper_format.width, "scaling": spec.mapper.scaling,

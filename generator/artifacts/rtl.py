@@ -80,8 +80,8 @@ def rtl_manifest(design: Design) -> dict[str, Any]:
             entry["implementation"] = (design.spec.mapper.implementation if design.per_axis else "points")
         else:
             entry["algorithm"] = design.spec.demapper.algorithm
-            entry["architecture"] = ("per-axis" if design.per_axis
-                                     else f"2-D search over {design.constellation.order} points")
+            entry["architecture"] = ("per-axis" if design.per_axis else "cross (two per-axis pieces)"
+                                     if design.cross is not None else f"2-D search over {design.constellation.order} points")
             if design.scale_format:
                 entry["scale"] = ("unsigned code in tdata above Q; LLR = rounded(metric x scale); "
                                   "scale 0 gives LLR 0, every code up to the maximum is exact (no range check needed)")

@@ -3,7 +3,9 @@
 Mapper: every label once, then seeded random labels. Demapper: every input code of each axis
 (an even sample above 2^16 codes) with the other axis random, the extreme codes of both axes
 crossed (min, max, 0, +-1, the levels, the decision boundaries and the clamp points, +-1), every
-reliability code, then seeded random inputs. The seed is the design's content hash.
+reliability code, then seeded random inputs. A cross adds I x Q pairs around its four cut corners
+(the codes near the corner's edges crossed, and the diagonal where the core's and the arms' nearest
+points tie). The seed is the design's content hash.
 """
 
 from __future__ import annotations
@@ -26,6 +28,8 @@ RANDOM_VECTORS = 4096
 MAX_SWEEP = 1 << 16
 #: extreme I x Q codes are crossed exhaustively up to this many pairs, paired beyond
 MAX_CROSS = 4096
+#: a cross: I x Q pairs around the cut corners (edges crossed, diagonals) up to this many
+MAX_CORNER = 4096
 
 
 def output_header(design: Design, block: str, count: int) -> str:
@@ -77,8 +81,39 @@ def special_codes(design: Design, axis: int) -> np.ndarray:
         pts = np.unique(design.search_i if axis == 0 else design.search_q)
         centres |= {int(p) for p in pts}
         centres |= {int(a + b) // 2 for a, b in zip(pts[:-1], pts[1:])}      # midpoints
+        if design.cross is not None:                                          # where the square's decision clamps
+            centres |= {design.cross.span << f, -(design.cross.span << f)}
     codes = base | {c + d for c in centres for d in (-1, 0, 1)}
     return np.asarray(sorted(c for c in codes if fmt.min_code <= c <= fmt.max_code), dtype=np.int64)
+
+
+def corner_codes(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """A cross: (I, Q) pairs around the four cut corners, where the demapper's 2-D step decides.
+
+    Per quadrant, the codes near the corner's edges (the boundary N between the core and the corner, the
+    outermost level S-1 and the square's clamp S, each +-1 and +-2^f, and the level N+1 and N-1) crossed
+    with each other, and the diagonal |I| = |Q| (+-1) from the corner's edge out to the largest code, where
+    the core's and the arms' nearest points are equally far. At most MAX_CORNER pairs (evenly sampled)."""
+    fmt = design.input_format
+    f = design.spec.demapper.input_fraction
+    cross = design.cross.cross
+    n, s = cross.n, cross.span
+    edges = {n << f, (n - 1) << f, (n + 1) << f, (s - 1) << f, s << f, (n + 2) << f}
+    near = sorted({c + d for c in edges for d in (-(1 << f), -1, 0, 1, 1 << f)})
+    near = np.asarray([c for c in near if 0 < c <= fmt.max_code], dtype=np.int64)
+    gi, gq = np.meshgrid(near, near, indexing="ij")
+    diag = np.arange(max((n << f) - (1 << f), 0), fmt.max_code + 1, dtype=np.int64)
+    if diag.size > MAX_CORNER // 16:
+        diag = np.unique(np.linspace(diag[0], diag[-1], MAX_CORNER // 16).round().astype(np.int64))
+    ai = np.concatenate([gi.ravel(), diag, diag, np.minimum(diag + 1, fmt.max_code)])
+    aq = np.concatenate([gq.ravel(), diag, np.minimum(diag + 1, fmt.max_code), diag])
+    # the four quadrants: the mirror of a positive code c is -c (every one of them is an input code)
+    ci = np.concatenate([ai, -ai, ai, -ai])
+    cq = np.concatenate([aq, aq, -aq, -aq])
+    if ci.size > MAX_CORNER:
+        keep = np.sort(rng.choice(ci.size, MAX_CORNER, replace=False))
+        ci, cq = ci[keep], cq[keep]
+    return ci, cq
 
 
 def demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, str]:
@@ -109,6 +144,11 @@ def demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndar
             parts_i.append(np.resize(a, n))
             parts_q.append(rng.permutation(np.resize(b, n)))
         notes.append("extreme codes (min, max, 0, +-1, levels, boundaries) paired at random")
+    if design.cross is not None:
+        ci, cq = corner_codes(design, rng)
+        parts_i.append(ci)
+        parts_q.append(cq)
+        notes.append(f"{ci.size} I x Q pairs around the cross's cut corners (edges crossed, diagonals)")
     scale = None
     sfmt = design.scale_format
     if sfmt is not None:
@@ -160,4 +200,4 @@ def vector_files(design: Design) -> tuple[dict[str, bytes], dict[str, Any]]:
     return files, entry
 
 
-__all__ = ["demapper_stimulus", "mapper_stimulus", "output_header", "special_codes", "vector_files"]
+__all__ = ["corner_codes", "demapper_stimulus", "mapper_stimulus", "output_header", "special_codes", "vector_files"]

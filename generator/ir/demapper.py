@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model import AxisDemap, Design, OutputStage, decide
+from . import cross
 from .build import Builder
 from .core import Const, Datapath, Field, Operand, Signal, width_for
 
@@ -60,6 +61,13 @@ class SoftBit:
 
 def demapper_datapath(design: Design) -> Datapath:
     """The demapper's datapath: input {S, Q, I}, output k LLR fields (b0 most significant) or k hard bits."""
+    if design.cross is not None:              # Smith's cross: ir.cross, then the same output stage
+        if design.spec.demapper.algorithm == "hard":
+            return cross.hard_datapath(design)
+        soft = cross.soft_bits(design)
+        llrs = [SoftBit(ident, mag, neg, lsb) for ident, mag, neg, lsb in soft.bits]
+        outs = output_stage(soft.builder, design.output_stage, llrs, soft.scale, design.spec.demapper.llr_width)
+        return soft.builder.build([Field(sig, lsb) for sig, lsb in outs], soft.out_width, soft.in_width)
     d = design.spec.demapper
     W, k = d.input_width, design.bits
     hard = d.algorithm == "hard"

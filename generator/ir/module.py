@@ -127,7 +127,8 @@ def _summary(design: Design, role: str, latency: int) -> tuple[str, ...]:
         lines += [f"Output: {k} signed {d.llr_width}-bit LLRs (positive: bit 0 more likely), b0 in the most "
                   "significant field;", f"        saturated symmetrically to +-{design.llr_format.max_code}."]
     arch = ("per axis (decide by shift and clamp, nearest competitor from a table)" if design.per_axis
-            else f"2-D search over every point ({c.order})")
+            else "Smith's cross (per-axis metrics of its two pieces, then min(R_W, D + R_L) per bit)"
+            if design.cross is not None else f"2-D search over every point ({c.order})")
     lines.append(f"Architecture: {arch}; latency {latency} cycles, one symbol per clock.")
     return tuple(lines)
 

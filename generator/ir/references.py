@@ -4,6 +4,8 @@
   the levels carrying 1 and over those carrying 0; D = min1^2 - min0^2 = (min1 - min0)(min1 + min0)
   in input codes squared, so D / 2^(f+2) is the maxlog demapper's metric R; then the same output
   stage. What a straightforward design costs, to compare the per-axis maxlog demapper with.
+  A cross (no per-axis structure): the squared distance to every point (the squares of y - c shared
+  per coordinate), per label bit the two minima, D = min1 - min0, R = D / 2^(f+2), the same output stage.
 * bare adder: a registered adder of the demapper's widest adder word: the fabric's speed limit
   for such a word, to compare every module's Fmax with.
 """
@@ -48,9 +50,12 @@ def adder_module(name: str, width: int) -> Module:
 
 
 def bruteforce_module(design: Design, name: str) -> Module:
-    """The brute-force per-axis max-log demapper at the design's widths (product labelings, soft output)."""
+    """The brute-force max-log demapper at the design's widths (soft output): per axis for a product labeling,
+    over every point in 2-D for a cross."""
+    if design.cross is not None:
+        return _bruteforce_2d(design, name)
     if not design.per_axis:
-        raise ValueError("a brute-force per-axis reference needs a product labeling")
+        raise ValueError("a brute-force reference needs a product labeling or a cross")
     d = design.spec.demapper
     W, f, k, lw = d.input_width, d.input_fraction, design.bits, d.llr_width
     sw = design.scale_format.width if design.scale_format else 0
@@ -103,3 +108,51 @@ def bruteforce_module(design: Design, name: str) -> Module:
 
 
 __all__ = ["BRUTEFORCE_STAGES", "adder_module", "bruteforce_module", "widest_adder"]
+
+
+def _bruteforce_2d(design: Design, name: str) -> Module:
+    """The brute-force 2-D max-log demapper of a cross: every point's squared distance, two minima per bit."""
+    d = design.spec.demapper
+    W, f, k, lw = d.input_width, d.input_fraction, design.bits, d.llr_width
+    sw = design.scale_format.width if design.scale_format else 0
+    b = Builder()
+    codes = design.input_codes
+    yi = b.input("y_i", W, True, 0, domain="i", values=codes)
+    yq = b.input("y_q", W, True, W, domain="q", values=codes)
+    scale = b.input("scale", sw, False, 2 * W, domain="scale", values=np.arange(1 << sw)) if sw else None
+    b.step("distance", "per coordinate (y - c)^2, shared by the points on it; per point the sum, in input codes squared")
+    squares = {}
+    for y, coords in ((yi, design.search_i), (yq, design.search_q)):
+        c = y.name[-1]
+        for code in sorted(set(int(v) for v in coords)):
+            tag = f"{c}{'m' if code < 0 else 'p'}{abs(code)}"
+            diff = b.sub(f"diff_{tag}", y, code)
+            squares[(c, code)] = b.mul(f"sq_{tag}", diff, diff)
+    dist = [b.add(f"d_{lab}", squares[("i", int(ci))], squares[("q", int(cq))], note=f"point {lab} at ({ci}, {cq})")
+            for lab, (ci, cq) in enumerate(zip(design.search_i, design.search_q))]
+    b.step("minimum", "per label bit: the nearest point carrying 1 and the nearest carrying 0")
+    minima = []
+    for bit in range(k):
+        ones = [(dist[lab], lab) for lab in range(len(dist)) if (lab >> (k - 1 - bit)) & 1]
+        zeros = [(dist[lab], lab) for lab in range(len(dist)) if not (lab >> (k - 1 - bit)) & 1]
+        minima.append((bit, min_tree(b, f"min1_{bit}", ones)[0], min_tree(b, f"min0_{bit}", zeros)[0]))
+    b.step("metric", f"D = min1 - min0 in input codes squared; R = |D| / 2^{f + 2}")
+    llrs = []
+    for bit, m1, m0 in minima:
+        dif = b.sub(f"dif_{bit}", m1, m0)
+        neg = b.resize(f"neg_{bit}", dif.msb, 1, False)
+        nd = b.sub(f"nd_{bit}", m0, m1)
+        top = max(abs(dif.lo), abs(dif.hi))
+        full = b.mux(f"abs_{bit}", neg, nd, dif, width=max(top.bit_length(), f + 3), signed=False)
+        mag = b.resize(f"mag_{bit}", full[full.width - 1:f + 2], full.width - f - 2, False)
+        llrs.append(SoftBit(str(bit), mag, neg, (k - 1 - bit) * lw))
+    outs = output_stage(b, design.output_stage, llrs, scale, lw)
+    dp = b.build([Field(s, lsb) for s, lsb in outs], k * lw, 2 * W + sw)
+    i = design.spec.interface
+    return Module(name=name, role="reference", summary=(
+        "Reference brute-force 2-D max-log demapper of a cross, generated only for the hardware comparison: the",
+        "squared distance to every point, two minima per label bit, D = min1 - min0, then the same output stage",
+        "at the same widths. Never part of a design."),
+        datapath=dp, schedule=schedule(dp, ICE40, stages=BRUTEFORCE_STAGES, carried=sideband(i.tlast, i.tuser_width)),
+        ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width))
+

@@ -8,7 +8,7 @@ size the internal widths and become the fast path's per-axis tables.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from types import MappingProxyType
 from typing import Mapping
@@ -18,6 +18,8 @@ import numpy as np
 from ..errors import SpecError
 from ..numbers import Axis, Constellation, QFormat, bits_for_range, from_table, named, round_float
 from ..spec import MAX_WIDTH, DesignSpec
+from .cross import AXIS_NAMES, CrossDemap, axis_terms, cross_demap, magnitude_bound, term_ranges
+from .cross import decide as cross_decide
 from .steps import AxisDemap, OutputStage, axis_steps, decide, output
 
 #: int64 products must stay below this (the model's exactness limit and a sane hardware limit)
@@ -59,6 +61,10 @@ class Design:
     #: per-axis final LLR tables (N_codes, k), when there is no reliability input
     llr_tables: tuple[np.ndarray, ...]
     hard_tables: tuple[np.ndarray, ...]
+    #: a cross shape: the demapper's plan (model.cross), else None
+    cross: CrossDemap | None = None
+    #: a cross shape: every per-axis quantity over every input code, by axis name (the fast path's tables)
+    cross_terms: Mapping[str, Mapping[str, np.ndarray]] = field(default_factory=lambda: MappingProxyType({}))
 
     @property
     def bits(self) -> int:
@@ -83,7 +89,7 @@ def constellation_of(spec: DesignSpec) -> Constellation:
     c = spec.constellation
     if c.labeling == "table":
         return from_table(c.order, c.table)
-    return named(c.order, c.labeling)
+    return named(c.order, c.labeling, c.shape)
 
 
 def _frozen(*arrays: np.ndarray) -> None:
@@ -130,13 +136,17 @@ def derive(spec: DesignSpec) -> Design:
         if len(set(zip(search_i.tolist(), search_q.tolist()))) != const.order:
             raise _search_refusal(spec, const)
         metric_fraction = 2 * f + 2
+    cross = cross_demap(const.cross) if const.cross is not None else None
+    if cross is not None:                       # the cross demapper's metrics are the per-axis metric's R units
+        metric_fraction = f
     _frozen(search_i, search_q)
     stage = OutputStage(shift=metric_fraction + (d.scale_fraction if sfmt else 0) - d.llr_fraction,
                         rounding=d.rounding, llr_max=lfmt.max_code)
     # the per-axis steps over every input code: they size the widths and become the fast path's tables
     codes = np.arange(ifmt.min_code, ifmt.max_code + 1, dtype=np.int64)
     steps = [axis_steps(ad, d.algorithm, f, codes) for ad in axes]
-    widths = _widths(spec, ifmt, sfmt, axes, steps, search_i, search_q, codes)
+    cross_terms = _cross_terms(cross, codes, f) if cross is not None else MappingProxyType({})
+    widths = _widths(spec, ifmt, sfmt, axes, steps, search_i, search_q, codes, cross)
     tables, llr_tables, hard_tables = _tables(const.bits, axes, steps, stage, sfmt is None)
     return Design(
         spec=spec, constellation=const, mapper_format=mfmt, mapper_lsb=mlsb, point_i=pi, point_q=pq,
@@ -145,7 +155,21 @@ def derive(spec: DesignSpec) -> Design:
         llr_lsb=4.0 * kappa * kappa * 2.0 ** -d.llr_fraction, scale_format=sfmt,
         scale_lsb=(2.0 ** -d.scale_fraction) if sfmt else 1.0, metric_fraction=metric_fraction,
         output_stage=stage, axes=axes, search_i=search_i, search_q=search_q,
-        widths=MappingProxyType(widths), tables=tables, llr_tables=llr_tables, hard_tables=hard_tables)
+        widths=MappingProxyType(widths), tables=tables, llr_tables=llr_tables, hard_tables=hard_tables,
+        cross=cross, cross_terms=cross_terms)
+
+
+def _cross_terms(cross: CrossDemap, codes: np.ndarray, f: int) -> Mapping[str, Mapping[str, np.ndarray]]:
+    """A cross's per-axis quantities (model.cross.axis_terms) over every input code, read-only, narrow dtypes."""
+    out = {}
+    for name in AXIS_NAMES:
+        arrays = {}
+        for key, v in axis_terms(cross, name, codes, f).items():
+            dtype = np.int8 if key.startswith("h") else np.int32 if max(-int(v.min()), int(v.max())) < 2 ** 31 else np.int64
+            arrays[key] = v.astype(dtype)
+            arrays[key].setflags(write=False)
+        out[name] = MappingProxyType(arrays)
+    return MappingProxyType(out)
 
 
 def _search_refusal(spec: DesignSpec, const: Constellation) -> SpecError:
@@ -344,12 +368,27 @@ def _axis_demap(ax: Axis, f: int) -> AxisDemap:
 
 
 def _widths(spec: DesignSpec, ifmt: QFormat, sfmt: QFormat | None, axes: tuple[AxisDemap, ...], steps: list,
-            search_i: np.ndarray, search_q: np.ndarray, codes: np.ndarray) -> dict[str, tuple[int, bool]]:
-    """Widths of the model's intermediates from their exact range over every input code."""
+            search_i: np.ndarray, search_q: np.ndarray, codes: np.ndarray,
+            cross: CrossDemap | None = None) -> dict[str, tuple[int, bool]]:
+    """Widths of the model's intermediates from their exact range over every input code.
+
+    A cross: the per-axis quantities exactly, the 2-D ones (X, D, the metric) by interval arithmetic on them.
+    """
     d = spec.demapper
     w: dict[str, tuple[int, bool]] = {}
     smax = sfmt.max_code if sfmt else 1
-    if axes:
+    if cross is not None:
+        f = d.input_fraction
+        ranges = term_ranges(cross, codes, f)
+        e = cross_decide(cross, codes, f)[1]
+        w["residual"] = bits_for_range(int(e.min()), int(e.max()))
+        dn_max = max(int(np.abs(m.competitor).max()) for ax in cross.axes.values() for m in ax.metrics)
+        w["competitor"] = bits_for_range(-dn_max, dn_max)
+        bound = magnitude_bound(cross, ranges)
+        w["delta"] = bits_for_range(0, max(r["delta"][1] for r in ranges.values()))
+        w["gap"] = bits_for_range(0, bound["gap"])
+        mag_max = bound["magnitude"]
+    elif axes:
         e_lo = e_hi = dn_max = mag_max = 0
         for ad, (mag, _, _) in zip(axes, steps):
             _, e = decide(ad, codes, d.input_fraction)

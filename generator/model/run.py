@@ -9,6 +9,8 @@ import numpy as np
 
 from ..numbers import bits_to_labels, label_bits, quantize
 from ..spec import DesignSpec
+from .cross import combine as cross_combine
+from .cross import steps as cross_steps
 from .design import Design, derive
 from .steps import axis_steps, output
 
@@ -66,6 +68,9 @@ def demap(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.nda
     i, q, scale = _check_codes(design, i, q, scale)
     if design.spec.demapper.algorithm == "hard":
         return hard_decisions(design, i, q).astype(np.int32)
+    if design.cross is not None:
+        mag, neg, _ = _cross_tables(design, i, q)
+        return output(design.output_stage, mag, neg, None if scale is None else scale[:, None]).astype(np.int32)
     if not design.per_axis:
         mag, neg, _ = _search(design, i, q)
         return output(design.output_stage, mag, neg, None if scale is None else scale[:, None]).astype(np.int32)
@@ -88,6 +93,11 @@ def demap_direct(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale:
     """`demap` computed through the step functions on the given inputs (no tables); for tests."""
     design = _design(spec)
     i, q, scale = _check_codes(design, i, q, scale)
+    if design.cross is not None:
+        mag, neg, hard = cross_steps(design.cross, i, q, design.spec.demapper.input_fraction, design.bits)
+        if design.spec.demapper.algorithm == "hard":
+            return hard.astype(np.int32)
+        return output(design.output_stage, mag, neg, None if scale is None else scale[:, None]).astype(np.int32)
     if design.spec.demapper.algorithm == "hard" or not design.per_axis:
         return demap(design, i, q, scale)
     out = np.zeros((i.size, design.bits), dtype=np.int32)
@@ -102,6 +112,8 @@ def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray) -> n
     """Hard-decided bits (N, k) of input codes: the nearest point's label (ties to the upper level)."""
     design = _design(spec)
     i, q, _ = _check_codes(design, i, q, 1 if design.scale_format else None)
+    if design.cross is not None:
+        return _cross_tables(design, i, q)[2]
     if not design.per_axis:
         return _search(design, i, q)[2]
     offset = -design.input_format.min_code
@@ -109,6 +121,15 @@ def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray) -> n
     if len(design.axes) > 1:
         out |= np.take(design.hard_tables[1], q + offset, axis=0)
     return out
+
+
+def _cross_tables(design: Design, i: np.ndarray, q: np.ndarray):
+    """A cross: (|LLR| metric, negative, hard bits) from the per-axis tables and the 2-D step (model.cross)."""
+    offset = -design.input_format.min_code
+    idx = (i + offset, q + offset)
+    t = {name: {key: np.take(v, idx[design.cross.axes[name].component]).astype(np.int64) for key, v in arrays.items()}
+         for name, arrays in design.cross_terms.items()}
+    return cross_combine(design.cross, t, design.bits)
 
 
 def _search(design: Design, i: np.ndarray, q: np.ndarray, chunk: int = 4096):

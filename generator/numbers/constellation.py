@@ -1,9 +1,11 @@
 """Constellations and bit labelings, in amplitude units (half the minimum distance = 1).
 
 A label is an integer of k bits whose most significant bit is b0, the first bit in time.
-Every named labeling is a product of two per-axis PAM labelings (an `Axis` each for I and
-Q); 3GPP BPSK, whose one bit moves both I and Q, and user tables that are not products
-are `Constellation`s without axes, demapped by an exact search over all points.
+Every named labeling of a square or rectangular shape is a product of two per-axis PAM
+labelings (an `Axis` each for I and Q; odd-bit rectangles have 2^ceil(k/2) levels on I and
+2^floor(k/2) on Q); 3GPP BPSK, whose one bit moves both I and Q, and user tables that are not
+products are `Constellation`s without axes, demapped by an exact search over all points.
+A cross (odd k >= 5) has no axes either but a `Cross`: two rectangular pieces, each a product.
 """
 
 from __future__ import annotations
@@ -81,6 +83,66 @@ class Axis:
         return (np.asarray(codes) >> (self.bits - 1 - j)) & 1
 
 
+@dataclass(frozen=True)
+class PieceAxis:
+    """One axis of a piece of a cross: its levels (amplitude units, ascending, odd, maybe with a gap) and
+    the label bits that vary along it."""
+
+    amplitudes: tuple[int, ...]
+    #: label bits (0 = b0) carried by this axis, axis bit 0 (the axis label's MSB) first
+    label_bits: tuple[int, ...]
+    #: axis label of each level, in the order of `amplitudes`
+    codes: tuple[int, ...]
+
+    def bit_of_level(self, label_bit: int) -> tuple[int, ...]:
+        """The value of `label_bit` (one this axis carries) at each level."""
+        j = self.label_bits.index(label_bit)
+        return tuple((c >> (len(self.label_bits) - 1 - j)) & 1 for c in self.codes)
+
+
+@dataclass(frozen=True)
+class Piece:
+    """A rectangular grid of points whose labeling is a product: label = I bits | Q bits | constant bits."""
+
+    name: str
+    i: PieceAxis
+    q: PieceAxis
+    #: label bits with one value over the whole piece, and that value of each (0/1)
+    constants: tuple[tuple[int, int], ...]
+
+    def carrier(self, label_bit: int) -> str | None:
+        """'i' or 'q': the axis along which `label_bit` varies; None when it is constant over the piece."""
+        if label_bit in self.i.label_bits:
+            return "i"
+        if label_bit in self.q.label_bits:
+            return "q"
+        return None
+
+
+@dataclass(frozen=True)
+class Cross:
+    """Smith's cross of M = 2^k points, k = 2m + 1 >= 5: the S x S square (S = 3N/2 levels per axis, N = 2^m)
+    without its four c x c corners (c = N/4), as two products: the core |I| <= S-1, |Q| <= N-1 and the arms
+    |I| <= N-1, N+1 <= |Q| <= S-1. Levels of the enclosing square: amplitude 2n - (S-1), n = 0 .. S-1."""
+
+    bits: int
+    #: N = 2^m: the core's Q levels and the arms' I levels
+    n: int
+    #: S = 3N/2: levels per axis of the enclosing square
+    span: int
+    core: Piece
+    arms: Piece
+
+    @property
+    def corner(self) -> int:
+        """c = N/4: the side, in levels, of each missing corner block."""
+        return self.n // 4
+
+    @property
+    def pieces(self) -> tuple[Piece, Piece]:
+        return self.core, self.arms
+
+
 @dataclass(frozen=True, eq=False)
 class Constellation:
     """Points (complex, amplitude units) indexed by label, with per-axis structure when it has one."""
@@ -89,8 +151,15 @@ class Constellation:
     labeling: str
     #: complex amplitude of each label, shape (M,)
     points: np.ndarray
-    #: (I axis, Q axis) for a product labeling, or None for a 2-D search
+    #: (I axis, Q axis) for a product labeling, or None for a 2-D search (and a cross)
     axes: tuple[Axis, Axis] | None
+    #: the two product pieces of a cross shape, None for every other shape
+    cross: Cross | None = None
+
+    @property
+    def shape(self) -> str:
+        """'cross', or 'rectangular' (squares included) for a named labeling; 'table' for a user table."""
+        return "cross" if self.cross is not None else "table" if self.labeling == "table" else "rectangular"
 
     @property
     def bits(self) -> int:
@@ -145,9 +214,14 @@ _NO_AXIS = Axis(1, (), (0,))
 
 
 @lru_cache(maxsize=None)
-def named(order: int, labeling: str) -> Constellation:
-    """The constellation of a named labeling (see LABELINGS)."""
+def named(order: int, labeling: str, shape: str = "rectangular") -> Constellation:
+    """The constellation of a named labeling (see LABELINGS); odd-bit orders as a rectangle or Smith's cross."""
     k = bits_per_symbol(order)
+    if shape == "cross":
+        if labeling != "gray" or k < 5 or k % 2 == 0:
+            raise SpecError("constellation.shape", shape, "rectangular for this order and labeling (a cross needs an "
+                            "odd-bit order of 32 points or more and labeling gray)")
+        return _cross(order)
     if order == 2:
         if labeling == "3gpp-nr":
             # TS 38.211 5.1.2: d = (1 - 2 b0)(1 + j)/sqrt(2): one bit drives both axes.
@@ -156,6 +230,16 @@ def named(order: int, labeling: str) -> Constellation:
             return Constellation(order, labeling, points, None)
         # gray, ieee-802.11 and natural BPSK: b0 = 0 at -1, b0 = 1 at +1, on I only.
         return _product(order, labeling, _axis(2, (0,), (0, 1)), _NO_AXIS)
+    if k % 2:
+        # odd k: 2^ceil(k/2) x 2^floor(k/2) levels, the first ceil(k/2) bits on I, per-axis Gray or natural
+        mi, mq = (k + 1) // 2, k // 2
+        ni, nq = np.arange(1 << mi), np.arange(1 << mq)
+        if labeling == "gray":
+            return _product(order, labeling, _axis(1 << mi, range(mi), brgc(ni)), _axis(1 << mq, range(mi, k), brgc(nq)))
+        if labeling == "natural":
+            return _product(order, labeling, _axis(1 << mi, range(mi), ni), _axis(1 << mq, range(mi, k), nq))
+        raise SpecError("constellation.labeling", labeling, f"gray, natural or table for order {order} ({labeling} "
+                        "defines no odd-bit order)")
     m = k // 2
     levels = 1 << m
     n = np.arange(levels)
@@ -174,9 +258,88 @@ def named(order: int, labeling: str) -> Constellation:
     raise SpecError("constellation.labeling", labeling, f"one of {', '.join(LABELINGS)}")
 
 
-def standard_energy(order: int) -> float:
-    """Average energy, in amplitude units squared, of the order's standard grid (levels +-1, +-3, ...)."""
-    return 1.0 if order == 2 else 2.0 * (order - 1) / 3.0
+def _cross(order: int) -> Constellation:
+    """Smith's cross (J. G. Smith, "Odd-bit quadrature amplitude-shift keying", IEEE Trans. Commun. 23(3), 1975).
+
+    Start from the Gray-labeled 2N x N rectangle (N = 2^m, k = 2m + 1: the I axis carries b0 .. bm, the Q axis
+    b(m+1) .. b2m, binary-reflected Gray per axis); fold the c = N/4 outer columns on each side onto the top and
+    bottom, every point keeping its label. The fold used here swaps the magnitudes and keeps the signs:
+    (I, Q) -> (sgn(I) |Q|, sgn(Q) (|I| - N/2)); the i-th outer column from the cross's edge becomes the i-th row
+    beyond the core. (Smith's paper and Vitthaladevuni, Alouini and Kieffer, IEEE Trans. Wireless Commun. 4(6),
+    2005, describe the fold of the rectangle's outer columns; the orientation written here is this project's
+    reading of it, chosen because both pieces stay products: see `Cross`.) Perfect Gray labeling of a cross
+    does not exist; the neighbour pairs that differ in more than one bit are counted in the tests.
+    """
+    k = bits_per_symbol(order)
+    m = (k - 1) // 2
+    n_q, n_i = 1 << m, 2 << m
+    span = 3 * n_q // 2
+    ni, nq = np.meshgrid(np.arange(n_i), np.arange(n_q), indexing="ij")
+    a = 2 * ni - (n_i - 1)
+    q = 2 * nq - (n_q - 1)
+    labels = ((brgc(ni) << m) | brgc(nq)).ravel()
+    outer = np.abs(a) > span - 1
+    pi = np.where(outer, np.sign(a) * np.abs(q), a).ravel()
+    pq = np.where(outer, np.sign(q) * (np.abs(a) - n_q // 2), q).ravel()
+    points = np.zeros(order, dtype=np.complex128)
+    points[labels] = pi + 1j * pq
+    points.setflags(write=False)
+    core = _piece("core", points, np.abs(points.imag) <= n_q - 1, k)
+    arms = _piece("arms", points, np.abs(points.imag) >= n_q + 1, k)
+    return Constellation(order, "gray", points, None, Cross(k, n_q, span, core, arms))
+
+
+def _piece(name: str, points: np.ndarray, member: np.ndarray, k: int) -> Piece:
+    """The product structure of the points in `member` (which label bits vary along I, along Q, or not at all)."""
+    labels = np.flatnonzero(member)
+    pi, pq = points.real[labels].astype(np.int64), points.imag[labels].astype(np.int64)
+    ai, aq = sorted(set(pi.tolist())), sorted(set(pq.tolist()))
+    if len(ai) * len(aq) != labels.size:
+        raise ValueError(f"cross piece {name} is not a full grid")
+    bits = label_bits(labels, k)
+    on_i, on_q, constants = [], [], []
+    for b in range(k):
+        col = bits[:, b]
+        by_i = {v: set(col[pi == v].tolist()) for v in ai}
+        by_q = {v: set(col[pq == v].tolist()) for v in aq}
+        if len(set(col.tolist())) == 1:
+            constants.append((b, int(col[0])))
+        elif all(len(v) == 1 for v in by_i.values()):
+            on_i.append(b)
+        elif all(len(v) == 1 for v in by_q.values()):
+            on_q.append(b)
+        else:
+            raise ValueError(f"cross piece {name}: label bit b{b} depends on both I and Q")
+
+    def axis(amps: list[int], coord: np.ndarray, carried: list[int]) -> PieceAxis:
+        codes = []
+        for v in amps:
+            row = bits[np.flatnonzero(coord == v)[0]]
+            code = 0
+            for b in carried:
+                code = (code << 1) | int(row[b])
+            codes.append(code)
+        return PieceAxis(tuple(amps), tuple(carried), tuple(codes))
+
+    return Piece(name, axis(ai, pi, on_i), axis(aq, pq, on_q), tuple(constants))
+
+
+def standard_energy(order: int, shape: str = "rectangular") -> float:
+    """Average energy, in amplitude units squared, of the order's standard grid (levels +-1, +-3, ...).
+
+    Square: 2(M-1)/3. Odd-bit rectangle of LI x LQ levels: (LI^2 - 1)/3 + (LQ^2 - 1)/3 (one PAM per axis).
+    Cross: (31M - 32)/48, from the S x S square (S = 3N/2, sum 2 S^2 (S^2 - 1)/3) less the four c x c corners
+    (c = N/4 levels at N+1, N+3, ..., S-1 on both axes), divided by M: 20 at 32 points, 82 at 128.
+    """
+    if order == 2:
+        return 1.0
+    k = bits_per_symbol(order)
+    if k % 2 == 0:
+        return 2.0 * (order - 1) / 3.0
+    if shape == "cross":
+        return (31.0 * order - 32.0) / 48.0
+    li, lq = 1 << ((k + 1) // 2), 1 << (k // 2)
+    return (li * li + lq * lq - 2) / 3.0
 
 
 def from_table(order: int, rows: tuple[tuple[int, float, float], ...]) -> Constellation:
@@ -208,7 +371,17 @@ def from_table(order: int, rows: tuple[tuple[int, float, float], ...]) -> Conste
     if not 1e-100 < peak < 1e100:             # scaled first, so that no square overflows (1e200) or underflows
         pts = pts / peak
     energy = float(np.mean(np.abs(pts) ** 2))
-    pts = pts * np.sqrt(standard_energy(order) / energy)
+    # odd-bit orders: the table is scaled to the rectangle's energy, else to the cross's when that puts it on the grid
+    shapes = ("rectangular", "cross") if bits_per_symbol(order) % 2 and order >= 32 else ("rectangular",)
+    for shape in shapes:
+        scaled = pts * np.sqrt(standard_energy(order, shape) / energy)
+        snapped = np.round(scaled.real) + 1j * np.round(scaled.imag)
+        if np.allclose(scaled, snapped, atol=1e-9) and np.all(snapped.real % 2 == 1) and np.all(
+                (snapped.imag % 2 == 1) | (order == 2)):
+            break
+    else:
+        shape = shapes[0]
+    pts = pts * np.sqrt(standard_energy(order, shape) / energy)
     snapped = np.round(pts.real) + 1j * np.round(pts.imag)
     if np.allclose(pts, snapped, atol=1e-9):
         pts = snapped
@@ -227,6 +400,10 @@ def _separate(order: int, pts: np.ndarray) -> tuple[Axis, Axis] | None:
     k = bits_per_symbol(order)
     if order == 2:
         levels_i, levels_q = 2, 1
+    elif k % 2:                                   # odd k: a rectangle either way round
+        levels_i, levels_q = len(set(pts.real.tolist())), len(set(pts.imag.tolist()))
+        if levels_i * levels_q != order or {levels_i, levels_q} != {1 << (k // 2), 1 << ((k + 1) // 2)}:
+            return None
     else:
         levels_i = levels_q = 1 << (k // 2)
     labels = np.arange(order)
