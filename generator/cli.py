@@ -19,6 +19,7 @@ from .artifacts import DesignDirectory, run_block, write_design, write_file
 from .errors import SpecError
 from .flows import analysis as an
 from .flows import cost, report, verify
+from .flows import explore, explore_report
 from .flows.tools import FLOWS, SEED, YOSYS_TIMEOUT_S, ToolFailed, ToolMissing, find_tools
 from .model import derive
 from .spec import (ALGORITHMS, DEFAULT_EXAMPLE, LABELINGS, ORDERS, ROUNDING_MODES, SECTIONS, DesignSpec,
@@ -129,7 +130,7 @@ def _add_generate(p: argparse.ArgumentParser) -> None:
 
 def cmd_list(args: argparse.Namespace) -> int:
     out = sys.stdout
-    out.write(f"orders:         {', '.join(map(str, ORDERS))} (square QAM; BPSK and QPSK included)\n")
+    out.write(f"orders:         {', '.join(map(str, ORDERS))} (BPSK, QPSK, square QAM; odd-bit orders rectangular or cross, constellation.shape)\n")
     out.write(f"labelings:      {', '.join(LABELINGS)} (table: a label,i,q CSV via --table)\n")
     out.write(f"algorithms:     {', '.join(ALGORITHMS)}\n")
     out.write(f"rounding modes: {', '.join(ROUNDING_MODES)}\n\n")
@@ -366,6 +367,80 @@ def _add_cost(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="print the summary only")
 
 
+# --------------------------------------------------------------------------- explore
+
+
+def cmd_explore(args: argparse.Namespace) -> int:
+    spec, base = _design_source(args.design, args.out)
+    plan = explore.make_plan(axes=args.axis or (), plan_file=args.plan, settings=args.set or (),
+                             budget_db=args.budget, clock_mhz=args.clock, seed=args.seed, symbols=args.symbols,
+                             operating_point_db=args.operating_point, gmi_fraction=args.gmi_target,
+                             loss_reference=args.loss_reference, fmax=False if args.no_fmax else None,
+                             timeout=args.timeout)
+    report_dir = base / "report"
+    cache = None if args.no_cache else Path(args.cache) if args.cache else report_dir / explore.CACHE_DIR
+    try:
+        outcome = explore.explore(spec, plan, report_dir=report_dir, cache_dir=cache, jobs=args.jobs,
+                                  cluster=args.cluster, progress=not args.quiet)
+    except KeyboardInterrupt:
+        where = f" are in {cache}" if cache else " are lost (--no-cache)"
+        print(f"qamsmith: interrupted: the candidates finished so far{where}; the same command resumes",
+              file=sys.stderr)
+        return 130
+    doc = outcome.doc
+    print("\n".join(explore_report.summary_lines(doc)))
+    where = ("" if not outcome.computed + outcome.failed else " in this process" if args.jobs == 1
+             else f" on {outcome.workers} Dask worker(s)")
+    print(f"qamsmith: {doc['counts']['candidates']} candidates: {outcome.computed} measured{where}, "
+          f"{outcome.cached} from the cache, {doc['counts']['failed']} failed")
+    print(f"qamsmith: wrote {', '.join(str(p) for p in outcome.paths.values())}")
+    return 0
+
+
+def _add_explore(p: argparse.ArgumentParser) -> None:
+    p.add_argument("design", metavar="DESIGN", help="the base: a generated design directory (out/<name>/), a spec TOML "
+                   "or a built-in example name")
+    p.add_argument("--axis", action="append", metavar="KEY=V1,V2,...",
+                   help="a spec key and the values to sweep, repeatable: demapper.llr_width=5,6,8, a range "
+                   "demapper.llr_width=4..8, demapper.algorithm=maxlog,folded, interface.family=ice40,ecp5, "
+                   "interface.target_mhz=100,150 or interface.demapper_stages=2,4; keys that move together: "
+                   "demapper.input_width,demapper.input_fraction=10:4,12:6. Any spec key works (`qamsmith list`). "
+                   "A candidate with interface.target_mhz > 0 gets its stage counts from it, one that sets a stage "
+                   "count gets target_mhz 0")
+    p.add_argument("--plan", metavar="FILE", help="a TOML file with an [explore] table: axes, linked axes, fixed "
+                   "settings, budget, clock and Monte-Carlo settings (flags given here win)")
+    p.add_argument("--set", action="append", metavar="SECTION.KEY=VALUE",
+                   help="a spec key fixed on the base for every candidate, repeatable")
+    p.add_argument("--budget", type=float, metavar="DB",
+                   help=f"loss budget of the recommendation in dB (default {an.DEFAULT_BUDGET_DB:g}, as `widths`)")
+    p.add_argument("--clock", type=float, metavar="MHZ", help="clock the recommendation must reach (Fmax of the "
+                   "slower module; default: none)")
+    p.add_argument("--loss-reference", choices=explore.LOSS_REFERENCES, default=None,
+                   help="the float receiver the loss is measured against (default: exact, the log-MAP)")
+    p.add_argument("--out", default="out", metavar="DIR",
+                   help="output root when DESIGN is a spec or an example (default: out)")
+    p.add_argument("--symbols", type=int, metavar="N",
+                   help=f"Monte-Carlo symbols per Es/N0 point (default {an.DEFAULT_EXPLORE_SYMBOLS})")
+    p.add_argument("--seed", type=int, metavar="S", help="Monte-Carlo seed (default 1)")
+    op = p.add_mutually_exclusive_group()
+    op.add_argument("--operating-point", type=float, metavar="DB", help="Es/N0 (dB) where the loss is measured "
+                    "(default: where the float exact GMI reaches --gmi-target x log2 M, per candidate)")
+    op.add_argument("--gmi-target", type=float, metavar="FRACTION",
+                    help="operating point: float exact GMI at this fraction of log2 M (default 0.9)")
+    p.add_argument("--no-fmax", action="store_true", help="synthesis only, no nextpnr run (no Fmax, no --clock)")
+    p.add_argument("--timeout", type=float, metavar="S", help=f"per tool run, seconds (default {YOSYS_TIMEOUT_S:g})")
+    run = p.add_mutually_exclusive_group()
+    run.add_argument("--jobs", type=int, metavar="N", help="1: one candidate after another in this process, without "
+                     "Dask; N: an embedded Dask LocalCluster of N worker processes (default: one per core)")
+    run.add_argument("--cluster", metavar="tcp://HOST:PORT", help="submit to a running Dask scheduler (`dask "
+                     "scheduler`; workers `dask worker tcp://HOST:8786` need qamsmith and the EDA tools)")
+    cache = p.add_mutually_exclusive_group()
+    cache.add_argument("--cache", metavar="DIR",
+                       help=f"the per-candidate results (default: <design dir>/report/{explore.CACHE_DIR})")
+    cache.add_argument("--no-cache", action="store_true", help="neither read nor write cached results")
+    p.add_argument("--quiet", action="store_true", help="no progress line (it is shown only on a terminal anyway)")
+
+
 # --------------------------------------------------------------------------- the table of commands
 
 
@@ -404,6 +479,12 @@ COMMANDS: tuple[Command, ...] = (
             "Synthesize the design's modules with Yosys and place and route them with nextpnr-ice40; compare the "
             "demapper with a brute-force reference and the Fmax with a bare registered adder; write "
             "report/hardware.json and report/hardware.md.", _add_cost, cmd_cost),
+    Command("explore", "sweep candidate designs: loss x LUTs x Fmax, Pareto front, recommendation",
+            "Sweep a base design over axes of spec keys (widths, algorithm, stages or target clock, FPGA family, any "
+            "key); measure each candidate's implementation loss (Monte-Carlo) and cost (Yosys, nextpnr), on this "
+            "machine's cores or a Dask cluster, cached per candidate; write the Pareto front (loss against LUTs, "
+            "with Fmax and latency), the smallest candidate within the loss budget and clock, and its runner-up to "
+            "<design>/report/explore.json, explore.md and explore.png.", _add_explore, cmd_explore),
 )
 
 

@@ -186,7 +186,7 @@ def test_run_refuses_malformed_words(cli, tmp_path: Path) -> None:
 
 
 def test_one_static_table_of_commands(cli) -> None:
-    assert [c.name for c in COMMANDS] == ["generate", "list", "run", "verify", "analyze", "widths", "cost"]
+    assert [c.name for c in COMMANDS] == ["generate", "list", "run", "verify", "analyze", "widths", "cost", "explore"]
     r = cli("--help")
     assert r.code == 0 and all(c.name in r.out for c in COMMANDS)
 

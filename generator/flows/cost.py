@@ -222,15 +222,20 @@ def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows:
                                       timeout=timeout, say=say)
     if "bruteforce" not in wanted:
         return refs
-    if not design.per_axis:
-        refs["bruteforce_demapper"] = {"skipped": "a 2-D search design has no per-axis brute-force reference"}
+    if not design.per_axis and design.cross is None:
+        refs["bruteforce_demapper"] = {"skipped": "the design is itself a 2-D search over every point"}
         return refs
     mspec = maxlog_variant(dd.spec)
     mdesign = derive(mspec)
     brute = bruteforce_module(mdesign, f"{prefix}_ref_bruteforce_demapper")
-    bpath = _write_module(brute, folder, "reference brute-force per-axis demapper")
-    say(f"reference: brute-force demapper ({mdesign.axes[0].levels} levels per axis)")
-    refs["bruteforce_demapper"] = {"module": brute.name, "levels_per_axis": mdesign.axes[0].levels,
+    if mdesign.cross is not None:
+        what, extent = "2-D", {"points": mdesign.constellation.order}
+        say(f"reference: brute-force 2-D demapper over {mdesign.constellation.order} points")
+    else:
+        what, extent = "per-axis", {"levels_per_axis": mdesign.axes[0].levels}
+        say(f"reference: brute-force demapper ({mdesign.axes[0].levels} levels per axis)")
+    bpath = _write_module(brute, folder, f"reference brute-force {what} demapper")
+    refs["bruteforce_demapper"] = {"module": brute.name, **extent,
                                    "flows": _synth_all(tools, flows, [bpath], brute.name, folder, work, timeout)}
     if mspec is not dd.spec:
         maxlog = design_modules(mdesign)["demapper"]
@@ -346,8 +351,9 @@ def summary_lines(result: dict[str, Any]) -> list[str]:
     brute = refs.get("bruteforce_demapper", {})
     if "maxlog_lut_ratio" in brute:
         parts = [f"{_FLOW_TITLES[f]} {r:.3f}" for f, r in brute["maxlog_lut_ratio"].items() if r is not None]
-        out.append(f"- maxlog / brute-force demapper LUTs at the same widths ({brute['levels_per_axis']} levels "
-                   f"per axis): {', '.join(parts)}.")
+        extent = (f"{brute['levels_per_axis']} levels per axis" if "levels_per_axis" in brute
+                  else f"2-D over {brute['points']} points")
+        out.append(f"- maxlog / brute-force demapper LUTs at the same widths ({extent}): {', '.join(parts)}.")
     elif "skipped" in brute:
         out.append(f"- brute-force reference: {brute['skipped']}.")
     adder = refs.get("adder", {})
