@@ -14,6 +14,7 @@ import pytest
 
 from qamsmith import ConstellationSpec, DemapperSpec, DesignSpec, MapperSpec, SpecError, derive, model
 from qamsmith.flows import analysis as an
+from qamsmith.spec import examples
 
 
 def _spec(order: int, labeling: str = "gray", **demapper) -> DesignSpec:
@@ -388,3 +389,10 @@ def test_progress_bar_only_on_a_terminal(monkeypatch: pytest.MonkeyPatch) -> Non
             bar(n)
         assert ("sweep [" in stream.getvalue() and "3/3" in stream.getvalue()) is shown
         assert (stream.getvalue() == "") is not shown
+
+
+def test_a_hard_demapper_with_a_reliability_input_is_analyzed() -> None:
+    """The reliability code is part of a hard demapper's input word (read, not used): the chain passes it."""
+    spec = DesignSpec.from_toml(examples()["larkspur-telemetry-qpsk"]).with_settings({"demapper.algorithm": "hard"})
+    res = an.implementation_loss(derive(spec), symbols=4000)
+    assert res.grid and all(st.ber_fixed > 0 for st in res.grid)

@@ -841,7 +841,7 @@ class Chain:
     def _demap(self, ci: np.ndarray, cq: np.ndarray, scale: np.int64 | None) -> tuple[np.ndarray, np.ndarray]:
         """Hard bits and LLR codes (both (N, k)) of the bit-exact model; a hard demapper's bits become +-1 codes."""
         if self.hard:
-            hb = demap(self.design, ci, cq)
+            hb = demap(self.design, ci, cq, scale)     # the reliability code is read, not used
             return hb, (1 - 2 * hb).astype(np.int32)
         llr = demap(self.design, ci, cq, scale)
         return hard_decisions(self.design, ci, cq), llr
