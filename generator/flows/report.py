@@ -224,8 +224,12 @@ def plot_ber(plt: Any, doc: dict[str, Any]) -> Any:
     x = np.array([p["esn0_db"] for p in pts])
     fig, ax = plt.subplots(figsize=(7.5, 4.8))
     fine = np.linspace(x.min(), x.max(), 200)
-    if doc["theory"].startswith("K. Cho"):
+    square = doc["order"] == 2 or (doc["order"].bit_length() - 1) % 2 == 0
+    theory = [(p["esn0_db"], p["ber_theory"]) for p in pts if p.get("ber_theory")]
+    if doc["theory"].startswith("K. Cho") and square:
         ax.semilogy(fine, an.ber_gray_qam(doc["order"], fine), color="k", lw=1.0, label="theory (Cho and Yoon 2002)")
+    elif theory:                # rectangles and crosses: the closed form at the simulated points (analysis.json)
+        ax.semilogy(*zip(*theory), color="k", lw=1.0, label=f"theory ({doc['theory'].split(',')[0]})")
     ber = np.array([p["ber_fixed"] if p["ber_fixed"] else np.nan for p in pts], dtype=float)
     lo = np.array([max(p["ber_fixed_ci95"][0], 1e-300) if p["ber_fixed_ci95"] and p["ber_fixed"] else np.nan
                    for p in pts], dtype=float)
