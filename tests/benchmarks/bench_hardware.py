@@ -49,7 +49,7 @@ def _fmax(r: dict, key: str, fam: str) -> float:
     return fig["fmax"][fam]["fmax_mhz"]
 
 
-def bench(orders: list[int], seeds: list[int], families: list[str]) -> int:
+def bench(orders: list[int], seeds: list[int], families: list[str], shape: str = "rectangular") -> int:
     t = tools.find_tools(families=families)
     start = time.monotonic()
     rows: dict[str, list[str]] = {fam: [] for fam in families}
@@ -58,8 +58,10 @@ def bench(orders: list[int], seeds: list[int], families: list[str]) -> int:
             for fam in families:
                 t0 = time.monotonic()
                 # the design for the family it is placed on (interface.family: its delay model)
-                spec = DesignSpec(name=f"bench-{order}-{fam}").with_settings({"constellation.order": order,
-                                                                             "interface.family": fam})
+                settings: dict[str, Any] = {"constellation.order": order, "interface.family": fam}
+                if order.bit_length() % 2 == 0:         # odd-bit orders take the shape
+                    settings["constellation.shape"] = shape
+                spec = DesignSpec(name=f"bench-{order}-{fam}").with_settings(settings)
                 dd = cost.build_source(spec, Path(tmp))
                 # the brute-force reference only where its target is defined (256 points) and cheap enough
                 runs = [cost.estimate(dd, flows=(fam,), families=(fam,), seed=seed, tools=t,
@@ -227,6 +229,8 @@ def main() -> int:
     ap.add_argument("--seeds", default=str(tools.SEED), help="nextpnr seeds, comma-separated (median reported)")
     ap.add_argument("--families", default=",".join(tools.PNR_FAMILIES),
                     help="FPGA families, comma-separated, one table each (default: %(default)s)")
+    ap.add_argument("--shape", default="rectangular", choices=("rectangular", "cross"),
+                    help="constellation.shape of the odd-bit orders (default: %(default)s)")
     ap.add_argument("--calibrate", action="store_true")
     ap.add_argument("--family", default="ice40", choices=tools.PNR_FAMILIES, help="the family --calibrate measures")
     args = ap.parse_args()
@@ -235,7 +239,7 @@ def main() -> int:
         if args.calibrate:
             return calibrate(seeds, args.family)
         families = tools.check_families(f.strip() for f in args.families.split(",") if f.strip())
-        return bench([int(o) for o in args.orders.split(",")], seeds, families)
+        return bench([int(o) for o in args.orders.split(",")], seeds, families, args.shape)
     except (tools.ToolMissing, SpecError) as exc:
         print(f"bench_hardware: {exc}", file=sys.stderr)
         return 2
