@@ -125,6 +125,14 @@ def test_foreign_files_refused_then_kept_with_force(cli, tmp_path: Path) -> None
     assert json.loads((target / MANIFEST).read_text())["spec"]["demapper"]["llr_width"] == 6
 
 
+def test_out_naming_a_file_names_the_file_in_the_way(cli, tmp_path: Path) -> None:
+    (tmp_path / "links").write_text("site list\n")
+    r = cli("generate", "larkspur-telemetry-qpsk", "--out", str(tmp_path / "links"))
+    assert r.code == 2 and len(r.err.strip().splitlines()) == 1
+    assert f"a writable directory (the file '{tmp_path / 'links'}' is in the way)" in r.err
+    assert (tmp_path / "links").read_text() == "site list\n"
+
+
 def test_two_generates_are_byte_identical(cli, tmp_path: Path) -> None:
     for run in ("a", "b"):
         assert cli("generate", "--order", "64", "--labeling", "gray", "--set", "demapper.scale_width=4",

@@ -17,7 +17,10 @@ from ..errors import SpecError
 
 
 def _refuse(key: str, path: Path, exc: OSError, what: str = "a writable directory") -> SpecError:
-    return SpecError(key, str(path), f"{what} ({exc.strerror or exc})")
+    """The refusal of a path that could not be written: the file in the way when there is one, else the OS's words."""
+    blocker = next((p for p in (path, *path.parents) if p.is_file()), None)
+    reason = f"the file '{blocker}' is in the way" if blocker is not None else exc.strerror or str(exc)
+    return SpecError(key, str(path), f"{what} ({reason})")
 
 
 def write_file(path: str | Path, data: bytes | str, *, key: str = "--out") -> Path:
