@@ -267,8 +267,9 @@ def _ipxact(m: dict[str, Any], role: str) -> str:
         maps = [(_SHARED_LOGICAL[p["name"]], p["name"]) for p in e["ports"] if p["name"] in _SHARED_LOGICAL]
         maps += [(p["name"][len(prefix):].upper(), p["name"]) for p in e["ports"] if p["name"].startswith(prefix)]
         buses.append({"name": bus, "mode": mode, "doc": escape(f"AXI4-Stream {doc}"), "maps": maps})
-    roms = _rom_images(m, role)
     langs = _languages(m)
+    # only the Verilog reads images (the VHDL holds its tables as constants whatever mapper.tables says)
+    roms = _rom_images(m, role) if "verilog" in langs else []
     files = [{"name": f"rtl_{lang}", "language": lang, "path": f"../{e['files'][lang]}",
               "file_type": _language(lang)["file_type"]} for lang in langs]
     # a parameter's value is an expression (IEEE 1685-2014): a string value is a quoted literal
