@@ -13,6 +13,7 @@ from functools import lru_cache
 from ..model import Design
 from .core import Datapath, Signal, value_range
 from .demapper import demapper_datapath
+from .lanes import replicate
 from .mapper import mapper_datapath, rom_images
 from .schedule import Schedule, schedule
 from .timing import FAMILIES
@@ -147,6 +148,7 @@ def build_module(design: Design, role: str) -> Module:
     else:
         dp = demapper_datapath(design)
         params = ()
+    dp = replicate(dp, i.lanes)
     carried = sideband(i.tlast, i.tuser_width)
     sched = _schedule(design, role, dp, carried)
     return Module(name=f"{spec.prefix}_{role}", role=role, summary=_summary(design, role, sched.latency),
