@@ -26,7 +26,7 @@ from ..model import AxisDemap, Design, OutputStage, decide
 from . import cross
 from .build import Builder
 from .core import Const, Datapath, Field, Operand, Signal, width_for
-from .modes import mode_input, mode_of_code, mode_select, zero
+from .modes import mode_input, mode_of_code, mode_select
 
 
 @dataclass
@@ -288,11 +288,21 @@ def _route(b: Builder, design: Design, mode: Signal, sources: dict[str, Signal],
            signed: bool, what: str) -> list[Signal | Const]:
     """Per label bit of the largest order: the signal of the axis bit that carries it in the symbol's mode, or zero."""
     out = []
+    codes = range(1 << mode.width)
     for lb in range(design.bits):
-        leaves = [sources[_mode_sources(design, code)[lb]] if lb in _mode_sources(design, code) else zero(width, signed)
-                  for code in range(1 << mode.width)]
-        out.append(mode_select(b, f"{what}_b{lb}", mode, leaves, width=width, signed=signed,
-                               note=f"{what} of label bit b{lb} in the symbol's mode (zero past its bits)"))
+        has = [lb in _mode_sources(design, code) for code in codes]
+        top = sources[_mode_sources(design, len(design.modes) - 1)[lb]]
+        # a mode without this bit selects any source (the largest mode's), then a gate zeroes it: printed as an
+        # AND, so synthesis infers no register reset from a mode decode (a slow global net on iCE40)
+        leaves = [sources[_mode_sources(design, code)[lb]] if h else top for code, h in zip(codes, has)]
+        note = f"{what} of label bit b{lb} in the symbol's mode"
+        if all(has):
+            out.append(mode_select(b, f"{what}_b{lb}", mode, leaves, width=width, signed=signed, note=note))
+            continue
+        value = mode_select(b, f"{what}_sel_b{lb}", mode, leaves, width=width, signed=signed, note=note)
+        valid = b.lookup(f"has_b{lb}" if what == "llr" else f"{what}_has_b{lb}", mode, [int(h) for h in has],
+                         note=f"the symbol's mode has label bit b{lb}")
+        out.append(b.gate(f"{what}_b{lb}", valid, value, note=note + " (zero past its bits)"))
     return out
 
 

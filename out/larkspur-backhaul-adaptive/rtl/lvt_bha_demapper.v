@@ -212,8 +212,46 @@ module lvt_bha_demapper (
   wire [5:0] km_i_l1 = {mode_l1, n_i_l1};
   // table key {mode, n_hat}
   wire [5:0] km_q_l1 = {mode_l1, n_q_l1};
+  // ---------------------------------------------------------------- route (stage 0)
+  // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
+  // the symbol's mode has label bit b2
+  localparam [3:0] TABLE_HAS_B2_L0 = 4'b1110;  // entry k at bit k
+  wire has_b2_l0 = TABLE_HAS_B2_L0[mode_l0];
+  // the symbol's mode has label bit b3
+  localparam [3:0] TABLE_HAS_B3_L0 = 4'b1110;  // entry k at bit k
+  wire has_b3_l0 = TABLE_HAS_B3_L0[mode_l0];
+  // the symbol's mode has label bit b4
+  localparam [3:0] TABLE_HAS_B4_L0 = 4'b1100;  // entry k at bit k
+  wire has_b4_l0 = TABLE_HAS_B4_L0[mode_l0];
+  // the symbol's mode has label bit b5
+  localparam [3:0] TABLE_HAS_B5_L0 = 4'b1100;  // entry k at bit k
+  wire has_b5_l0 = TABLE_HAS_B5_L0[mode_l0];
+  // the symbol's mode has label bit b6
+  localparam [3:0] TABLE_HAS_B6_L0 = 4'b1000;  // entry k at bit k
+  wire has_b6_l0 = TABLE_HAS_B6_L0[mode_l0];
+  // the symbol's mode has label bit b7
+  localparam [3:0] TABLE_HAS_B7_L0 = 4'b1000;  // entry k at bit k
+  wire has_b7_l0 = TABLE_HAS_B7_L0[mode_l0];
+  // the symbol's mode has label bit b2
+  localparam [3:0] TABLE_HAS_B2_L1 = 4'b1110;  // entry k at bit k
+  wire has_b2_l1 = TABLE_HAS_B2_L1[mode_l1];
+  // the symbol's mode has label bit b3
+  localparam [3:0] TABLE_HAS_B3_L1 = 4'b1110;  // entry k at bit k
+  wire has_b3_l1 = TABLE_HAS_B3_L1[mode_l1];
+  // the symbol's mode has label bit b4
+  localparam [3:0] TABLE_HAS_B4_L1 = 4'b1100;  // entry k at bit k
+  wire has_b4_l1 = TABLE_HAS_B4_L1[mode_l1];
+  // the symbol's mode has label bit b5
+  localparam [3:0] TABLE_HAS_B5_L1 = 4'b1100;  // entry k at bit k
+  wire has_b5_l1 = TABLE_HAS_B5_L1[mode_l1];
+  // the symbol's mode has label bit b6
+  localparam [3:0] TABLE_HAS_B6_L1 = 4'b1000;  // entry k at bit k
+  wire has_b6_l1 = TABLE_HAS_B6_L1[mode_l1];
+  // the symbol's mode has label bit b7
+  localparam [3:0] TABLE_HAS_B7_L1 = 4'b1000;  // entry k at bit k
+  wire has_b7_l1 = TABLE_HAS_B7_L1[mode_l1];
 
-  // register stage 0 (after range, decide, key)
+  // register stage 0 (after range, decide, key, route)
   reg  [1:0] mode_l0_s0_reg = 2'd0;
   reg  [1:0] mode_l1_s0_reg = 2'd0;
   reg  tlast_s0_reg = 1'd0;
@@ -237,6 +275,18 @@ module lvt_bha_demapper (
   reg  [5:0] km_q_l0_s0_reg = 6'd0;
   reg  [5:0] km_i_l1_s0_reg = 6'd0;
   reg  [5:0] km_q_l1_s0_reg = 6'd0;
+  reg  has_b2_l0_s0_reg = 1'd0;
+  reg  has_b3_l0_s0_reg = 1'd0;
+  reg  has_b4_l0_s0_reg = 1'd0;
+  reg  has_b5_l0_s0_reg = 1'd0;
+  reg  has_b6_l0_s0_reg = 1'd0;
+  reg  has_b7_l0_s0_reg = 1'd0;
+  reg  has_b2_l1_s0_reg = 1'd0;
+  reg  has_b3_l1_s0_reg = 1'd0;
+  reg  has_b4_l1_s0_reg = 1'd0;
+  reg  has_b5_l1_s0_reg = 1'd0;
+  reg  has_b6_l1_s0_reg = 1'd0;
+  reg  has_b7_l1_s0_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s0) begin
       mode_l0_s0_reg <= mode_l0;
@@ -262,6 +312,18 @@ module lvt_bha_demapper (
       km_q_l0_s0_reg <= km_q_l0;
       km_i_l1_s0_reg <= km_i_l1;
       km_q_l1_s0_reg <= km_q_l1;
+      has_b2_l0_s0_reg <= has_b2_l0;
+      has_b3_l0_s0_reg <= has_b3_l0;
+      has_b4_l0_s0_reg <= has_b4_l0;
+      has_b5_l0_s0_reg <= has_b5_l0;
+      has_b6_l0_s0_reg <= has_b6_l0;
+      has_b7_l0_s0_reg <= has_b7_l0;
+      has_b2_l1_s0_reg <= has_b2_l1;
+      has_b3_l1_s0_reg <= has_b3_l1;
+      has_b4_l1_s0_reg <= has_b4_l1;
+      has_b5_l1_s0_reg <= has_b5_l1;
+      has_b6_l1_s0_reg <= has_b6_l1;
+      has_b7_l1_s0_reg <= has_b7_l1;
     end
   end
 
@@ -1836,6 +1898,18 @@ module lvt_bha_demapper (
   reg  signed [11:0] gs_q2_1_l1_s1_reg = 12'sd0;
   reg  [7:0] ga_q2_1_l1_s1_reg = 8'd0;
   reg  signed [11:0] se_q3_l1_s1_reg = 12'sd0;
+  reg  has_b2_l0_s1_reg = 1'd0;
+  reg  has_b3_l0_s1_reg = 1'd0;
+  reg  has_b4_l0_s1_reg = 1'd0;
+  reg  has_b5_l0_s1_reg = 1'd0;
+  reg  has_b6_l0_s1_reg = 1'd0;
+  reg  has_b7_l0_s1_reg = 1'd0;
+  reg  has_b2_l1_s1_reg = 1'd0;
+  reg  has_b3_l1_s1_reg = 1'd0;
+  reg  has_b4_l1_s1_reg = 1'd0;
+  reg  has_b5_l1_s1_reg = 1'd0;
+  reg  has_b6_l1_s1_reg = 1'd0;
+  reg  has_b7_l1_s1_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s1) begin
       mode_l0_s1_reg <= mode_l0_s0_reg;
@@ -1937,6 +2011,18 @@ module lvt_bha_demapper (
       gs_q2_1_l1_s1_reg <= gs_q2_1_l1;
       ga_q2_1_l1_s1_reg <= ga_q2_1_l1;
       se_q3_l1_s1_reg <= se_q3_l1;
+      has_b2_l0_s1_reg <= has_b2_l0_s0_reg;
+      has_b3_l0_s1_reg <= has_b3_l0_s0_reg;
+      has_b4_l0_s1_reg <= has_b4_l0_s0_reg;
+      has_b5_l0_s1_reg <= has_b5_l0_s0_reg;
+      has_b6_l0_s1_reg <= has_b6_l0_s0_reg;
+      has_b7_l0_s1_reg <= has_b7_l0_s0_reg;
+      has_b2_l1_s1_reg <= has_b2_l1_s0_reg;
+      has_b3_l1_s1_reg <= has_b3_l1_s0_reg;
+      has_b4_l1_s1_reg <= has_b4_l1_s0_reg;
+      has_b5_l1_s1_reg <= has_b5_l1_s0_reg;
+      has_b6_l1_s1_reg <= has_b6_l1_s0_reg;
+      has_b7_l1_s1_reg <= has_b7_l1_s0_reg;
     end
   end
 
@@ -2109,6 +2195,18 @@ module lvt_bha_demapper (
   reg  [9:0] pp_q1_1_l1_s2_reg = 10'd0;
   reg  [12:0] pp_q1_2_l1_s2_reg = 13'd0;
   reg  [11:0] pp_q2_1_l1_s2_reg = 12'd0;
+  reg  has_b2_l0_s2_reg = 1'd0;
+  reg  has_b3_l0_s2_reg = 1'd0;
+  reg  has_b4_l0_s2_reg = 1'd0;
+  reg  has_b5_l0_s2_reg = 1'd0;
+  reg  has_b6_l0_s2_reg = 1'd0;
+  reg  has_b7_l0_s2_reg = 1'd0;
+  reg  has_b2_l1_s2_reg = 1'd0;
+  reg  has_b3_l1_s2_reg = 1'd0;
+  reg  has_b4_l1_s2_reg = 1'd0;
+  reg  has_b5_l1_s2_reg = 1'd0;
+  reg  has_b6_l1_s2_reg = 1'd0;
+  reg  has_b7_l1_s2_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s2) begin
       mode_l0_s2_reg <= mode_l0_s1_reg;
@@ -2170,6 +2268,18 @@ module lvt_bha_demapper (
       pp_q1_1_l1_s2_reg <= pp_q1_1_l1;
       pp_q1_2_l1_s2_reg <= pp_q1_2_l1;
       pp_q2_1_l1_s2_reg <= pp_q2_1_l1;
+      has_b2_l0_s2_reg <= has_b2_l0_s1_reg;
+      has_b3_l0_s2_reg <= has_b3_l0_s1_reg;
+      has_b4_l0_s2_reg <= has_b4_l0_s1_reg;
+      has_b5_l0_s2_reg <= has_b5_l0_s1_reg;
+      has_b6_l0_s2_reg <= has_b6_l0_s1_reg;
+      has_b7_l0_s2_reg <= has_b7_l0_s1_reg;
+      has_b2_l1_s2_reg <= has_b2_l1_s1_reg;
+      has_b3_l1_s2_reg <= has_b3_l1_s1_reg;
+      has_b4_l1_s2_reg <= has_b4_l1_s1_reg;
+      has_b5_l1_s2_reg <= has_b5_l1_s1_reg;
+      has_b6_l1_s2_reg <= has_b6_l1_s1_reg;
+      has_b7_l1_s2_reg <= has_b7_l1_s1_reg;
     end
   end
 
@@ -2264,6 +2374,18 @@ module lvt_bha_demapper (
   reg  signed [5:0] x_q3_l0_s3_reg = 6'sd0;
   reg  signed [5:0] x_i3_l1_s3_reg = 6'sd0;
   reg  signed [5:0] x_q3_l1_s3_reg = 6'sd0;
+  reg  has_b2_l0_s3_reg = 1'd0;
+  reg  has_b3_l0_s3_reg = 1'd0;
+  reg  has_b4_l0_s3_reg = 1'd0;
+  reg  has_b5_l0_s3_reg = 1'd0;
+  reg  has_b6_l0_s3_reg = 1'd0;
+  reg  has_b7_l0_s3_reg = 1'd0;
+  reg  has_b2_l1_s3_reg = 1'd0;
+  reg  has_b3_l1_s3_reg = 1'd0;
+  reg  has_b4_l1_s3_reg = 1'd0;
+  reg  has_b5_l1_s3_reg = 1'd0;
+  reg  has_b6_l1_s3_reg = 1'd0;
+  reg  has_b7_l1_s3_reg = 1'd0;
   always @(posedge aclk) begin
     if (ce_s3) begin
       mode_l0_s3_reg <= mode_l0_s2_reg;
@@ -2309,6 +2431,18 @@ module lvt_bha_demapper (
       x_q3_l0_s3_reg <= x_q3_l0;
       x_i3_l1_s3_reg <= x_i3_l1;
       x_q3_l1_s3_reg <= x_q3_l1;
+      has_b2_l0_s3_reg <= has_b2_l0_s2_reg;
+      has_b3_l0_s3_reg <= has_b3_l0_s2_reg;
+      has_b4_l0_s3_reg <= has_b4_l0_s2_reg;
+      has_b5_l0_s3_reg <= has_b5_l0_s2_reg;
+      has_b6_l0_s3_reg <= has_b6_l0_s2_reg;
+      has_b7_l0_s3_reg <= has_b7_l0_s2_reg;
+      has_b2_l1_s3_reg <= has_b2_l1_s2_reg;
+      has_b3_l1_s3_reg <= has_b3_l1_s2_reg;
+      has_b4_l1_s3_reg <= has_b4_l1_s2_reg;
+      has_b5_l1_s3_reg <= has_b5_l1_s2_reg;
+      has_b6_l1_s3_reg <= has_b6_l1_s2_reg;
+      has_b7_l1_s3_reg <= has_b7_l1_s2_reg;
     end
   end
 
@@ -2360,18 +2494,14 @@ module lvt_bha_demapper (
   wire signed [5:0] llr_q3_l1 = x_q3_l1_s3_reg + $signed({5'd0, neg_q3_l1_s3_reg});
   // ---------------------------------------------------------------- route (stage 4)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
-  wire signed [5:0] llr_b6_m1_l0 = mode_l0_s3_reg[0] ? llr_i3_l0 : 6'sd0;
   // llr of label bit b6 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b6_l0 = mode_l0_s3_reg[1] ? llr_b6_m1_l0 : 6'sd0;
-  wire signed [5:0] llr_b7_m1_l0 = mode_l0_s3_reg[0] ? llr_q3_l0 : 6'sd0;
+  wire signed [5:0] llr_b6_l0 = $signed({6{has_b6_l0_s3_reg}}) & llr_i3_l0;
   // llr of label bit b7 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b7_l0 = mode_l0_s3_reg[1] ? llr_b7_m1_l0 : 6'sd0;
-  wire signed [5:0] llr_b6_m1_l1 = mode_l1_s3_reg[0] ? llr_i3_l1 : 6'sd0;
+  wire signed [5:0] llr_b7_l0 = $signed({6{has_b7_l0_s3_reg}}) & llr_q3_l0;
   // llr of label bit b6 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b6_l1 = mode_l1_s3_reg[1] ? llr_b6_m1_l1 : 6'sd0;
-  wire signed [5:0] llr_b7_m1_l1 = mode_l1_s3_reg[0] ? llr_q3_l1 : 6'sd0;
+  wire signed [5:0] llr_b6_l1 = $signed({6{has_b6_l1_s3_reg}}) & llr_i3_l1;
   // llr of label bit b7 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b7_l1 = mode_l1_s3_reg[1] ? llr_b7_m1_l1 : 6'sd0;
+  wire signed [5:0] llr_b7_l1 = $signed({6{has_b7_l1_s3_reg}}) & llr_q3_l1;
 
   // register stage 4 (after accumulate, round, sign, route)
   reg  [1:0] mode_l0_s4_reg = 2'd0;
@@ -2401,8 +2531,16 @@ module lvt_bha_demapper (
   reg  signed [5:0] x_q2_l0_s4_reg = 6'sd0;
   reg  signed [5:0] x_i2_l1_s4_reg = 6'sd0;
   reg  signed [5:0] x_q2_l1_s4_reg = 6'sd0;
+  reg  has_b2_l0_s4_reg = 1'd0;
+  reg  has_b3_l0_s4_reg = 1'd0;
+  reg  has_b4_l0_s4_reg = 1'd0;
+  reg  has_b5_l0_s4_reg = 1'd0;
   reg  signed [5:0] llr_b6_l0_s4_reg = 6'sd0;
   reg  signed [5:0] llr_b7_l0_s4_reg = 6'sd0;
+  reg  has_b2_l1_s4_reg = 1'd0;
+  reg  has_b3_l1_s4_reg = 1'd0;
+  reg  has_b4_l1_s4_reg = 1'd0;
+  reg  has_b5_l1_s4_reg = 1'd0;
   reg  signed [5:0] llr_b6_l1_s4_reg = 6'sd0;
   reg  signed [5:0] llr_b7_l1_s4_reg = 6'sd0;
   always @(posedge aclk) begin
@@ -2434,8 +2572,16 @@ module lvt_bha_demapper (
       x_q2_l0_s4_reg <= x_q2_l0;
       x_i2_l1_s4_reg <= x_i2_l1;
       x_q2_l1_s4_reg <= x_q2_l1;
+      has_b2_l0_s4_reg <= has_b2_l0_s3_reg;
+      has_b3_l0_s4_reg <= has_b3_l0_s3_reg;
+      has_b4_l0_s4_reg <= has_b4_l0_s3_reg;
+      has_b5_l0_s4_reg <= has_b5_l0_s3_reg;
       llr_b6_l0_s4_reg <= llr_b6_l0;
       llr_b7_l0_s4_reg <= llr_b7_l0;
+      has_b2_l1_s4_reg <= has_b2_l1_s3_reg;
+      has_b3_l1_s4_reg <= has_b3_l1_s3_reg;
+      has_b4_l1_s4_reg <= has_b4_l1_s3_reg;
+      has_b5_l1_s4_reg <= has_b5_l1_s3_reg;
       llr_b6_l1_s4_reg <= llr_b6_l1;
       llr_b7_l1_s4_reg <= llr_b7_l1;
     end
@@ -2496,13 +2642,13 @@ module lvt_bha_demapper (
   // ---------------------------------------------------------------- route (stage 5)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
   // llr of label bit b4 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b4_l0 = mode_l0_s4_reg[1] ? llr_i2_l0 : 6'sd0;
+  wire signed [5:0] llr_b4_l0 = $signed({6{has_b4_l0_s4_reg}}) & llr_i2_l0;
   // llr of label bit b5 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b5_l0 = mode_l0_s4_reg[1] ? llr_q2_l0 : 6'sd0;
+  wire signed [5:0] llr_b5_l0 = $signed({6{has_b5_l0_s4_reg}}) & llr_q2_l0;
   // llr of label bit b4 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b4_l1 = mode_l1_s4_reg[1] ? llr_i2_l1 : 6'sd0;
+  wire signed [5:0] llr_b4_l1 = $signed({6{has_b4_l1_s4_reg}}) & llr_i2_l1;
   // llr of label bit b5 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b5_l1 = mode_l1_s4_reg[1] ? llr_q2_l1 : 6'sd0;
+  wire signed [5:0] llr_b5_l1 = $signed({6{has_b5_l1_s4_reg}}) & llr_q2_l1;
 
   // register stage 5 (after round, sign, route)
   reg  [1:0] mode_l0_s5_reg = 2'd0;
@@ -2528,10 +2674,14 @@ module lvt_bha_demapper (
   reg  signed [5:0] x_q1_l0_s5_reg = 6'sd0;
   reg  signed [5:0] x_i1_l1_s5_reg = 6'sd0;
   reg  signed [5:0] x_q1_l1_s5_reg = 6'sd0;
+  reg  has_b2_l0_s5_reg = 1'd0;
+  reg  has_b3_l0_s5_reg = 1'd0;
   reg  signed [5:0] llr_b4_l0_s5_reg = 6'sd0;
   reg  signed [5:0] llr_b5_l0_s5_reg = 6'sd0;
   reg  signed [5:0] llr_b6_l0_s5_reg = 6'sd0;
   reg  signed [5:0] llr_b7_l0_s5_reg = 6'sd0;
+  reg  has_b2_l1_s5_reg = 1'd0;
+  reg  has_b3_l1_s5_reg = 1'd0;
   reg  signed [5:0] llr_b4_l1_s5_reg = 6'sd0;
   reg  signed [5:0] llr_b5_l1_s5_reg = 6'sd0;
   reg  signed [5:0] llr_b6_l1_s5_reg = 6'sd0;
@@ -2561,10 +2711,14 @@ module lvt_bha_demapper (
       x_q1_l0_s5_reg <= x_q1_l0;
       x_i1_l1_s5_reg <= x_i1_l1;
       x_q1_l1_s5_reg <= x_q1_l1;
+      has_b2_l0_s5_reg <= has_b2_l0_s4_reg;
+      has_b3_l0_s5_reg <= has_b3_l0_s4_reg;
       llr_b4_l0_s5_reg <= llr_b4_l0;
       llr_b5_l0_s5_reg <= llr_b5_l0;
       llr_b6_l0_s5_reg <= llr_b6_l0_s4_reg;
       llr_b7_l0_s5_reg <= llr_b7_l0_s4_reg;
+      has_b2_l1_s5_reg <= has_b2_l1_s4_reg;
+      has_b3_l1_s5_reg <= has_b3_l1_s4_reg;
       llr_b4_l1_s5_reg <= llr_b4_l1;
       llr_b5_l1_s5_reg <= llr_b5_l1;
       llr_b6_l1_s5_reg <= llr_b6_l1_s4_reg;
@@ -2600,18 +2754,14 @@ module lvt_bha_demapper (
   wire signed [5:0] llr_q1_l1 = x_q1_l1_s5_reg + $signed({5'd0, neg_q1_l1_s5_reg});
   // ---------------------------------------------------------------- route (stage 6)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
-  wire signed [5:0] llr_b2_m1_l0 = mode_l0_s5_reg[0] ? llr_i1_l0 : 6'sd0;
   // llr of label bit b2 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b2_l0 = mode_l0_s5_reg[1] ? llr_i1_l0 : llr_b2_m1_l0;
-  wire signed [5:0] llr_b3_m1_l0 = mode_l0_s5_reg[0] ? llr_q1_l0 : 6'sd0;
+  wire signed [5:0] llr_b2_l0 = $signed({6{has_b2_l0_s5_reg}}) & llr_i1_l0;
   // llr of label bit b3 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b3_l0 = mode_l0_s5_reg[1] ? llr_q1_l0 : llr_b3_m1_l0;
-  wire signed [5:0] llr_b2_m1_l1 = mode_l1_s5_reg[0] ? llr_i1_l1 : 6'sd0;
+  wire signed [5:0] llr_b3_l0 = $signed({6{has_b3_l0_s5_reg}}) & llr_q1_l0;
   // llr of label bit b2 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b2_l1 = mode_l1_s5_reg[1] ? llr_i1_l1 : llr_b2_m1_l1;
-  wire signed [5:0] llr_b3_m1_l1 = mode_l1_s5_reg[0] ? llr_q1_l1 : 6'sd0;
+  wire signed [5:0] llr_b2_l1 = $signed({6{has_b2_l1_s5_reg}}) & llr_i1_l1;
   // llr of label bit b3 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b3_l1 = mode_l1_s5_reg[1] ? llr_q1_l1 : llr_b3_m1_l1;
+  wire signed [5:0] llr_b3_l1 = $signed({6{has_b3_l1_s5_reg}}) & llr_q1_l1;
 
   // register stage 6 (after sign, route)
   reg  [1:0] mode_l0_s6_reg = 2'd0;
