@@ -16,8 +16,8 @@
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 12
 //   demapper.input_fraction = 6
-//   demapper.llr_width = 6
-//   demapper.llr_fraction = 4
+//   demapper.llr_width = 10
+//   demapper.llr_fraction = 3
 //   demapper.rounding = "half-away"
 //   demapper.scale_width = 0
 //   demapper.scale_fraction = 0
@@ -32,15 +32,15 @@
 //   interface.flow_control = "shared"
 //   interface.skid = false
 //   interface.lanes = 2
-// Content hash: 0f72328be0cf528f
+// Content hash: 0a0044baf50dfa06
 `timescale 1ns / 1ps
 `default_nettype none
 
 // QAM soft demapper, 256 points, labeling 3gpp-nr, algorithm maxlog.
 // Input: {Q, I}: signed 12-bit codes, I in the low half,
 //        6 fraction bits: level n of an axis sits at (2n - (L-1)) * 2^6 codes.
-// Output: 8 signed 6-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
-//         saturated symmetrically to +-31.
+// Output: 8 signed 10-bit LLRs (positive: bit 0 more likely), b0 in the most significant field;
+//         saturated symmetrically to +-511.
 // Modes: a 2-bit mode field on top of each symbol indexes the orders 4, 16, 64, 256 (a code past the list acts as the largest);
 //        the mode may change on every symbol; see the manifest's modes and packing.
 //        Every mode takes its input on the largest order's grid; mode m's LLRs fill the first k_m fields, the rest are zero,
@@ -57,7 +57,7 @@ module lvt_bha_demapper (
   output wire           s_axis_tready,
   input  wire           s_axis_tlast,
   // source (m_axis): 2 results per transfer
-  output wire [99:0]    m_axis_tdata,
+  output wire [163:0]   m_axis_tdata,
   output wire           m_axis_tvalid,
   input  wire           m_axis_tready,
   output wire           m_axis_tlast
@@ -2302,33 +2302,21 @@ module lvt_bha_demapper (
   wire [9:0] acc_q1_0_0_l1 = {1'd0, w_q1_0_l1_s2_reg} + pp_q1_1_l1_s2_reg;
   wire [11:0] mag_q2_l1 = {4'd0, w_q2_0_l1_s2_reg} + pp_q2_1_l1_s2_reg;
   // ---------------------------------------------------------------- round (stage 3)
-  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
-  wire [10:0] rsum_i3_l0 = u_i3_l0_s2_reg + 11'd2;
-  wire [12:0] oc_i3_l0 = {2'd0, u_i3_l0_s2_reg} + 13'd3970;
-  wire ovf_i3_l0 = oc_i3_l0[12];
-  wire [4:0] vo_i3_l0 = rsum_i3_l0[6:2];
-  wire [10:0] rsum_q3_l0 = u_q3_l0_s2_reg + 11'd2;
-  wire [12:0] oc_q3_l0 = {2'd0, u_q3_l0_s2_reg} + 13'd3970;
-  wire ovf_q3_l0 = oc_q3_l0[12];
-  wire [4:0] vo_q3_l0 = rsum_q3_l0[6:2];
-  wire [10:0] rsum_i3_l1 = u_i3_l1_s2_reg + 11'd2;
-  wire [12:0] oc_i3_l1 = {2'd0, u_i3_l1_s2_reg} + 13'd3970;
-  wire ovf_i3_l1 = oc_i3_l1[12];
-  wire [4:0] vo_i3_l1 = rsum_i3_l1[6:2];
-  wire [10:0] rsum_q3_l1 = u_q3_l1_s2_reg + 11'd2;
-  wire [12:0] oc_q3_l1 = {2'd0, u_q3_l1_s2_reg} + 13'd3970;
-  wire ovf_q3_l1 = oc_q3_l1[12];
-  wire [4:0] vo_q3_l1 = rsum_q3_l1[6:2];
+  // the rounding shift by 3 (half-away); the saturation compare runs beside the add
+  wire [10:0] rsum_i3_l0 = u_i3_l0_s2_reg + 11'd4;
+  wire [8:0] vo_i3_l0 = {1'd0, rsum_i3_l0[10:3]};
+  wire [10:0] rsum_q3_l0 = u_q3_l0_s2_reg + 11'd4;
+  wire [8:0] vo_q3_l0 = {1'd0, rsum_q3_l0[10:3]};
+  wire [10:0] rsum_i3_l1 = u_i3_l1_s2_reg + 11'd4;
+  wire [8:0] vo_i3_l1 = {1'd0, rsum_i3_l1[10:3]};
+  wire [10:0] rsum_q3_l1 = u_q3_l1_s2_reg + 11'd4;
+  wire [8:0] vo_q3_l1 = {1'd0, rsum_q3_l1[10:3]};
   // ---------------------------------------------------------------- sign (stage 3)
-  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [4:0] s_i3_l0 = ovf_i3_l0 ? 5'd31 : vo_i3_l0;
-  wire signed [5:0] x_i3_l0 = neg_i3_l0_s2_reg ? ~$signed({1'd0, s_i3_l0}) : $signed({1'd0, s_i3_l0});
-  wire [4:0] s_q3_l0 = ovf_q3_l0 ? 5'd31 : vo_q3_l0;
-  wire signed [5:0] x_q3_l0 = neg_q3_l0_s2_reg ? ~$signed({1'd0, s_q3_l0}) : $signed({1'd0, s_q3_l0});
-  wire [4:0] s_i3_l1 = ovf_i3_l1 ? 5'd31 : vo_i3_l1;
-  wire signed [5:0] x_i3_l1 = neg_i3_l1_s2_reg ? ~$signed({1'd0, s_i3_l1}) : $signed({1'd0, s_i3_l1});
-  wire [4:0] s_q3_l1 = ovf_q3_l1 ? 5'd31 : vo_q3_l1;
-  wire signed [5:0] x_q3_l1 = neg_q3_l1_s2_reg ? ~$signed({1'd0, s_q3_l1}) : $signed({1'd0, s_q3_l1});
+  // symmetric saturation to +-511 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire signed [9:0] x_i3_l0 = neg_i3_l0_s2_reg ? ~$signed({1'd0, vo_i3_l0}) : $signed({1'd0, vo_i3_l0});
+  wire signed [9:0] x_q3_l0 = neg_q3_l0_s2_reg ? ~$signed({1'd0, vo_q3_l0}) : $signed({1'd0, vo_q3_l0});
+  wire signed [9:0] x_i3_l1 = neg_i3_l1_s2_reg ? ~$signed({1'd0, vo_i3_l1}) : $signed({1'd0, vo_i3_l1});
+  wire signed [9:0] x_q3_l1 = neg_q3_l1_s2_reg ? ~$signed({1'd0, vo_q3_l1}) : $signed({1'd0, vo_q3_l1});
 
   // register stage 3 (after product, round, sign)
   reg  [1:0] mode_l0_s3_reg = 2'd0;
@@ -2370,10 +2358,10 @@ module lvt_bha_demapper (
   reg  [12:0] pp_q1_2_l1_s3_reg = 13'd0;
   reg  [9:0] acc_q1_0_0_l1_s3_reg = 10'd0;
   reg  [11:0] mag_q2_l1_s3_reg = 12'd0;
-  reg  signed [5:0] x_i3_l0_s3_reg = 6'sd0;
-  reg  signed [5:0] x_q3_l0_s3_reg = 6'sd0;
-  reg  signed [5:0] x_i3_l1_s3_reg = 6'sd0;
-  reg  signed [5:0] x_q3_l1_s3_reg = 6'sd0;
+  reg  signed [9:0] x_i3_l0_s3_reg = 10'sd0;
+  reg  signed [9:0] x_q3_l0_s3_reg = 10'sd0;
+  reg  signed [9:0] x_i3_l1_s3_reg = 10'sd0;
+  reg  signed [9:0] x_q3_l1_s3_reg = 10'sd0;
   reg  has_b2_l0_s3_reg = 1'd0;
   reg  has_b3_l0_s3_reg = 1'd0;
   reg  has_b4_l0_s3_reg = 1'd0;
@@ -2457,51 +2445,39 @@ module lvt_bha_demapper (
   wire [14:0] mag_q0_l1 = {4'd0, acc_q0_0_0_l1_s3_reg} + acc_q0_0_1_l1_s3_reg;
   wire [12:0] mag_q1_l1 = {3'd0, acc_q1_0_0_l1_s3_reg} + pp_q1_2_l1_s3_reg;
   // ---------------------------------------------------------------- round (stage 4)
-  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
-  wire [11:0] rsum_i2_l0 = mag_i2_l0_s3_reg + 12'd2;
-  wire [13:0] oc_i2_l0 = {2'd0, mag_i2_l0_s3_reg} + 14'd8066;
-  wire ovf_i2_l0 = oc_i2_l0[13];
-  wire [4:0] vo_i2_l0 = rsum_i2_l0[6:2];
-  wire [11:0] rsum_q2_l0 = mag_q2_l0_s3_reg + 12'd2;
-  wire [13:0] oc_q2_l0 = {2'd0, mag_q2_l0_s3_reg} + 14'd8066;
-  wire ovf_q2_l0 = oc_q2_l0[13];
-  wire [4:0] vo_q2_l0 = rsum_q2_l0[6:2];
-  wire [11:0] rsum_i2_l1 = mag_i2_l1_s3_reg + 12'd2;
-  wire [13:0] oc_i2_l1 = {2'd0, mag_i2_l1_s3_reg} + 14'd8066;
-  wire ovf_i2_l1 = oc_i2_l1[13];
-  wire [4:0] vo_i2_l1 = rsum_i2_l1[6:2];
-  wire [11:0] rsum_q2_l1 = mag_q2_l1_s3_reg + 12'd2;
-  wire [13:0] oc_q2_l1 = {2'd0, mag_q2_l1_s3_reg} + 14'd8066;
-  wire ovf_q2_l1 = oc_q2_l1[13];
-  wire [4:0] vo_q2_l1 = rsum_q2_l1[6:2];
+  // the rounding shift by 3 (half-away); the saturation compare runs beside the add
+  wire [11:0] rsum_i2_l0 = mag_i2_l0_s3_reg + 12'd4;
+  wire [8:0] vo_i2_l0 = rsum_i2_l0[11:3];
+  wire [11:0] rsum_q2_l0 = mag_q2_l0_s3_reg + 12'd4;
+  wire [8:0] vo_q2_l0 = rsum_q2_l0[11:3];
+  wire [11:0] rsum_i2_l1 = mag_i2_l1_s3_reg + 12'd4;
+  wire [8:0] vo_i2_l1 = rsum_i2_l1[11:3];
+  wire [11:0] rsum_q2_l1 = mag_q2_l1_s3_reg + 12'd4;
+  wire [8:0] vo_q2_l1 = rsum_q2_l1[11:3];
   // ---------------------------------------------------------------- sign (stage 4)
-  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [4:0] s_i2_l0 = ovf_i2_l0 ? 5'd31 : vo_i2_l0;
-  wire signed [5:0] x_i2_l0 = neg_i2_l0_s3_reg ? ~$signed({1'd0, s_i2_l0}) : $signed({1'd0, s_i2_l0});
+  // symmetric saturation to +-511 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire signed [9:0] x_i2_l0 = neg_i2_l0_s3_reg ? ~$signed({1'd0, vo_i2_l0}) : $signed({1'd0, vo_i2_l0});
   // LLR i3: positive means bit 0 is more likely
-  wire signed [5:0] llr_i3_l0 = x_i3_l0_s3_reg + $signed({5'd0, neg_i3_l0_s3_reg});
-  wire [4:0] s_q2_l0 = ovf_q2_l0 ? 5'd31 : vo_q2_l0;
-  wire signed [5:0] x_q2_l0 = neg_q2_l0_s3_reg ? ~$signed({1'd0, s_q2_l0}) : $signed({1'd0, s_q2_l0});
+  wire signed [9:0] llr_i3_l0 = x_i3_l0_s3_reg + $signed({9'd0, neg_i3_l0_s3_reg});
+  wire signed [9:0] x_q2_l0 = neg_q2_l0_s3_reg ? ~$signed({1'd0, vo_q2_l0}) : $signed({1'd0, vo_q2_l0});
   // LLR q3: positive means bit 0 is more likely
-  wire signed [5:0] llr_q3_l0 = x_q3_l0_s3_reg + $signed({5'd0, neg_q3_l0_s3_reg});
-  wire [4:0] s_i2_l1 = ovf_i2_l1 ? 5'd31 : vo_i2_l1;
-  wire signed [5:0] x_i2_l1 = neg_i2_l1_s3_reg ? ~$signed({1'd0, s_i2_l1}) : $signed({1'd0, s_i2_l1});
+  wire signed [9:0] llr_q3_l0 = x_q3_l0_s3_reg + $signed({9'd0, neg_q3_l0_s3_reg});
+  wire signed [9:0] x_i2_l1 = neg_i2_l1_s3_reg ? ~$signed({1'd0, vo_i2_l1}) : $signed({1'd0, vo_i2_l1});
   // LLR i3: positive means bit 0 is more likely
-  wire signed [5:0] llr_i3_l1 = x_i3_l1_s3_reg + $signed({5'd0, neg_i3_l1_s3_reg});
-  wire [4:0] s_q2_l1 = ovf_q2_l1 ? 5'd31 : vo_q2_l1;
-  wire signed [5:0] x_q2_l1 = neg_q2_l1_s3_reg ? ~$signed({1'd0, s_q2_l1}) : $signed({1'd0, s_q2_l1});
+  wire signed [9:0] llr_i3_l1 = x_i3_l1_s3_reg + $signed({9'd0, neg_i3_l1_s3_reg});
+  wire signed [9:0] x_q2_l1 = neg_q2_l1_s3_reg ? ~$signed({1'd0, vo_q2_l1}) : $signed({1'd0, vo_q2_l1});
   // LLR q3: positive means bit 0 is more likely
-  wire signed [5:0] llr_q3_l1 = x_q3_l1_s3_reg + $signed({5'd0, neg_q3_l1_s3_reg});
+  wire signed [9:0] llr_q3_l1 = x_q3_l1_s3_reg + $signed({9'd0, neg_q3_l1_s3_reg});
   // ---------------------------------------------------------------- route (stage 4)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
   // llr of label bit b6 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b6_l0 = $signed({6{has_b6_l0_s3_reg}}) & llr_i3_l0;
+  wire signed [8:0] llr_b6_l0 = $signed({9{has_b6_l0_s3_reg}}) & $signed(llr_i3_l0[8:0]);
   // llr of label bit b7 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b7_l0 = $signed({6{has_b7_l0_s3_reg}}) & llr_q3_l0;
+  wire signed [8:0] llr_b7_l0 = $signed({9{has_b7_l0_s3_reg}}) & $signed(llr_q3_l0[8:0]);
   // llr of label bit b6 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b6_l1 = $signed({6{has_b6_l1_s3_reg}}) & llr_i3_l1;
+  wire signed [8:0] llr_b6_l1 = $signed({9{has_b6_l1_s3_reg}}) & $signed(llr_i3_l1[8:0]);
   // llr of label bit b7 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b7_l1 = $signed({6{has_b7_l1_s3_reg}}) & llr_q3_l1;
+  wire signed [8:0] llr_b7_l1 = $signed({9{has_b7_l1_s3_reg}}) & $signed(llr_q3_l1[8:0]);
 
   // register stage 4 (after accumulate, round, sign, route)
   reg  [1:0] mode_l0_s4_reg = 2'd0;
@@ -2527,22 +2503,22 @@ module lvt_bha_demapper (
   reg  [12:0] mag_i1_l1_s4_reg = 13'd0;
   reg  [14:0] mag_q0_l1_s4_reg = 15'd0;
   reg  [12:0] mag_q1_l1_s4_reg = 13'd0;
-  reg  signed [5:0] x_i2_l0_s4_reg = 6'sd0;
-  reg  signed [5:0] x_q2_l0_s4_reg = 6'sd0;
-  reg  signed [5:0] x_i2_l1_s4_reg = 6'sd0;
-  reg  signed [5:0] x_q2_l1_s4_reg = 6'sd0;
+  reg  signed [9:0] x_i2_l0_s4_reg = 10'sd0;
+  reg  signed [9:0] x_q2_l0_s4_reg = 10'sd0;
+  reg  signed [9:0] x_i2_l1_s4_reg = 10'sd0;
+  reg  signed [9:0] x_q2_l1_s4_reg = 10'sd0;
   reg  has_b2_l0_s4_reg = 1'd0;
   reg  has_b3_l0_s4_reg = 1'd0;
   reg  has_b4_l0_s4_reg = 1'd0;
   reg  has_b5_l0_s4_reg = 1'd0;
-  reg  signed [5:0] llr_b6_l0_s4_reg = 6'sd0;
-  reg  signed [5:0] llr_b7_l0_s4_reg = 6'sd0;
+  reg  signed [8:0] llr_b6_l0_s4_reg = 9'sd0;
+  reg  signed [8:0] llr_b7_l0_s4_reg = 9'sd0;
   reg  has_b2_l1_s4_reg = 1'd0;
   reg  has_b3_l1_s4_reg = 1'd0;
   reg  has_b4_l1_s4_reg = 1'd0;
   reg  has_b5_l1_s4_reg = 1'd0;
-  reg  signed [5:0] llr_b6_l1_s4_reg = 6'sd0;
-  reg  signed [5:0] llr_b7_l1_s4_reg = 6'sd0;
+  reg  signed [8:0] llr_b6_l1_s4_reg = 9'sd0;
+  reg  signed [8:0] llr_b7_l1_s4_reg = 9'sd0;
   always @(posedge aclk) begin
     if (ce_s4) begin
       mode_l0_s4_reg <= mode_l0_s3_reg;
@@ -2588,67 +2564,67 @@ module lvt_bha_demapper (
   end
 
   // ---------------------------------------------------------------- round (stage 5)
-  // the rounding shift by 2 (half-away); the saturation compare runs beside the add
-  wire [14:0] rsum_i0_l0 = mag_i0_l0_s4_reg + 15'd2;
-  wire [16:0] oc_i0_l0 = {2'd0, mag_i0_l0_s4_reg} + 17'd65410;
+  // the rounding shift by 3 (half-away); the saturation compare runs beside the add
+  wire [14:0] rsum_i0_l0 = mag_i0_l0_s4_reg + 15'd4;
+  wire [16:0] oc_i0_l0 = {2'd0, mag_i0_l0_s4_reg} + 17'd61444;
   wire ovf_i0_l0 = oc_i0_l0[16];
-  wire [4:0] vo_i0_l0 = rsum_i0_l0[6:2];
-  wire [12:0] rsum_i1_l0 = mag_i1_l0_s4_reg + 13'd2;
-  wire [14:0] oc_i1_l0 = {2'd0, mag_i1_l0_s4_reg} + 15'd16258;
+  wire [8:0] vo_i0_l0 = rsum_i0_l0[11:3];
+  wire [12:0] rsum_i1_l0 = mag_i1_l0_s4_reg + 13'd4;
+  wire [14:0] oc_i1_l0 = {2'd0, mag_i1_l0_s4_reg} + 15'd12292;
   wire ovf_i1_l0 = oc_i1_l0[14];
-  wire [4:0] vo_i1_l0 = rsum_i1_l0[6:2];
-  wire [14:0] rsum_q0_l0 = mag_q0_l0_s4_reg + 15'd2;
-  wire [16:0] oc_q0_l0 = {2'd0, mag_q0_l0_s4_reg} + 17'd65410;
+  wire [8:0] vo_i1_l0 = rsum_i1_l0[11:3];
+  wire [14:0] rsum_q0_l0 = mag_q0_l0_s4_reg + 15'd4;
+  wire [16:0] oc_q0_l0 = {2'd0, mag_q0_l0_s4_reg} + 17'd61444;
   wire ovf_q0_l0 = oc_q0_l0[16];
-  wire [4:0] vo_q0_l0 = rsum_q0_l0[6:2];
-  wire [12:0] rsum_q1_l0 = mag_q1_l0_s4_reg + 13'd2;
-  wire [14:0] oc_q1_l0 = {2'd0, mag_q1_l0_s4_reg} + 15'd16258;
+  wire [8:0] vo_q0_l0 = rsum_q0_l0[11:3];
+  wire [12:0] rsum_q1_l0 = mag_q1_l0_s4_reg + 13'd4;
+  wire [14:0] oc_q1_l0 = {2'd0, mag_q1_l0_s4_reg} + 15'd12292;
   wire ovf_q1_l0 = oc_q1_l0[14];
-  wire [4:0] vo_q1_l0 = rsum_q1_l0[6:2];
-  wire [14:0] rsum_i0_l1 = mag_i0_l1_s4_reg + 15'd2;
-  wire [16:0] oc_i0_l1 = {2'd0, mag_i0_l1_s4_reg} + 17'd65410;
+  wire [8:0] vo_q1_l0 = rsum_q1_l0[11:3];
+  wire [14:0] rsum_i0_l1 = mag_i0_l1_s4_reg + 15'd4;
+  wire [16:0] oc_i0_l1 = {2'd0, mag_i0_l1_s4_reg} + 17'd61444;
   wire ovf_i0_l1 = oc_i0_l1[16];
-  wire [4:0] vo_i0_l1 = rsum_i0_l1[6:2];
-  wire [12:0] rsum_i1_l1 = mag_i1_l1_s4_reg + 13'd2;
-  wire [14:0] oc_i1_l1 = {2'd0, mag_i1_l1_s4_reg} + 15'd16258;
+  wire [8:0] vo_i0_l1 = rsum_i0_l1[11:3];
+  wire [12:0] rsum_i1_l1 = mag_i1_l1_s4_reg + 13'd4;
+  wire [14:0] oc_i1_l1 = {2'd0, mag_i1_l1_s4_reg} + 15'd12292;
   wire ovf_i1_l1 = oc_i1_l1[14];
-  wire [4:0] vo_i1_l1 = rsum_i1_l1[6:2];
-  wire [14:0] rsum_q0_l1 = mag_q0_l1_s4_reg + 15'd2;
-  wire [16:0] oc_q0_l1 = {2'd0, mag_q0_l1_s4_reg} + 17'd65410;
+  wire [8:0] vo_i1_l1 = rsum_i1_l1[11:3];
+  wire [14:0] rsum_q0_l1 = mag_q0_l1_s4_reg + 15'd4;
+  wire [16:0] oc_q0_l1 = {2'd0, mag_q0_l1_s4_reg} + 17'd61444;
   wire ovf_q0_l1 = oc_q0_l1[16];
-  wire [4:0] vo_q0_l1 = rsum_q0_l1[6:2];
-  wire [12:0] rsum_q1_l1 = mag_q1_l1_s4_reg + 13'd2;
-  wire [14:0] oc_q1_l1 = {2'd0, mag_q1_l1_s4_reg} + 15'd16258;
+  wire [8:0] vo_q0_l1 = rsum_q0_l1[11:3];
+  wire [12:0] rsum_q1_l1 = mag_q1_l1_s4_reg + 13'd4;
+  wire [14:0] oc_q1_l1 = {2'd0, mag_q1_l1_s4_reg} + 15'd12292;
   wire ovf_q1_l1 = oc_q1_l1[14];
-  wire [4:0] vo_q1_l1 = rsum_q1_l1[6:2];
+  wire [8:0] vo_q1_l1 = rsum_q1_l1[11:3];
   // ---------------------------------------------------------------- sign (stage 5)
-  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [4:0] s_i1_l0 = ovf_i1_l0 ? 5'd31 : vo_i1_l0;
-  wire signed [5:0] x_i1_l0 = neg_i1_l0_s4_reg ? ~$signed({1'd0, s_i1_l0}) : $signed({1'd0, s_i1_l0});
+  // symmetric saturation to +-511 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [8:0] s_i1_l0 = ovf_i1_l0 ? 9'd511 : vo_i1_l0;
+  wire signed [9:0] x_i1_l0 = neg_i1_l0_s4_reg ? ~$signed({1'd0, s_i1_l0}) : $signed({1'd0, s_i1_l0});
   // LLR i2: positive means bit 0 is more likely
-  wire signed [5:0] llr_i2_l0 = x_i2_l0_s4_reg + $signed({5'd0, neg_i2_l0_s4_reg});
-  wire [4:0] s_q1_l0 = ovf_q1_l0 ? 5'd31 : vo_q1_l0;
-  wire signed [5:0] x_q1_l0 = neg_q1_l0_s4_reg ? ~$signed({1'd0, s_q1_l0}) : $signed({1'd0, s_q1_l0});
+  wire signed [9:0] llr_i2_l0 = x_i2_l0_s4_reg + $signed({9'd0, neg_i2_l0_s4_reg});
+  wire [8:0] s_q1_l0 = ovf_q1_l0 ? 9'd511 : vo_q1_l0;
+  wire signed [9:0] x_q1_l0 = neg_q1_l0_s4_reg ? ~$signed({1'd0, s_q1_l0}) : $signed({1'd0, s_q1_l0});
   // LLR q2: positive means bit 0 is more likely
-  wire signed [5:0] llr_q2_l0 = x_q2_l0_s4_reg + $signed({5'd0, neg_q2_l0_s4_reg});
-  wire [4:0] s_i1_l1 = ovf_i1_l1 ? 5'd31 : vo_i1_l1;
-  wire signed [5:0] x_i1_l1 = neg_i1_l1_s4_reg ? ~$signed({1'd0, s_i1_l1}) : $signed({1'd0, s_i1_l1});
+  wire signed [9:0] llr_q2_l0 = x_q2_l0_s4_reg + $signed({9'd0, neg_q2_l0_s4_reg});
+  wire [8:0] s_i1_l1 = ovf_i1_l1 ? 9'd511 : vo_i1_l1;
+  wire signed [9:0] x_i1_l1 = neg_i1_l1_s4_reg ? ~$signed({1'd0, s_i1_l1}) : $signed({1'd0, s_i1_l1});
   // LLR i2: positive means bit 0 is more likely
-  wire signed [5:0] llr_i2_l1 = x_i2_l1_s4_reg + $signed({5'd0, neg_i2_l1_s4_reg});
-  wire [4:0] s_q1_l1 = ovf_q1_l1 ? 5'd31 : vo_q1_l1;
-  wire signed [5:0] x_q1_l1 = neg_q1_l1_s4_reg ? ~$signed({1'd0, s_q1_l1}) : $signed({1'd0, s_q1_l1});
+  wire signed [9:0] llr_i2_l1 = x_i2_l1_s4_reg + $signed({9'd0, neg_i2_l1_s4_reg});
+  wire [8:0] s_q1_l1 = ovf_q1_l1 ? 9'd511 : vo_q1_l1;
+  wire signed [9:0] x_q1_l1 = neg_q1_l1_s4_reg ? ~$signed({1'd0, s_q1_l1}) : $signed({1'd0, s_q1_l1});
   // LLR q2: positive means bit 0 is more likely
-  wire signed [5:0] llr_q2_l1 = x_q2_l1_s4_reg + $signed({5'd0, neg_q2_l1_s4_reg});
+  wire signed [9:0] llr_q2_l1 = x_q2_l1_s4_reg + $signed({9'd0, neg_q2_l1_s4_reg});
   // ---------------------------------------------------------------- route (stage 5)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
   // llr of label bit b4 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b4_l0 = $signed({6{has_b4_l0_s4_reg}}) & llr_i2_l0;
+  wire signed [9:0] llr_b4_l0 = $signed({10{has_b4_l0_s4_reg}}) & llr_i2_l0;
   // llr of label bit b5 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b5_l0 = $signed({6{has_b5_l0_s4_reg}}) & llr_q2_l0;
+  wire signed [9:0] llr_b5_l0 = $signed({10{has_b5_l0_s4_reg}}) & llr_q2_l0;
   // llr of label bit b4 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b4_l1 = $signed({6{has_b4_l1_s4_reg}}) & llr_i2_l1;
+  wire signed [9:0] llr_b4_l1 = $signed({10{has_b4_l1_s4_reg}}) & llr_i2_l1;
   // llr of label bit b5 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b5_l1 = $signed({6{has_b5_l1_s4_reg}}) & llr_q2_l1;
+  wire signed [9:0] llr_b5_l1 = $signed({10{has_b5_l1_s4_reg}}) & llr_q2_l1;
 
   // register stage 5 (after round, sign, route)
   reg  [1:0] mode_l0_s5_reg = 2'd0;
@@ -2663,29 +2639,29 @@ module lvt_bha_demapper (
   reg  neg_q0_l1_s5_reg = 1'd0;
   reg  neg_q1_l1_s5_reg = 1'd0;
   reg  ovf_i0_l0_s5_reg = 1'd0;
-  reg  [4:0] vo_i0_l0_s5_reg = 5'd0;
+  reg  [8:0] vo_i0_l0_s5_reg = 9'd0;
   reg  ovf_q0_l0_s5_reg = 1'd0;
-  reg  [4:0] vo_q0_l0_s5_reg = 5'd0;
+  reg  [8:0] vo_q0_l0_s5_reg = 9'd0;
   reg  ovf_i0_l1_s5_reg = 1'd0;
-  reg  [4:0] vo_i0_l1_s5_reg = 5'd0;
+  reg  [8:0] vo_i0_l1_s5_reg = 9'd0;
   reg  ovf_q0_l1_s5_reg = 1'd0;
-  reg  [4:0] vo_q0_l1_s5_reg = 5'd0;
-  reg  signed [5:0] x_i1_l0_s5_reg = 6'sd0;
-  reg  signed [5:0] x_q1_l0_s5_reg = 6'sd0;
-  reg  signed [5:0] x_i1_l1_s5_reg = 6'sd0;
-  reg  signed [5:0] x_q1_l1_s5_reg = 6'sd0;
+  reg  [8:0] vo_q0_l1_s5_reg = 9'd0;
+  reg  signed [9:0] x_i1_l0_s5_reg = 10'sd0;
+  reg  signed [9:0] x_q1_l0_s5_reg = 10'sd0;
+  reg  signed [9:0] x_i1_l1_s5_reg = 10'sd0;
+  reg  signed [9:0] x_q1_l1_s5_reg = 10'sd0;
   reg  has_b2_l0_s5_reg = 1'd0;
   reg  has_b3_l0_s5_reg = 1'd0;
-  reg  signed [5:0] llr_b4_l0_s5_reg = 6'sd0;
-  reg  signed [5:0] llr_b5_l0_s5_reg = 6'sd0;
-  reg  signed [5:0] llr_b6_l0_s5_reg = 6'sd0;
-  reg  signed [5:0] llr_b7_l0_s5_reg = 6'sd0;
+  reg  signed [9:0] llr_b4_l0_s5_reg = 10'sd0;
+  reg  signed [9:0] llr_b5_l0_s5_reg = 10'sd0;
+  reg  signed [8:0] llr_b6_l0_s5_reg = 9'sd0;
+  reg  signed [8:0] llr_b7_l0_s5_reg = 9'sd0;
   reg  has_b2_l1_s5_reg = 1'd0;
   reg  has_b3_l1_s5_reg = 1'd0;
-  reg  signed [5:0] llr_b4_l1_s5_reg = 6'sd0;
-  reg  signed [5:0] llr_b5_l1_s5_reg = 6'sd0;
-  reg  signed [5:0] llr_b6_l1_s5_reg = 6'sd0;
-  reg  signed [5:0] llr_b7_l1_s5_reg = 6'sd0;
+  reg  signed [9:0] llr_b4_l1_s5_reg = 10'sd0;
+  reg  signed [9:0] llr_b5_l1_s5_reg = 10'sd0;
+  reg  signed [8:0] llr_b6_l1_s5_reg = 9'sd0;
+  reg  signed [8:0] llr_b7_l1_s5_reg = 9'sd0;
   always @(posedge aclk) begin
     if (ce_s5) begin
       mode_l0_s5_reg <= mode_l0_s4_reg;
@@ -2727,62 +2703,62 @@ module lvt_bha_demapper (
   end
 
   // ---------------------------------------------------------------- sign (stage 6)
-  // symmetric saturation to +-31 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
-  wire [4:0] s_i0_l0 = ovf_i0_l0_s5_reg ? 5'd31 : vo_i0_l0_s5_reg;
-  wire signed [5:0] x_i0_l0 = neg_i0_l0_s5_reg ? ~$signed({1'd0, s_i0_l0}) : $signed({1'd0, s_i0_l0});
+  // symmetric saturation to +-511 and the sign: x = {0, s} ^ neg in one LUT level, then -s = ~s + 1 in one adder
+  wire [8:0] s_i0_l0 = ovf_i0_l0_s5_reg ? 9'd511 : vo_i0_l0_s5_reg;
+  wire signed [9:0] x_i0_l0 = neg_i0_l0_s5_reg ? ~$signed({1'd0, s_i0_l0}) : $signed({1'd0, s_i0_l0});
   // LLR i0: positive means bit 0 is more likely
-  wire signed [5:0] llr_i0_l0 = x_i0_l0 + $signed({5'd0, neg_i0_l0_s5_reg});
+  wire signed [9:0] llr_i0_l0 = x_i0_l0 + $signed({9'd0, neg_i0_l0_s5_reg});
   // LLR i1: positive means bit 0 is more likely
-  wire signed [5:0] llr_i1_l0 = x_i1_l0_s5_reg + $signed({5'd0, neg_i1_l0_s5_reg});
-  wire [4:0] s_q0_l0 = ovf_q0_l0_s5_reg ? 5'd31 : vo_q0_l0_s5_reg;
-  wire signed [5:0] x_q0_l0 = neg_q0_l0_s5_reg ? ~$signed({1'd0, s_q0_l0}) : $signed({1'd0, s_q0_l0});
+  wire signed [9:0] llr_i1_l0 = x_i1_l0_s5_reg + $signed({9'd0, neg_i1_l0_s5_reg});
+  wire [8:0] s_q0_l0 = ovf_q0_l0_s5_reg ? 9'd511 : vo_q0_l0_s5_reg;
+  wire signed [9:0] x_q0_l0 = neg_q0_l0_s5_reg ? ~$signed({1'd0, s_q0_l0}) : $signed({1'd0, s_q0_l0});
   // LLR q0: positive means bit 0 is more likely
-  wire signed [5:0] llr_q0_l0 = x_q0_l0 + $signed({5'd0, neg_q0_l0_s5_reg});
+  wire signed [9:0] llr_q0_l0 = x_q0_l0 + $signed({9'd0, neg_q0_l0_s5_reg});
   // LLR q1: positive means bit 0 is more likely
-  wire signed [5:0] llr_q1_l0 = x_q1_l0_s5_reg + $signed({5'd0, neg_q1_l0_s5_reg});
-  wire [4:0] s_i0_l1 = ovf_i0_l1_s5_reg ? 5'd31 : vo_i0_l1_s5_reg;
-  wire signed [5:0] x_i0_l1 = neg_i0_l1_s5_reg ? ~$signed({1'd0, s_i0_l1}) : $signed({1'd0, s_i0_l1});
+  wire signed [9:0] llr_q1_l0 = x_q1_l0_s5_reg + $signed({9'd0, neg_q1_l0_s5_reg});
+  wire [8:0] s_i0_l1 = ovf_i0_l1_s5_reg ? 9'd511 : vo_i0_l1_s5_reg;
+  wire signed [9:0] x_i0_l1 = neg_i0_l1_s5_reg ? ~$signed({1'd0, s_i0_l1}) : $signed({1'd0, s_i0_l1});
   // LLR i0: positive means bit 0 is more likely
-  wire signed [5:0] llr_i0_l1 = x_i0_l1 + $signed({5'd0, neg_i0_l1_s5_reg});
+  wire signed [9:0] llr_i0_l1 = x_i0_l1 + $signed({9'd0, neg_i0_l1_s5_reg});
   // LLR i1: positive means bit 0 is more likely
-  wire signed [5:0] llr_i1_l1 = x_i1_l1_s5_reg + $signed({5'd0, neg_i1_l1_s5_reg});
-  wire [4:0] s_q0_l1 = ovf_q0_l1_s5_reg ? 5'd31 : vo_q0_l1_s5_reg;
-  wire signed [5:0] x_q0_l1 = neg_q0_l1_s5_reg ? ~$signed({1'd0, s_q0_l1}) : $signed({1'd0, s_q0_l1});
+  wire signed [9:0] llr_i1_l1 = x_i1_l1_s5_reg + $signed({9'd0, neg_i1_l1_s5_reg});
+  wire [8:0] s_q0_l1 = ovf_q0_l1_s5_reg ? 9'd511 : vo_q0_l1_s5_reg;
+  wire signed [9:0] x_q0_l1 = neg_q0_l1_s5_reg ? ~$signed({1'd0, s_q0_l1}) : $signed({1'd0, s_q0_l1});
   // LLR q0: positive means bit 0 is more likely
-  wire signed [5:0] llr_q0_l1 = x_q0_l1 + $signed({5'd0, neg_q0_l1_s5_reg});
+  wire signed [9:0] llr_q0_l1 = x_q0_l1 + $signed({9'd0, neg_q0_l1_s5_reg});
   // LLR q1: positive means bit 0 is more likely
-  wire signed [5:0] llr_q1_l1 = x_q1_l1_s5_reg + $signed({5'd0, neg_q1_l1_s5_reg});
+  wire signed [9:0] llr_q1_l1 = x_q1_l1_s5_reg + $signed({9'd0, neg_q1_l1_s5_reg});
   // ---------------------------------------------------------------- route (stage 6)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
   // llr of label bit b2 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b2_l0 = $signed({6{has_b2_l0_s5_reg}}) & llr_i1_l0;
+  wire signed [9:0] llr_b2_l0 = $signed({10{has_b2_l0_s5_reg}}) & llr_i1_l0;
   // llr of label bit b3 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b3_l0 = $signed({6{has_b3_l0_s5_reg}}) & llr_q1_l0;
+  wire signed [9:0] llr_b3_l0 = $signed({10{has_b3_l0_s5_reg}}) & llr_q1_l0;
   // llr of label bit b2 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b2_l1 = $signed({6{has_b2_l1_s5_reg}}) & llr_i1_l1;
+  wire signed [9:0] llr_b2_l1 = $signed({10{has_b2_l1_s5_reg}}) & llr_i1_l1;
   // llr of label bit b3 in the symbol's mode (zero past its bits)
-  wire signed [5:0] llr_b3_l1 = $signed({6{has_b3_l1_s5_reg}}) & llr_q1_l1;
+  wire signed [9:0] llr_b3_l1 = $signed({10{has_b3_l1_s5_reg}}) & llr_q1_l1;
 
   // register stage 6 (after sign, route)
   reg  [1:0] mode_l0_s6_reg = 2'd0;
   reg  [1:0] mode_l1_s6_reg = 2'd0;
   reg  tlast_s6_reg = 1'd0;
-  reg  signed [5:0] llr_i0_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_q0_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_i0_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_q0_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b2_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b3_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b4_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b5_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b6_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b7_l0_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b2_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b3_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b4_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b5_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b6_l1_s6_reg = 6'sd0;
-  reg  signed [5:0] llr_b7_l1_s6_reg = 6'sd0;
+  reg  signed [9:0] llr_i0_l0_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_q0_l0_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_i0_l1_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_q0_l1_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b2_l0_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b3_l0_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b4_l0_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b5_l0_s6_reg = 10'sd0;
+  reg  signed [8:0] llr_b6_l0_s6_reg = 9'sd0;
+  reg  signed [8:0] llr_b7_l0_s6_reg = 9'sd0;
+  reg  signed [9:0] llr_b2_l1_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b3_l1_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b4_l1_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b5_l1_s6_reg = 10'sd0;
+  reg  signed [8:0] llr_b6_l1_s6_reg = 9'sd0;
+  reg  signed [8:0] llr_b7_l1_s6_reg = 9'sd0;
   always @(posedge aclk) begin
     if (ce_s6) begin
       mode_l0_s6_reg <= mode_l0_s5_reg;
@@ -2808,11 +2784,11 @@ module lvt_bha_demapper (
   end
 
   // ---------------------------------------------------------------- output word
-  assign m_axis_tdata = {mode_l1_s6_reg, llr_i0_l1_s6_reg, llr_q0_l1_s6_reg, llr_b2_l1_s6_reg, llr_b3_l1_s6_reg, llr_b4_l1_s6_reg, llr_b5_l1_s6_reg, llr_b6_l1_s6_reg, llr_b7_l1_s6_reg, mode_l0_s6_reg, llr_i0_l0_s6_reg, llr_q0_l0_s6_reg, llr_b2_l0_s6_reg, llr_b3_l0_s6_reg, llr_b4_l0_s6_reg, llr_b5_l0_s6_reg, llr_b6_l0_s6_reg, llr_b7_l0_s6_reg};
+  assign m_axis_tdata = {mode_l1_s6_reg, llr_i0_l1_s6_reg, llr_q0_l1_s6_reg, llr_b2_l1_s6_reg, llr_b3_l1_s6_reg, llr_b4_l1_s6_reg, llr_b5_l1_s6_reg, 1'd0, llr_b6_l1_s6_reg, 1'd0, llr_b7_l1_s6_reg, mode_l0_s6_reg, llr_i0_l0_s6_reg, llr_q0_l0_s6_reg, llr_b2_l0_s6_reg, llr_b3_l0_s6_reg, llr_b4_l0_s6_reg, llr_b5_l0_s6_reg, 1'd0, llr_b6_l0_s6_reg, 1'd0, llr_b7_l0_s6_reg};
   assign m_axis_tlast = tlast_s6_reg;
 
   // bits that are provably constant or not needed (ranges from the generator)
-  wire unused_bits = ^{sum_i_l0[11], sum_i_l0[6:0], hsum_i_l0[11:0], sum_q_l0[11], sum_q_l0[6:0], hsum_q_l0[11:0], sum_i_l1[11], sum_i_l1[6:0], hsum_i_l1[11:0], sum_q_l1[11], sum_q_l1[6:0], hsum_q_l1[11:0], gs_i1_2_l0_s1_reg[11], gs_i2_1_l0_s1_reg[11], se_i3_l0_s1_reg[11], gs_q1_2_l0_s1_reg[11], gs_q2_1_l0_s1_reg[11], se_q3_l0_s1_reg[11], gs_i1_2_l1_s1_reg[11], gs_i2_1_l1_s1_reg[11], se_i3_l1_s1_reg[11], gs_q1_2_l1_s1_reg[11], gs_q2_1_l1_s1_reg[11], se_q3_l1_s1_reg[11], rsum_i3_l0[10:7], rsum_i3_l0[1:0], oc_i3_l0[11:0], rsum_q3_l0[10:7], rsum_q3_l0[1:0], oc_q3_l0[11:0], rsum_i3_l1[10:7], rsum_i3_l1[1:0], oc_i3_l1[11:0], rsum_q3_l1[10:7], rsum_q3_l1[1:0], oc_q3_l1[11:0], rsum_i2_l0[11:7], rsum_i2_l0[1:0], oc_i2_l0[12:0], rsum_q2_l0[11:7], rsum_q2_l0[1:0], oc_q2_l0[12:0], rsum_i2_l1[11:7], rsum_i2_l1[1:0], oc_i2_l1[12:0], rsum_q2_l1[11:7], rsum_q2_l1[1:0], oc_q2_l1[12:0], rsum_i0_l0[14:7], rsum_i0_l0[1:0], oc_i0_l0[15:0], rsum_i1_l0[12:7], rsum_i1_l0[1:0], oc_i1_l0[13:0], rsum_q0_l0[14:7], rsum_q0_l0[1:0], oc_q0_l0[15:0], rsum_q1_l0[12:7], rsum_q1_l0[1:0], oc_q1_l0[13:0], rsum_i0_l1[14:7], rsum_i0_l1[1:0], oc_i0_l1[15:0], rsum_i1_l1[12:7], rsum_i1_l1[1:0], oc_i1_l1[13:0], rsum_q0_l1[14:7], rsum_q0_l1[1:0], oc_q0_l1[15:0], rsum_q1_l1[12:7], rsum_q1_l1[1:0], oc_q1_l1[13:0]};
+  wire unused_bits = ^{sum_i_l0[11], sum_i_l0[6:0], hsum_i_l0[11:0], sum_q_l0[11], sum_q_l0[6:0], hsum_q_l0[11:0], sum_i_l1[11], sum_i_l1[6:0], hsum_i_l1[11:0], sum_q_l1[11], sum_q_l1[6:0], hsum_q_l1[11:0], gs_i1_2_l0_s1_reg[11], gs_i2_1_l0_s1_reg[11], se_i3_l0_s1_reg[11], gs_q1_2_l0_s1_reg[11], gs_q2_1_l0_s1_reg[11], se_q3_l0_s1_reg[11], gs_i1_2_l1_s1_reg[11], gs_i2_1_l1_s1_reg[11], se_i3_l1_s1_reg[11], gs_q1_2_l1_s1_reg[11], gs_q2_1_l1_s1_reg[11], se_q3_l1_s1_reg[11], rsum_i3_l0[2:0], rsum_q3_l0[2:0], rsum_i3_l1[2:0], rsum_q3_l1[2:0], rsum_i2_l0[2:0], rsum_q2_l0[2:0], rsum_i2_l1[2:0], rsum_q2_l1[2:0], llr_i3_l0[9], llr_q3_l0[9], llr_i3_l1[9], llr_q3_l1[9], rsum_i0_l0[14:12], rsum_i0_l0[2:0], oc_i0_l0[15:0], rsum_i1_l0[12], rsum_i1_l0[2:0], oc_i1_l0[13:0], rsum_q0_l0[14:12], rsum_q0_l0[2:0], oc_q0_l0[15:0], rsum_q1_l0[12], rsum_q1_l0[2:0], oc_q1_l0[13:0], rsum_i0_l1[14:12], rsum_i0_l1[2:0], oc_i0_l1[15:0], rsum_i1_l1[12], rsum_i1_l1[2:0], oc_i1_l1[13:0], rsum_q0_l1[14:12], rsum_q0_l1[2:0], oc_q0_l1[15:0], rsum_q1_l1[12], rsum_q1_l1[2:0], oc_q1_l1[13:0]};
 
 endmodule
 

@@ -16,8 +16,8 @@
 //   demapper.algorithm = "maxlog"
 //   demapper.input_width = 12
 //   demapper.input_fraction = 6
-//   demapper.llr_width = 6
-//   demapper.llr_fraction = 4
+//   demapper.llr_width = 10
+//   demapper.llr_fraction = 3
 //   demapper.rounding = "half-away"
 //   demapper.scale_width = 0
 //   demapper.scale_fraction = 0
@@ -32,7 +32,7 @@
 //   interface.flow_control = "shared"
 //   interface.skid = false
 //   interface.lanes = 2
-// Content hash: 0f72328be0cf528f
+// Content hash: 0a0044baf50dfa06
 `timescale 1ns / 1ps
 `default_nettype none
 
