@@ -17,7 +17,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from qamsmith.artifacts import MANIFEST, lane_symbols, packing, random_words, run_block, write_design
+from qamsmith.artifacts import (MANIFEST, lane_symbols, packing, parse_words, random_words, run_block, unpack_words,
+                                vector_files, write_design)
 from qamsmith.errors import SpecError
 from qamsmith.ir import design_modules, evaluate, output_words
 from qamsmith.model import demap, demap_direct, derive, map_labels
@@ -251,11 +252,14 @@ def test_lanes_equal_independent_single_lane_runs(settings: dict, lanes: int) ->
      "demapper.input_fraction": 2, "demapper.llr_width": 6, "demapper.llr_fraction": 0,
      "demapper.rounding": "toward-zero", "mapper.scaling": "full-scale"},
     {"constellation.orders": [2, 4], "constellation.labeling": "gray", "demapper.algorithm": "folded"},
+    # LLR fields wider than any one mode's range needs (the example's widths): each field is sign-extended
+    {"constellation.orders": [4, 16, 64, 256], "constellation.labeling": "3gpp-nr", "demapper.input_fraction": 6,
+     "demapper.llr_width": 10, "demapper.llr_fraction": 3},
     {"constellation.orders": [4, 16], "constellation.labeling": "gray", "interface.lanes": 3},
     {"constellation.order": 16, "constellation.labeling": "natural", "interface.lanes": 2,
      "demapper.scale_width": 2},
 ], ids=["nr-4to256", "nr-4to64-folded-scale", "wlan-2to256-hard", "wlan-2to1024-narrow-fullscale",
-        "gray-2-4-folded", "gray-4-16-lanes3", "natural16-lanes2"])
+        "gray-2-4-folded", "nr-4to256-llr10", "gray-4-16-lanes3", "natural16-lanes2"])
 def test_mode_and_lane_datapaths_equal_the_model(settings: dict) -> None:
     """Every label field under every mode code, and every input code of each axis under every mode code,
     through the IR evaluator, against the model on the same words."""
@@ -305,3 +309,27 @@ def test_a_mode_error_in_the_model_input_is_refused() -> None:
         map_labels(design, np.array([4]), np.array([0]))
     with pytest.raises(SpecError):
         derive(_spec((4, 16), "natural"))
+
+
+def test_vectors_cover_every_mode_random_modes_and_a_change_on_every_symbol() -> None:
+    """vectors/: every label of every mode code (past the list too) through the mapper; every input code of each
+    axis under every mode code, and a section whose mode changes on every consecutive symbol."""
+    design = derive(_spec((4, 16, 64), **{"interface.lanes": 2}))
+    files, entry = vector_files(design)
+    pack = packing(design)
+    m_in = lane_symbols(parse_words(files["vectors/mapper_in.hex"].decode()), pack["mapper_input"])
+    fields = unpack_words(m_in, pack["mapper_input"]["fields"])
+    modes, k = fields["mode"], design.bits
+    labels = np.asarray(m_in) & ((1 << k) - 1)
+    for code, order in enumerate((4, 16, 64, 64)):
+        kb = bits_per_symbol(order)
+        seen = set((labels[modes == code] >> (k - kb)).tolist())
+        assert seen == set(range(order)), code
+    d_in = lane_symbols(parse_words(files["vectors/demapper_in.hex"].decode()), pack["demapper_input"])
+    f = unpack_words(d_in, pack["demapper_input"]["fields"])
+    codes = set(design.input_codes.tolist())
+    for code in range(4):
+        sel = f["mode"] == code
+        assert set(f["i"][sel].tolist()) == codes and set(f["q"][sel].tolist()) == codes, code
+    tail = np.asarray(f["mode"][-4096:])
+    assert np.all(tail[1:] != tail[:-1])

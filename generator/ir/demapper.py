@@ -302,7 +302,11 @@ def _route(b: Builder, design: Design, mode: Signal, sources: dict[str, Signal],
         value = mode_select(b, f"{what}_sel_b{lb}", mode, leaves, width=width, signed=signed, note=note)
         valid = b.lookup(f"has_b{lb}" if what == "llr" else f"{what}_has_b{lb}", mode, [int(h) for h in has],
                          note=f"the symbol's mode has label bit b{lb}")
-        out.append(b.gate(f"{what}_b{lb}", valid, value, note=note + " (zero past its bits)"))
+        out.append(b.gate(f"{what}_b{lb}", valid, value, width=width, signed=signed,
+                          note=note + " (zero past its bits)"))
+    for sig in out:             # each is a whole output field: a narrower signal would leave its top bits unset
+        if sig.width != width:
+            raise ValueError(f"{sig.name}: {sig.width} bits for a {width}-bit field")
     return out
 
 

@@ -2471,13 +2471,13 @@ module lvt_bha_demapper (
   // ---------------------------------------------------------------- route (stage 4)
   // per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits
   // llr of label bit b6 in the symbol's mode (zero past its bits)
-  wire signed [8:0] llr_b6_l0 = $signed({9{has_b6_l0_s3_reg}}) & $signed(llr_i3_l0[8:0]);
+  wire signed [9:0] llr_b6_l0 = $signed({10{has_b6_l0_s3_reg}}) & llr_i3_l0;
   // llr of label bit b7 in the symbol's mode (zero past its bits)
-  wire signed [8:0] llr_b7_l0 = $signed({9{has_b7_l0_s3_reg}}) & $signed(llr_q3_l0[8:0]);
+  wire signed [9:0] llr_b7_l0 = $signed({10{has_b7_l0_s3_reg}}) & llr_q3_l0;
   // llr of label bit b6 in the symbol's mode (zero past its bits)
-  wire signed [8:0] llr_b6_l1 = $signed({9{has_b6_l1_s3_reg}}) & $signed(llr_i3_l1[8:0]);
+  wire signed [9:0] llr_b6_l1 = $signed({10{has_b6_l1_s3_reg}}) & llr_i3_l1;
   // llr of label bit b7 in the symbol's mode (zero past its bits)
-  wire signed [8:0] llr_b7_l1 = $signed({9{has_b7_l1_s3_reg}}) & $signed(llr_q3_l1[8:0]);
+  wire signed [9:0] llr_b7_l1 = $signed({10{has_b7_l1_s3_reg}}) & llr_q3_l1;
 
   // register stage 4 (after accumulate, round, sign, route)
   reg  [1:0] mode_l0_s4_reg = 2'd0;
@@ -2511,14 +2511,14 @@ module lvt_bha_demapper (
   reg  has_b3_l0_s4_reg = 1'd0;
   reg  has_b4_l0_s4_reg = 1'd0;
   reg  has_b5_l0_s4_reg = 1'd0;
-  reg  signed [8:0] llr_b6_l0_s4_reg = 9'sd0;
-  reg  signed [8:0] llr_b7_l0_s4_reg = 9'sd0;
+  reg  signed [9:0] llr_b6_l0_s4_reg = 10'sd0;
+  reg  signed [9:0] llr_b7_l0_s4_reg = 10'sd0;
   reg  has_b2_l1_s4_reg = 1'd0;
   reg  has_b3_l1_s4_reg = 1'd0;
   reg  has_b4_l1_s4_reg = 1'd0;
   reg  has_b5_l1_s4_reg = 1'd0;
-  reg  signed [8:0] llr_b6_l1_s4_reg = 9'sd0;
-  reg  signed [8:0] llr_b7_l1_s4_reg = 9'sd0;
+  reg  signed [9:0] llr_b6_l1_s4_reg = 10'sd0;
+  reg  signed [9:0] llr_b7_l1_s4_reg = 10'sd0;
   always @(posedge aclk) begin
     if (ce_s4) begin
       mode_l0_s4_reg <= mode_l0_s3_reg;
@@ -2654,14 +2654,14 @@ module lvt_bha_demapper (
   reg  has_b3_l0_s5_reg = 1'd0;
   reg  signed [9:0] llr_b4_l0_s5_reg = 10'sd0;
   reg  signed [9:0] llr_b5_l0_s5_reg = 10'sd0;
-  reg  signed [8:0] llr_b6_l0_s5_reg = 9'sd0;
-  reg  signed [8:0] llr_b7_l0_s5_reg = 9'sd0;
+  reg  signed [9:0] llr_b6_l0_s5_reg = 10'sd0;
+  reg  signed [9:0] llr_b7_l0_s5_reg = 10'sd0;
   reg  has_b2_l1_s5_reg = 1'd0;
   reg  has_b3_l1_s5_reg = 1'd0;
   reg  signed [9:0] llr_b4_l1_s5_reg = 10'sd0;
   reg  signed [9:0] llr_b5_l1_s5_reg = 10'sd0;
-  reg  signed [8:0] llr_b6_l1_s5_reg = 9'sd0;
-  reg  signed [8:0] llr_b7_l1_s5_reg = 9'sd0;
+  reg  signed [9:0] llr_b6_l1_s5_reg = 10'sd0;
+  reg  signed [9:0] llr_b7_l1_s5_reg = 10'sd0;
   always @(posedge aclk) begin
     if (ce_s5) begin
       mode_l0_s5_reg <= mode_l0_s4_reg;
@@ -2751,14 +2751,14 @@ module lvt_bha_demapper (
   reg  signed [9:0] llr_b3_l0_s6_reg = 10'sd0;
   reg  signed [9:0] llr_b4_l0_s6_reg = 10'sd0;
   reg  signed [9:0] llr_b5_l0_s6_reg = 10'sd0;
-  reg  signed [8:0] llr_b6_l0_s6_reg = 9'sd0;
-  reg  signed [8:0] llr_b7_l0_s6_reg = 9'sd0;
+  reg  signed [9:0] llr_b6_l0_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b7_l0_s6_reg = 10'sd0;
   reg  signed [9:0] llr_b2_l1_s6_reg = 10'sd0;
   reg  signed [9:0] llr_b3_l1_s6_reg = 10'sd0;
   reg  signed [9:0] llr_b4_l1_s6_reg = 10'sd0;
   reg  signed [9:0] llr_b5_l1_s6_reg = 10'sd0;
-  reg  signed [8:0] llr_b6_l1_s6_reg = 9'sd0;
-  reg  signed [8:0] llr_b7_l1_s6_reg = 9'sd0;
+  reg  signed [9:0] llr_b6_l1_s6_reg = 10'sd0;
+  reg  signed [9:0] llr_b7_l1_s6_reg = 10'sd0;
   always @(posedge aclk) begin
     if (ce_s6) begin
       mode_l0_s6_reg <= mode_l0_s5_reg;
@@ -2784,11 +2784,11 @@ module lvt_bha_demapper (
   end
 
   // ---------------------------------------------------------------- output word
-  assign m_axis_tdata = {mode_l1_s6_reg, llr_i0_l1_s6_reg, llr_q0_l1_s6_reg, llr_b2_l1_s6_reg, llr_b3_l1_s6_reg, llr_b4_l1_s6_reg, llr_b5_l1_s6_reg, 1'd0, llr_b6_l1_s6_reg, 1'd0, llr_b7_l1_s6_reg, mode_l0_s6_reg, llr_i0_l0_s6_reg, llr_q0_l0_s6_reg, llr_b2_l0_s6_reg, llr_b3_l0_s6_reg, llr_b4_l0_s6_reg, llr_b5_l0_s6_reg, 1'd0, llr_b6_l0_s6_reg, 1'd0, llr_b7_l0_s6_reg};
+  assign m_axis_tdata = {mode_l1_s6_reg, llr_i0_l1_s6_reg, llr_q0_l1_s6_reg, llr_b2_l1_s6_reg, llr_b3_l1_s6_reg, llr_b4_l1_s6_reg, llr_b5_l1_s6_reg, llr_b6_l1_s6_reg, llr_b7_l1_s6_reg, mode_l0_s6_reg, llr_i0_l0_s6_reg, llr_q0_l0_s6_reg, llr_b2_l0_s6_reg, llr_b3_l0_s6_reg, llr_b4_l0_s6_reg, llr_b5_l0_s6_reg, llr_b6_l0_s6_reg, llr_b7_l0_s6_reg};
   assign m_axis_tlast = tlast_s6_reg;
 
   // bits that are provably constant or not needed (ranges from the generator)
-  wire unused_bits = ^{sum_i_l0[11], sum_i_l0[6:0], hsum_i_l0[11:0], sum_q_l0[11], sum_q_l0[6:0], hsum_q_l0[11:0], sum_i_l1[11], sum_i_l1[6:0], hsum_i_l1[11:0], sum_q_l1[11], sum_q_l1[6:0], hsum_q_l1[11:0], gs_i1_2_l0_s1_reg[11], gs_i2_1_l0_s1_reg[11], se_i3_l0_s1_reg[11], gs_q1_2_l0_s1_reg[11], gs_q2_1_l0_s1_reg[11], se_q3_l0_s1_reg[11], gs_i1_2_l1_s1_reg[11], gs_i2_1_l1_s1_reg[11], se_i3_l1_s1_reg[11], gs_q1_2_l1_s1_reg[11], gs_q2_1_l1_s1_reg[11], se_q3_l1_s1_reg[11], rsum_i3_l0[2:0], rsum_q3_l0[2:0], rsum_i3_l1[2:0], rsum_q3_l1[2:0], rsum_i2_l0[2:0], rsum_q2_l0[2:0], rsum_i2_l1[2:0], rsum_q2_l1[2:0], llr_i3_l0[9], llr_q3_l0[9], llr_i3_l1[9], llr_q3_l1[9], rsum_i0_l0[14:12], rsum_i0_l0[2:0], oc_i0_l0[15:0], rsum_i1_l0[12], rsum_i1_l0[2:0], oc_i1_l0[13:0], rsum_q0_l0[14:12], rsum_q0_l0[2:0], oc_q0_l0[15:0], rsum_q1_l0[12], rsum_q1_l0[2:0], oc_q1_l0[13:0], rsum_i0_l1[14:12], rsum_i0_l1[2:0], oc_i0_l1[15:0], rsum_i1_l1[12], rsum_i1_l1[2:0], oc_i1_l1[13:0], rsum_q0_l1[14:12], rsum_q0_l1[2:0], oc_q0_l1[15:0], rsum_q1_l1[12], rsum_q1_l1[2:0], oc_q1_l1[13:0]};
+  wire unused_bits = ^{sum_i_l0[11], sum_i_l0[6:0], hsum_i_l0[11:0], sum_q_l0[11], sum_q_l0[6:0], hsum_q_l0[11:0], sum_i_l1[11], sum_i_l1[6:0], hsum_i_l1[11:0], sum_q_l1[11], sum_q_l1[6:0], hsum_q_l1[11:0], gs_i1_2_l0_s1_reg[11], gs_i2_1_l0_s1_reg[11], se_i3_l0_s1_reg[11], gs_q1_2_l0_s1_reg[11], gs_q2_1_l0_s1_reg[11], se_q3_l0_s1_reg[11], gs_i1_2_l1_s1_reg[11], gs_i2_1_l1_s1_reg[11], se_i3_l1_s1_reg[11], gs_q1_2_l1_s1_reg[11], gs_q2_1_l1_s1_reg[11], se_q3_l1_s1_reg[11], rsum_i3_l0[2:0], rsum_q3_l0[2:0], rsum_i3_l1[2:0], rsum_q3_l1[2:0], rsum_i2_l0[2:0], rsum_q2_l0[2:0], rsum_i2_l1[2:0], rsum_q2_l1[2:0], rsum_i0_l0[14:12], rsum_i0_l0[2:0], oc_i0_l0[15:0], rsum_i1_l0[12], rsum_i1_l0[2:0], oc_i1_l0[13:0], rsum_q0_l0[14:12], rsum_q0_l0[2:0], oc_q0_l0[15:0], rsum_q1_l0[12], rsum_q1_l0[2:0], oc_q1_l0[13:0], rsum_i0_l1[14:12], rsum_i0_l1[2:0], oc_i0_l1[15:0], rsum_i1_l1[12], rsum_i1_l1[2:0], oc_i1_l1[13:0], rsum_q0_l1[14:12], rsum_q0_l1[2:0], oc_q0_l1[15:0], rsum_q1_l1[12], rsum_q1_l1[2:0], oc_q1_l1[13:0]};
 
 endmodule
 
