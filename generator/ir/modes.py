@@ -14,7 +14,7 @@ import numpy as np
 
 from ..model import Design
 from .build import Builder
-from .core import Const, Operand, Signal
+from .core import Operand, Signal
 
 
 def mode_input(b: Builder, design: Design, lsb: int, domains: dict[str, int]) -> Signal:
@@ -52,8 +52,4 @@ def mode_select(b: Builder, name: str, mode: Signal, leaves: Sequence[Operand], 
     return tree(list(leaves), mode.width - 1)
 
 
-def zero(width: int, signed: bool) -> Const:
-    return Const(0, width, signed)
-
-
-__all__ = ["mode_input", "mode_of_code", "mode_select", "zero"]
+__all__ = ["mode_input", "mode_of_code", "mode_select"]
