@@ -22,7 +22,7 @@ from .flows import cost, report, verify
 from .flows import explore, explore_report
 from .flows.tools import FLOWS, SEED, YOSYS_TIMEOUT_S, ToolFailed, ToolMissing, find_tools
 from .model import derive
-from .spec import (ALGORITHMS, DEFAULT_EXAMPLE, LABELINGS, ORDERS, ROUNDING_MODES, SECTIONS, DesignSpec,
+from .spec import (ALGORITHMS, DEFAULT_EXAMPLE, LABELINGS, ORDER_PRESETS, ORDERS, ROUNDING_MODES, SECTIONS, DesignSpec,
                    example_summary, examples, field_docs, load_spec, parse_value, shown)
 from .version import __version__
 
@@ -84,7 +84,9 @@ def _settings(args: argparse.Namespace) -> dict[str, Any]:
 
 def _auto_name(spec: DesignSpec) -> str:
     c = spec.constellation
-    return f"qam{c.order}-{c.labeling.replace('.', '')}-{spec.demapper.algorithm}"
+    orders = f"{c.orders[0]}to{c.orders[-1]}" if c.orders else f"{c.order}"
+    lanes = f"-x{spec.interface.lanes}" if spec.interface.lanes > 1 else ""
+    return f"qam{orders}-{c.labeling.replace('.', '')}-{spec.demapper.algorithm}{lanes}"
 
 
 def build_spec(args: argparse.Namespace) -> DesignSpec:
@@ -106,7 +108,9 @@ def cmd_generate(args: argparse.Namespace) -> int:
     groups = sorted({p.split("/", 1)[0] + ("/" if "/" in p else "") for p in owned})
     dm = spec.demapper
     print(f"qamsmith: wrote {target}/: {len(owned)} files ({', '.join(groups)})")
-    print(f"  {spec.constellation.order}-point {spec.constellation.labeling}, mapper {spec.mapper.width}-bit, "
+    modes = (f" (modes {', '.join(map(str, spec.modes))})" if spec.modes else "")
+    lanes = f", {spec.interface.lanes} lanes" if spec.interface.lanes > 1 else ""
+    print(f"  {spec.constellation.order}-point {spec.constellation.labeling}{modes}{lanes}, mapper {spec.mapper.width}-bit, "
           f"demapper {dm.algorithm} {dm.input_width}-bit in, {dm.llr_width}-bit LLR; "
           f"content hash {content_hash(spec)}")
     return 0
@@ -132,6 +136,9 @@ def cmd_list(args: argparse.Namespace) -> int:
     out = sys.stdout
     out.write(f"orders:         {', '.join(map(str, ORDERS))} (BPSK, QPSK, square QAM; odd-bit orders rectangular or cross, constellation.shape)\n")
     out.write(f"labelings:      {', '.join(LABELINGS)} (table: a label,i,q CSV via --table)\n")
+    out.write("order presets (constellation.orders = NAME; the labeling must match):\n")
+    for name, (family, orders, clause) in ORDER_PRESETS.items():
+        out.write(f"  {name:<14}  {family:<12} {', '.join(map(str, orders)):<29} {clause}\n")
     out.write(f"algorithms:     {', '.join(ALGORITHMS)}\n")
     out.write(f"rounding modes: {', '.join(ROUNDING_MODES)}\n\n")
     out.write("spec keys (TOML [section] key, or --set section.key=value):\n")

@@ -83,3 +83,32 @@ def accepted_spec(case: tuple[int, str, str, int], **interface: object) -> Desig
         except SpecError as exc2:
             return str(exc2)
     return spec
+
+
+#: adaptive cores and lanes in the simulation matrix (Verilog and VHDL): the issue's example, every algorithm,
+#: both Gray-type families with and without BPSK, a single order with lanes, and the stream options with them
+MODE_CASES: dict[str, dict] = {
+    "nr-4to256-maxlog-x4": {"constellation.orders": [4, 16, 64, 256], "constellation.labeling": "3gpp-nr",
+                            "interface.lanes": 4, "interface.tlast": True},
+    "wlan-2to256-folded-scale-tuser": {"constellation.orders": "wlan-vht", "constellation.labeling": "ieee-802.11",
+                                       "demapper.algorithm": "folded", "demapper.scale_width": 3,
+                                       "demapper.scale_fraction": 1, "interface.tuser_width": 3,
+                                       "interface.demapper_stages": 2, "mapper.scaling": "full-scale"},
+    "gray-2to64-hard-x3-skid": {"constellation.orders": [2, 4, 16, 64], "constellation.labeling": "gray",
+                                "demapper.algorithm": "hard", "interface.lanes": 3, "interface.skid": True,
+                                "interface.flow_control": "per-stage", "mapper.tables": "readmemh"},
+    "nr-4to64-maxlog-narrow": {"constellation.orders": [4, 16, 64], "constellation.labeling": "3gpp-nr",
+                               "demapper.input_width": 7, "demapper.input_fraction": 1, "demapper.llr_width": 5,
+                               "demapper.llr_fraction": 0, "demapper.rounding": "half-even"},
+    "qam64-gray-maxlog-x2-scale": {"constellation.order": 64, "constellation.labeling": "gray", "interface.lanes": 2,
+                                   "demapper.scale_width": 4, "demapper.scale_fraction": 2, "interface.tuser_width": 2,
+                                   "interface.tlast": True},
+    "cross128-x2": {"constellation.order": 128, "constellation.labeling": "gray", "constellation.shape": "cross",
+                    "interface.lanes": 2},
+}
+
+
+def mode_spec(name: str, **interface: object) -> DesignSpec:
+    """The spec of a MODE_CASES entry (name m-<case>), with `interface` settings on top."""
+    settings = {**MODE_CASES[name], **{f"interface.{k}": v for k, v in interface.items()}}
+    return DesignSpec(name=f"m-{name}").with_settings(settings)

@@ -396,3 +396,30 @@ def test_a_hard_demapper_with_a_reliability_input_is_analyzed() -> None:
     spec = DesignSpec.from_toml(examples()["larkspur-telemetry-qpsk"]).with_settings({"demapper.algorithm": "hard"})
     res = an.implementation_loss(derive(spec), symbols=4000)
     assert res.grid and all(st.ber_fixed > 0 for st in res.grid)
+
+
+def test_a_mode_of_an_adaptive_core_runs_like_the_single_order_core_of_that_order() -> None:
+    """Mode m's chain sends that mode's points: its float references equal those of the single-order design of
+    that order (same draws), and its fixed chain runs that mode through the common input format (the largest
+    order's grid), so QPSK under 16-QAM decides by the sign like a QPSK core does."""
+    adaptive = derive(DesignSpec(name="a").with_settings({"constellation.orders": [4, 16],
+                                                          "constellation.labeling": "gray"}))
+    single = derive(DesignSpec(name="s").with_settings({"constellation.order": 4, "constellation.labeling": "gray"}))
+    st_a, _ = an.Chain(adaptive, mode=0).run(4.0, 1 << 14, seed=9)
+    st_s, _ = an.Chain(single).run(4.0, 1 << 14, seed=9)
+    assert st_a.bits == 2
+    assert st_a.ber_exact == st_s.ber_exact and st_a.gmi_exact == st_s.gmi_exact
+    # hard decisions: the signs of the same noisy points, up to the samples each input grid rounds to code 0
+    assert abs(st_a.ber_fixed - st_s.ber_fixed) < 1e-3
+    assert abs(st_a.gmi_fixed - st_s.gmi_fixed) < 0.01
+    st_top, _ = an.Chain(adaptive).run(12.0, 1 << 13, seed=9)
+    assert st_top.bits == 4
+
+
+def test_analysis_of_an_adaptive_core_reports_every_mode() -> None:
+    spec = DesignSpec(name="a").with_settings({"constellation.orders": [4, 16], "constellation.labeling": "gray"})
+    modes = an.mode_losses(derive(spec), 1 << 12, 5, 0.9)
+    assert [m["order"] for m in modes] == [4, 16]
+    for m in modes:
+        assert m["operating_point_gmi"] == pytest.approx(0.9 * m["bits"])
+        assert m["loss_db_vs_exact"] is not None and abs(m["loss_db_vs_exact"]) < 0.5

@@ -546,3 +546,21 @@ def test_reference_adder_is_as_wide_as_the_widest_adder() -> None:
     assert w >= d.spec.demapper.input_width + 1
     add = adder_module("a", w)
     assert add.latency == 1 and add.datapath.out_width == w and not add.handshake
+
+
+@pytest.mark.synth
+@pytest.mark.skipif(shutil.which("yosys") is None, reason="yosys not installed")
+def test_cost_of_an_adaptive_core_reports_the_single_order_core_beside_it(tmp_path: Path) -> None:
+    """`qamsmith cost` on an adaptive core: both modules of the single-order core of its largest order at the same
+    widths, the LUT ratios, and the brute-force reference of that single order."""
+    spec = DesignSpec(name="ad").with_settings({"constellation.orders": [2, 4, 16], "constellation.labeling": "gray"})
+    dd = cost.build_source(spec, tmp_path)
+    res = cost.estimate(dd, flows=("generic",), fmax=False)
+    refs = res["references"]
+    for role in ("mapper", "demapper"):
+        single = refs[f"single_order_{role}"]
+        assert single["order"] == 16 and single["flows"]["generic"]["luts"] > 0
+        ratio = single["adaptive_lut_ratio"]["generic"]
+        assert ratio == round(res["modules"][role]["flows"]["generic"]["luts"] / single["flows"]["generic"]["luts"], 4)
+    assert refs["bruteforce_demapper"]["levels_per_axis"] == 4
+    assert any(line.startswith("- adaptive demapper / the single-order 16-point demapper") for line in cost.summary_lines(res))

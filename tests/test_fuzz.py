@@ -83,6 +83,8 @@ VALID: dict[str, st.SearchStrategy[str]] = {
     "constellation.order": st.sampled_from([2, 4, 4, 16, 16, 64, 256]).map(_int_text),
     "constellation.labeling": st.sampled_from(['"gray"', '"3gpp-nr"', '"ieee-802.11"', '"natural"', '"table"']),
     "constellation.table": tables,
+    "constellation.orders": st.sampled_from(["[4, 16]", "[2, 4, 16]", "[4, 16, 64]", '"nr-pdsch-64"', '"wlan-ofdm"',
+                                             "[16, 4]", "[]", "[4]", '"nope"']),
     "constellation.table_file": st.sampled_from(sorted(CSV_FILES) + ["missing.csv"]).map(lambda n: f'"{n}"'),
     "mapper.width": st.integers(2, 14).map(_int_text),
     "mapper.scaling": st.sampled_from(['"normalized"', '"full-scale"']),
@@ -108,6 +110,7 @@ VALID: dict[str, st.SearchStrategy[str]] = {
     "interface.tuser_width": st.integers(0, 4).map(_int_text),
     "interface.flow_control": st.sampled_from(['"shared"', '"per-stage"']),
     "interface.skid": st.sampled_from(["true", "false"]),
+    "interface.lanes": st.sampled_from(["1", "2", "3", "0", "17"]),
 }
 UNKNOWN = ["mapper.widht", "demapper.llr_bits", "interface.clock", "constellation.points", "pipeline.stages"]
 

@@ -250,8 +250,15 @@ def _expected_c_constants(m: dict[str, Any]) -> dict[str, int | float | str]:
     for role, e in m["rtl"]["modules"].items():
         out[f"{p}_{role.upper()}_LATENCY"] = e["latency"]
         out[f"{p}_{role.upper()}_INITIATION_INTERVAL"] = e["initiation_interval"]
+    if "modes" in m:                                   # an adaptive core: the modes and each mode's bits
+        out[f"{p}_MODES"] = len(m["modes"]["orders"])
+        for n, e in enumerate(m["modes"]["list"]):
+            out[f"{p}_MODE{n}_BITS"] = e["bits"]
     for word, w in m["packing"].items():
         out[f"{p}_{word.upper()}_WORD_WIDTH"] = w["width"]
+        if w.get("lanes", 1) > 1:                      # lanes: their count and each word's lane width
+            out[f"{p}_LANES"] = w["lanes"]
+            out[f"{p}_{word.upper()}_LANE_WIDTH"] = w["lane_width"]
         for f in w["fields"]:
             for key in ("lsb", "width", "signed"):
                 out[f"{p}_{word.upper()}_{f['name'].upper()}_{key.upper()}"] = int(f[key])

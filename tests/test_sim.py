@@ -21,7 +21,7 @@ from qamsmith import write_design
 from qamsmith.flows import verify
 from qamsmith.spec import ConstellationSpec, DemapperSpec, DesignSpec, InterfaceSpec, MapperSpec
 
-from matrix import CASES, accepted_spec, case_id, expect_refusal, matrix_spec
+from matrix import CASES, MODE_CASES, accepted_spec, case_id, expect_refusal, matrix_spec, mode_spec
 
 pytestmark = [pytest.mark.sim,
               pytest.mark.skipif(shutil.which("iverilog") is None, reason="Icarus Verilog not installed")]
@@ -70,6 +70,17 @@ def test_matrix(case, matrix_results) -> None:
     assert res.compared > 0
 
 
+@pytest.mark.parametrize("name", list(MODE_CASES))
+def test_modes_and_lanes_matrix(name: str, tmp_path: Path) -> None:
+    """Adaptive cores and lanes: vectors/ (every mode, random mode sequences, a mode change on every symbol;
+    thinned) and random words, with gaps and backpressure, bit-exact against the model."""
+    write_design(mode_spec(name), tmp_path)
+    res = verify.run_direct(tmp_path / f"m-{name}", n_random=300, seed=3, in_pct=70, out_pct=70, vector_limit=900,
+                            build_dir=tmp_path / "build")
+    assert res.mismatches == 0, res.details
+    assert res.compared > 900
+
+
 def test_bench_catches_a_wrong_expected_word(tmp_path: Path) -> None:
     """Mutation check: one corrupted expected word must be reported (the bench can fail)."""
     spec = matrix_spec(16, "gray", "maxlog", 0)
@@ -113,13 +124,16 @@ OPTIONS = {
     "skid-tuser-stages2": dict(interface=InterfaceSpec(skid=True, tuser_width=4, mapper_stages=2, demapper_stages=2)),
     "per-stage-flow": dict(interface=InterfaceSpec(flow_control="per-stage")),
     "per-stage-flow-skid": dict(interface=InterfaceSpec(flow_control="per-stage", skid=True, tuser_width=2)),
+    "modes-lanes3-skid-tuser": dict(constellation=ConstellationSpec(order=64, labeling="3gpp-nr", orders=(4, 16, 64)),
+                                    demapper=DemapperSpec(scale_width=3, scale_fraction=1),
+                                    interface=InterfaceSpec(lanes=3, skid=True, tuser_width=2, tlast=True)),
 }
 
 
 @pytest.mark.parametrize("option", list(OPTIONS))
 def test_cocotb_benches(option: str, tmp_path: Path) -> None:
     kw = OPTIONS[option]
-    spec = DesignSpec(name=f"opt-{option}", constellation=ConstellationSpec(order=64, labeling="3gpp-nr"), **kw)
+    spec = DesignSpec(name=f"opt-{option}", **{"constellation": ConstellationSpec(order=64, labeling="3gpp-nr"), **kw})
     write_design(spec, tmp_path)
     res = verify.run_cocotb(tmp_path / spec.name, n_random=2000, stream=600, build_dir=tmp_path / "build")
     assert res.failed_tests == 0, res.details

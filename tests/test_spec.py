@@ -222,8 +222,10 @@ def test_table_without_rows() -> None:
 def test_every_field_has_a_doc_and_the_dict_round_trips() -> None:
     docs = field_docs()
     spec = DesignSpec()
-    # constellation.shape is written out for odd-bit orders only (tests/test_cross.py)
-    flat = {f"{s}.{k}" for s, v in spec.to_dict().items() if isinstance(v, dict) for k in v} | {"name", "constellation.shape"}
+    # constellation.shape is written out for odd-bit orders only (tests/test_cross.py), constellation.orders
+    # and interface.lanes only when set (tests/test_modes.py)
+    flat = {f"{s}.{k}" for s, v in spec.to_dict().items() if isinstance(v, dict) for k in v} | {
+        "name", "constellation.shape", "constellation.orders", "interface.lanes"}
     assert set(docs) == flat
     assert all(doc.strip() and "\n" not in doc for doc in docs.values())
     assert DesignSpec.from_dict(spec.to_dict()) == spec
@@ -451,4 +453,5 @@ def test_what_the_user_wrote_is_not_part_of_the_spec(tmp_path: Path) -> None:
     assert from_file == DesignSpec() and hash(from_file) == hash(DesignSpec()) and repr(from_file) == repr(DesignSpec())
     assert from_file.with_settings({"demapper.llr_width": 6}).given == frozenset({"mapper.width", "demapper.llr_width"})
     # every key of the resolved spec (constellation.shape only for odd-bit orders)
-    assert DesignSpec.from_dict(from_file.to_dict()).given == frozenset(field_docs()) - {"constellation.shape"}
+    assert DesignSpec.from_dict(from_file.to_dict()).given == frozenset(field_docs()) - {
+        "constellation.shape", "constellation.orders", "interface.lanes"}

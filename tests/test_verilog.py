@@ -17,7 +17,7 @@ from qamsmith.hdl.verilog import literal
 from qamsmith.model import derive
 from qamsmith.spec import DesignSpec
 
-from matrix import user_table
+from matrix import MODE_CASES, mode_spec, user_table
 
 pyslang = pytest.importorskip("pyslang")
 
@@ -186,3 +186,9 @@ def test_shared_enable_is_one_gate_from_m_axis_tready() -> None:
         assert all(line.strip().endswith("= ce_all;") for line in shared.splitlines() if line.strip().startswith("wire ce_s"))
         chained = rtl_files(_design(64, **{"interface.flow_control": "per-stage", **stages}))[f"rtl/t_{role}.v"]
         assert "ce_all" not in chained and "|| ce_s1;" in chained
+
+
+@pytest.mark.parametrize("name", list(MODE_CASES))
+def test_mode_and_lane_modules_compile_cleanly_in_slang(name: str) -> None:
+    for path, text in rtl_files(derive(mode_spec(name))).items():
+        assert slang_diagnostics(text) == [], path

@@ -26,7 +26,7 @@ from qamsmith.errors import SpecError
 from qamsmith.flows import tools, verify
 from qamsmith.spec import DesignSpec, examples
 
-from matrix import CASES, accepted_spec, case_id, expect_refusal
+from matrix import CASES, MODE_CASES, accepted_spec, case_id, expect_refusal, mode_spec
 
 pytestmark = [pytest.mark.sim,
               pytest.mark.skipif(shutil.which("ghdl") is None, reason="GHDL not installed (.ci/run installs it)")]
@@ -65,6 +65,19 @@ def test_vhdl_matrix(case: tuple[int, str, str, int], tmp_path: Path) -> None:
     assert res.compared == sum(c["vectors"] + c["random"] for c in res.counts.values()) > 0
 
 
+@pytest.mark.parametrize("name", list(MODE_CASES))
+def test_vhdl_modes_and_lanes_matrix(name: str, tmp_path: Path) -> None:
+    """Adaptive cores and lanes on GHDL: ghdl --synth without latches, then vectors/ (thinned) and random words."""
+    dd = _write(mode_spec(name, language="vhdl"), tmp_path)
+    for role in ("mapper", "demapper"):
+        synth = tools.ghdl_synth([dd.rtl_file(role, "vhdl")], dd.module(role)["module"], work=tmp_path / "synth")
+        assert synth["ok"] and not synth["latches"], (role, synth["errors"], synth["latches"])
+    res = verify.run_ghdl(dd.root, n_random=150, seed=5, in_pct=70, out_pct=70, vector_limit=THIN,
+                          build_dir=tmp_path / "build")
+    assert res.mismatches == 0, res.details
+    assert res.compared == sum(c["vectors"] + c["random"] for c in res.counts.values()) > THIN
+
+
 # --------------------------------------------------------------------------- GHDL's gates
 
 
@@ -78,6 +91,8 @@ def test_vhdl_analyzes_and_elaborates_with_every_warning(std: str, tmp_path: Pat
     """GHDL 2.0 has no -Wall: every -W switch it documents is on, and any warning fails."""
     designs = _examples(tmp_path / "out", "vhdl")
     designs.append(_write(accepted_spec((64, "table", "maxlog", 1), language="vhdl"), tmp_path / "out"))
+    designs += [_write(mode_spec(name, language="vhdl"), tmp_path / "out")
+                for name in ("wlan-2to256-folded-scale-tuser", "gray-2to64-hard-x3-skid")]
     for dd in designs:
         sources = [dd.rtl_file(r, "vhdl") for r in ("mapper", "demapper")] + [dd.path(dd.testbench["vhdl_harness"]["file"])]
         tops = [dd.module(r)["module"] for r in ("mapper", "demapper")] + [dd.testbench["vhdl_harness"]["entity"]]
@@ -167,6 +182,17 @@ def test_both_languages_give_the_same_words(case: tuple[int, str, str, int], tmp
     assert v.ok and h.ok, (v.details, h.details)
     for name in verify.DUMPS.values():
         assert (tmp_path / "verilog" / name).read_bytes() == (tmp_path / "vhdl" / name).read_bytes()
+    cross = verify.compare_dumps(tmp_path / "verilog", tmp_path / "vhdl", "icarus and ghdl")
+    assert cross.ok and cross.compared == v.compared == h.compared
+
+
+@pytest.mark.parametrize("name", ["nr-4to256-maxlog-x4", "gray-2to64-hard-x3-skid"])
+def test_both_languages_give_the_same_words_with_modes_and_lanes(name: str, tmp_path: Path) -> None:
+    dd = _write(mode_spec(name, language="both"), tmp_path)
+    kw = {"n_random": 200, "seed": 9, "vector_limit": THIN, "dump": True}
+    v = verify.run_direct(dd.root, build_dir=tmp_path / "verilog", **kw)
+    h = verify.run_ghdl(dd.root, build_dir=tmp_path / "vhdl", **kw)
+    assert v.ok and h.ok, (v.details, h.details)
     cross = verify.compare_dumps(tmp_path / "verilog", tmp_path / "vhdl", "icarus and ghdl")
     assert cross.ok and cross.compared == v.compared == h.compared
 

@@ -305,10 +305,21 @@ def _c_header(m: dict[str, Any]) -> str:
         ints.append((f"{p}_{role.upper()}_LATENCY", e["latency"], f"cycles from an accepted {role} input word to "
                                                                   "its output word"))
         ints.append((f"{p}_{role.upper()}_INITIATION_INTERVAL", e["initiation_interval"], "cycles between input words"))
+    if "modes" in m:
+        orders = m["modes"]["orders"]
+        ints.append((f"{p}_MODES", len(orders), f"modes of the adaptive core, orders {orders} by mode code"))
+        ints += [(f"{p}_MODE{n}_BITS", e["bits"], f"label bits (valid LLR fields) of mode {n}, {e['order']} points")
+                 for n, e in enumerate(m["modes"]["list"])]
+    lanes = m["packing"]["demapper_input"].get("lanes", 1)
+    if lanes > 1:
+        ints.append((f"{p}_LANES", lanes, "symbols per transfer, lane 0 in the least significant bits"))
     words = []
     for word in sorted(m["packing"], key=lambda k: (BLOCKS.index(k.split("_")[0]), k)):
         w = m["packing"][word]
         stem = f"{p}_{word.upper()}"
+        if lanes > 1:
+            ints.append((f"{stem}_LANE_WIDTH", w["lane_width"], f"bits of one lane of the {word.replace('_', ' ')} "
+                                                               "word; the field positions below are within a lane"))
         fields = [{"doc": f["doc"], "defs": [(f"{stem}_{f['name'].upper()}_{key.upper()}", _c_int(int(f[key])))
                                              for key in ("lsb", "width", "signed")]} for f in w["fields"]]
         words.append({"doc": f"{word.replace('_', ' ')} word: {w['doc']}",

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import math
 from typing import Any
 
 import numpy as np
@@ -121,6 +122,53 @@ def _cross_entry(design: Design) -> dict[str, Any]:
     }
 
 
+def _modes_entry(design: Design) -> dict[str, Any]:
+    """An adaptive core: the mode field, the input-scaling contract and every mode's points and declared grid."""
+    spec = design.spec
+    f = spec.demapper.input_fraction
+    full = spec.mapper.scaling == "full-scale"
+    max_code = design.mapper_format.max_code
+    modes = []
+    for m in design.modes:
+        levels = [m.constellation.axes[0].levels, max(1, m.constellation.axes[1].levels)]
+        peak = max(max(abs(int(v)) for v in m.point_i), max(abs(int(v)) for v in m.point_q))
+        entry = {
+            "code": m.index, "order": m.order, "bits": m.bits, "kappa": m.kappa, "shift": m.shift,
+            "gain": m.gain, "gain_db": 20.0 * math.log10(m.gain),
+            "levels_per_axis": levels,
+            "declared_levels": (f"level n of an L-level axis (L = {levels[0]}) at input code (2n - (L-1)) * "
+                                f"2^{f + m.shift}: one level step is {2 << (f + m.shift)} codes"),
+            "llr_fields": [f"llr_b{j}" for j in range(m.bits)] if spec.demapper.algorithm != "hard" else
+                          [f"b{j}" for j in range(m.bits)],
+            "points": [[int(lab), int(a), int(b)] for lab, a, b in zip(range(m.order), m.point_i, m.point_q)],
+        }
+        if full:
+            entry["peak_backoff_db"] = 20.0 * math.log10(max_code / peak)
+        modes.append(entry)
+    return {
+        "orders": [m.order for m in design.modes], "field_width": design.mode_width,
+        "codes": (f"the mode field indexes the orders; a code past the list ({len(design.modes)} .. "
+                  f"{(1 << design.mode_width) - 1}) acts as the last mode, the largest order"
+                  if len(design.modes) < 1 << design.mode_width else "the mode field indexes the orders"),
+        "llr_lsb": design.llr_lsb,
+        "input_scaling": (
+            "one input format for every mode: the largest order's grid (one input LSB = input_lsb normalized "
+            f"units, its levels at odd multiples of 2^{f} codes), i.e. every mode's unit-average-power "
+            "constellation at the same scale. Mode m of L_m levels per axis is demapped on declared levels at "
+            f"(2n - (L_m - 1)) 2^({f} + s_m) codes, s_m = log2(L_max / L_m): its standard points sit at gain_m "
+            "(<= 1) of its declared levels. Its decision is the largest order's n_hat >> s_m, its max-log "
+            "metric (exact for the declared levels) is shifted left by s_m, so llr_lsb is the same for every "
+            "mode."),
+        "mapper_output": ("normalized: every mode's standard unit-average-power points at the common mapper lsb"
+                          if not full else "full-scale: every mode at the same average power, the outermost level "
+                          f"over all modes mapper.backoff_db = {spec.mapper.backoff_db} dB below full scale; each "
+                          "mode's own peak backoff is peak_backoff_db"),
+        "output": ("the largest order's fields; mode m fills the first k_m (b0 .. b(k_m - 1)), the fields after "
+                   "them are zero; the mode is passed through with the symbol (packing: field mode)"),
+        "list": modes,
+    }
+
+
 def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, Any], rtl: dict[str, Any],
                    testbench: dict[str, Any]) -> dict[str, Any]:
     """The manifest: every derived number the RTL, testbenches and reports read, the kit's files, the file list."""
@@ -173,6 +221,7 @@ def build_manifest(design: Design, files: dict[str, bytes], vectors: dict[str, A
             "rom": {"style": spec.mapper.tables, "images": rom_manifest(design)},
         },
         "demapper": dem,
+        **({"modes": _modes_entry(design)} if design.modes else {}),
         "packing": packing(design),
         "vectors": vectors,
         "rtl": rtl,

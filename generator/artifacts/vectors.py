@@ -18,7 +18,8 @@ from ..model import Design
 from ..numbers import QFormat
 from ..spec import DesignSpec
 from .texts import banner, content_hash
-from .words import demapper_input_words, demapper_words, format_words, mapper_words, pack_words, packing
+from .words import (demapper_input_words, demapper_words, format_words, lane_words, mapper_input_words, mapper_words,
+                    packing)
 
 #: mapper vectors: every label once, then seeded random labels up to this count (at least 1024 random)
 MAPPER_VECTORS = 4096
@@ -49,12 +50,22 @@ def _rng(spec: DesignSpec) -> np.random.Generator:
     return np.random.default_rng(int(content_hash(spec), 16))
 
 
-def mapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, str]:
-    """Every label once, then seeded random labels."""
+def mapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray | None, str]:
+    """Every label once, then seeded random labels; an adaptive core: every label of every mode (and of each
+    mode code past the list), then a random mode and label on every symbol. Returns (labels, modes, what)."""
     m = design.constellation.order
     n_random = max(MAPPER_VECTORS - m, 1024)
-    labels = np.concatenate([np.arange(m, dtype=np.int64), rng.integers(0, m, n_random, dtype=np.int64)])
-    return labels, f"every label 0..{m - 1} once, then {n_random} seeded random labels"
+    if not design.modes:
+        labels = np.concatenate([np.arange(m, dtype=np.int64), rng.integers(0, m, n_random, dtype=np.int64)])
+        return labels, None, f"every label 0..{m - 1} once, then {n_random} seeded random labels"
+    codes = np.arange(1 << design.mode_width, dtype=np.int64)
+    orders = np.asarray([design.modes[min(c, len(design.modes) - 1)].order for c in codes], dtype=np.int64)
+    modes = np.concatenate([np.repeat(codes, orders), rng.integers(0, codes.size, n_random, dtype=np.int64)])
+    order_of = orders[modes]
+    labels = np.concatenate([np.arange(o, dtype=np.int64) for o in orders]
+                            + [(rng.random(n_random) * order_of[-n_random:]).astype(np.int64)])
+    return labels, modes, (f"every label of every mode code 0..{codes.size - 1} once, then {n_random} seeded random "
+                           "modes and labels (the mode changes from symbol to symbol)")
 
 
 def _sweep(fmt: QFormat) -> np.ndarray:
@@ -116,8 +127,43 @@ def corner_codes(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, 
     return ci, cq
 
 
-def demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, str]:
-    """Per-axis sweeps, extreme codes crossed, reliability sweep, then seeded random inputs."""
+def demapper_stimulus(design: Design, rng: np.random.Generator
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None, str]:
+    """Per-axis sweeps, extreme codes crossed, reliability sweep, then seeded random inputs.
+
+    An adaptive core: the sweeps once per mode code (past the list too), the other sections with a random
+    mode on every symbol, then a section whose mode steps through every code on consecutive symbols.
+    Returns (i, q, scale, modes, what)."""
+    if design.modes:
+        return _demapper_modes(design, rng)
+    i, q, scale, note = _demapper_stimulus(design, rng)
+    return i, q, scale, None, note
+
+
+def _demapper_modes(design: Design, rng: np.random.Generator
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray, str]:
+    codes = 1 << design.mode_width
+    parts = [_demapper_stimulus(design, rng) for _ in range(codes)]
+    fmt = design.input_format
+    sweep = _sweep(fmt).size * (2 if design.constellation.axes[1].bits else 1)
+    # the sweeps of copy c under mode c; everything after them under random modes
+    modes = [np.concatenate([np.full(sweep, c, np.int64), rng.integers(0, codes, p[0].size - sweep)])
+             for c, p in enumerate(parts)]
+    n_step = RANDOM_VECTORS
+    step = np.arange(n_step, dtype=np.int64) % codes
+    i = np.concatenate([p[0] for p in parts] + [rng.integers(fmt.min_code, fmt.max_code + 1, n_step)])
+    q = np.concatenate([p[1] for p in parts] + [rng.integers(fmt.min_code, fmt.max_code + 1, n_step)])
+    scale = None
+    if design.scale_format is not None:
+        scale = np.concatenate([p[2] for p in parts] + [rng.integers(0, design.scale_format.max_code + 1, n_step)])
+    note = (f"per mode code 0..{codes - 1} (past the list too): {parts[0][3]} (the sweeps under that mode, the rest "
+            f"under random modes); then {n_step} random inputs with the mode stepping through every code on "
+            "consecutive symbols")
+    return i, q, scale, np.concatenate(modes + [step]), note
+
+
+def _demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, str]:
+    """Per-axis sweeps, extreme codes crossed, reliability sweep, then seeded random inputs (one mode)."""
     fmt = design.input_format
     lo, hi = fmt.min_code, fmt.max_code + 1
     const = design.constellation
@@ -172,28 +218,41 @@ def demapper_stimulus(design: Design, rng: np.random.Generator) -> tuple[np.ndar
     return i, q, scale, "; ".join(notes)
 
 
+def _lanes(symbols: list[int], entry: dict[str, Any]) -> list[int]:
+    """Symbols packed into words of `entry`'s lanes; a last partial word is filled with the first symbols again."""
+    n = entry.get("lanes", 1)
+    return lane_words(symbols + symbols[:(-len(symbols)) % n], entry)
+
+
 def vector_files(design: Design) -> tuple[dict[str, bytes], dict[str, Any]]:
     """Stimulus and expected words of both blocks, and their manifest entry."""
     rng = _rng(design.spec)
     pack = packing(design)
-    labels, note = mapper_stimulus(design, rng)
+    labels, modes, note = mapper_stimulus(design, rng)
+    lanes = design.lanes
+    if lanes > 1:
+        note += f"; {lanes} symbols a word, the last word filled with the first symbols again"
+    map_in = _lanes(mapper_input_words(design, labels, modes), pack["mapper_input"])
+    map_out = _lanes(mapper_words(design, labels, modes), pack["mapper_output"])
     files = {
-        "vectors/mapper_in.hex": format_words(pack_words([(labels, design.bits)]), design.bits,
-                                              _input_header(design, "mapper", labels.size, note)),
-        "vectors/mapper_out.hex": format_words(mapper_words(design, labels), pack["mapper_output"]["width"],
-                                               output_header(design, "mapper", labels.size)),
+        "vectors/mapper_in.hex": format_words(map_in, pack["mapper_input"]["width"],
+                                              _input_header(design, "mapper", len(map_in), note)),
+        "vectors/mapper_out.hex": format_words(map_out, pack["mapper_output"]["width"],
+                                               output_header(design, "mapper", len(map_out))),
     }
-    i, q, scale, dnote = demapper_stimulus(design, rng)
-    files["vectors/demapper_in.hex"] = format_words(
-        demapper_input_words(design, i, q, scale), pack["demapper_input"]["width"],
-        _input_header(design, "demapper", i.size, dnote))
-    files["vectors/demapper_out.hex"] = format_words(
-        demapper_words(design, i, q, scale), pack["demapper_output"]["width"],
-        output_header(design, "demapper", i.size))
+    i, q, scale, dmodes, dnote = demapper_stimulus(design, rng)
+    if lanes > 1:
+        dnote += f"; {lanes} symbols a word, the last word filled with the first symbols again"
+    dem_in = _lanes(demapper_input_words(design, i, q, scale, dmodes), pack["demapper_input"])
+    dem_out = _lanes(demapper_words(design, i, q, scale, dmodes), pack["demapper_output"])
+    files["vectors/demapper_in.hex"] = format_words(dem_in, pack["demapper_input"]["width"],
+                                                    _input_header(design, "demapper", len(dem_in), dnote))
+    files["vectors/demapper_out.hex"] = format_words(dem_out, pack["demapper_output"]["width"],
+                                                     output_header(design, "demapper", len(dem_out)))
     entry = {
-        "mapper": {"input": "vectors/mapper_in.hex", "expected": "vectors/mapper_out.hex", "count": int(labels.size),
+        "mapper": {"input": "vectors/mapper_in.hex", "expected": "vectors/mapper_out.hex", "count": len(map_in),
                    "stimulus": note},
-        "demapper": {"input": "vectors/demapper_in.hex", "expected": "vectors/demapper_out.hex", "count": int(i.size),
+        "demapper": {"input": "vectors/demapper_in.hex", "expected": "vectors/demapper_out.hex", "count": len(dem_in),
                      "stimulus": dnote},
         "format": "one fixed-width lower-case hex word a line after // comment lines ($readmemh)",
     }

@@ -39,7 +39,7 @@ import numpy as np
 
 from ..artifacts import probe_file, write_file
 from ..errors import SpecError
-from ..model import Design, demap, derive, hard_decisions
+from ..model import AxisDemap, Design, demap, derive, hard_decisions
 from ..numbers import Constellation, label_bits, quantize
 from ..spec import DesignSpec
 
@@ -619,9 +619,12 @@ class _Tally:
 class _FloatReference:
     """Float max-log metrics and exact log-MAP LLRs of the ideal (unquantized) constellation, per axis or in 2-D."""
 
-    def __init__(self, design: Design, txbits: np.ndarray) -> None:
-        const = design.constellation
+    def __init__(self, design: Design, txbits: np.ndarray, const: Constellation | None = None,
+                 axes: Sequence[AxisDemap] | None = None) -> None:
+        """`const` and `axes`: an adaptive core's mode (default: the design's constellation and axes)."""
+        const = const or design.constellation
         self.design = design
+        self.axes_demap = tuple(design.axes if axes is None else axes)
         self.const = const
         self.k = const.bits
         self.txbits = txbits                                                             # (M, k) int8
@@ -637,7 +640,7 @@ class _FloatReference:
         L = ax.levels
         codes = np.asarray(ax.codes)
         cb = np.stack([ax.axis_bit(codes, j) for j in range(ax.bits)], axis=1).astype(np.float64)   # (L, m)
-        ad = self.design.axes[n]
+        ad = self.axes_demap[n]
         comp = ad.competitor.astype(np.float64)                                          # (m, L, 2)
         rows0, rows1 = _bit_rows(cb)
         # max-log: decided level, competitor offset by residual sign, sign from decided level's bit
@@ -696,18 +699,27 @@ class _FloatReference:
 class Chain:
     """Precomputed tables for the Monte-Carlo of one design (fixed chain and float references)."""
 
-    def __init__(self, design: Design, *, ideal_mapper: bool = False, scale_code: int | None = None) -> None:
-        """Label bits, transmitted points, demapper settings and float-reference tables of `design`."""
+    def __init__(self, design: Design, *, ideal_mapper: bool = False, scale_code: int | None = None,
+                 mode: int | None = None) -> None:
+        """Label bits, transmitted points, demapper settings and float-reference tables of `design`.
+
+        An adaptive core: `mode` (default the largest) is the mode every symbol is sent and demapped in; its
+        points go through the common input format (the largest order's grid) and the float references are that
+        mode's ideal constellation."""
         self.design = design
-        const = design.constellation
+        self.mode = None if not design.modes else len(design.modes) - 1 if mode is None else mode
+        m = design.modes[self.mode] if self.mode is not None else None
+        const = m.constellation if m is not None else design.constellation
         self.const = const
+        #: kappa of the input grid (the largest order's): amplitude units of the demapper input
+        self.kappa_in = design.constellation.kappa
         self.M, self.k = const.order, const.bits
         self.txbits = label_bits(np.arange(self.M), self.k)                              # (M, k) int8
         self.sign = (1.0 - 2.0 * self.txbits).T.copy()                                  # (k, M) +-1
         self._init_mapper(ideal_mapper)
         self._init_demapper(scale_code)
         self.chunk = CHUNK if const.axes is not None else max(1024, (1 << 21) // self.M)
-        self.floats = _FloatReference(design, self.txbits)
+        self.floats = _FloatReference(design, self.txbits, const, m.axes if m is not None else design.axes)
         self.per_axis = self.floats.per_axis
 
     def _init_mapper(self, ideal_mapper: bool) -> None:
@@ -716,15 +728,18 @@ class Chain:
         self.tx_ideal = const.normalized.astype(np.complex128)
         if ideal_mapper:
             self.tx_fixed = self.tx_ideal
+        elif self.mode is not None:
+            m = design.modes[self.mode]
+            self.tx_fixed = (m.point_i + 1j * m.point_q) * design.mapper_lsb
         else:
             self.tx_fixed = (design.point_i + 1j * design.point_q) * design.mapper_lsb
         #: mean energy of the fixed mapper's output (normalized units): Es/N0 refers to what is sent,
         #: so a mapper whose rounding raises its power gains nothing from it
         self.es_fixed = float(np.mean(np.abs(self.tx_fixed) ** 2))
-        #: fixed mapper output per component in amplitude units (the demapper input's scale)
-        self.tx_amp = (self.tx_fixed.real / const.kappa, self.tx_fixed.imag / const.kappa)
+        #: fixed mapper output per component in amplitude units of the input grid (the demapper input's scale)
+        self.tx_amp = (self.tx_fixed.real / self.kappa_in, self.tx_fixed.imag / self.kappa_in)
         #: noise (already times sigma) to amplitude units, with the Es of the fixed mapper
-        self.amp_noise = math.sqrt(self.es_fixed) / const.kappa
+        self.amp_noise = math.sqrt(self.es_fixed) / self.kappa_in
 
     def _init_demapper(self, scale_code: int | None) -> None:
         """The demapper's algorithm, reliability input, LLR code range (histogram layout) and input LSB."""
@@ -840,11 +855,12 @@ class Chain:
 
     def _demap(self, ci: np.ndarray, cq: np.ndarray, scale: np.int64 | None) -> tuple[np.ndarray, np.ndarray]:
         """Hard bits and LLR codes (both (N, k)) of the bit-exact model; a hard demapper's bits become +-1 codes."""
+        modes = None if self.mode is None else np.full(ci.size, self.mode, dtype=np.int64)
         if self.hard:
-            hb = demap(self.design, ci, cq, scale)     # the reliability code is read, not used
+            hb = demap(self.design, ci, cq, scale, modes)[:, :self.k]     # the reliability code is read, not used
             return hb, (1 - 2 * hb).astype(np.int32)
-        llr = demap(self.design, ci, cq, scale)
-        return hard_decisions(self.design, ci, cq), llr
+        llr = demap(self.design, ci, cq, scale, modes)[:, :self.k]
+        return hard_decisions(self.design, ci, cq, modes)[:, :self.k], llr
 
     def _float_chunk(self, b: int, lab: np.ndarray, z: np.ndarray, n0: float, tally: _Tally) -> None:
         """The float references on one chunk of ideal points plus noise, in cache-sized blocks of FLOAT_BLOCK."""
@@ -874,7 +890,7 @@ class Chain:
         nat = self.natural_nats(st.n0)
         st.gmi_fixed, st.gmi_fixed_batches, st.factor_fixed = _gmi_batches(tally.h_fixed, nat, nb, self.k)
         st.nats_per_code = st.factor_fixed * nat
-        kappa = self.const.kappa
+        kappa = self.kappa_in
         st.input_noise_db = 10.0 * math.log10(max(float(tally.quant_noise.sum()) * kappa * kappa / symbols, 1e-300))
         st.input_clip_percent = 100.0 * float(tally.clipped.sum()) / (2 * symbols)
 
@@ -1621,7 +1637,36 @@ def run_analysis(spec: DesignSpec, *, esn0_db: Sequence[float] | None = None, sy
     }
     if ber_floor is not None:
         doc["ber_floor"] = ber_floor
+    if design.modes:
+        doc["modes"] = mode_losses(design, symbols, seed, gmi_fraction)
     return doc
+
+
+def mode_losses(design: Design, symbols: int, seed: int, gmi_fraction: float) -> list[dict[str, Any]]:
+    """An adaptive core: the implementation loss of every mode at its own operating point (float exact GMI =
+    gmi_fraction x k_m), every symbol sent and demapped in that mode through the common input format."""
+    out = []
+    for n, m in enumerate(design.modes):
+        chain = Chain(design, mode=n)
+        loss = implementation_loss(design, symbols, seed, gmi_fraction=gmi_fraction, chain=chain,
+                                   label=f"loss {m.order}-point mode")
+        op = loss.operating_point_esn0_db
+        out.append({
+            "mode": n, "order": m.order, "bits": m.bits, "shift": m.shift, "gain_db": _num(20.0 * math.log10(m.gain)),
+            "operating_point_esn0_db": _num(op), "operating_point_ebn0_db": _num(op - 10.0 * math.log10(m.bits)),
+            "operating_point_gmi": _num(loss.gmi_target),
+            "loss_db_vs_exact": _num(loss.loss_db_vs_exact), "loss_db_vs_exact_ci95": _num(loss.loss_db_vs_exact_ci95),
+            "loss_db_vs_maxlog": _num(loss.loss_db_vs_maxlog),
+            "loss_db_vs_maxlog_ci95": _num(loss.loss_db_vs_maxlog_ci95),
+            "ber_at_operating_point": _num(loss.ber_target),
+            "ber_loss_db_vs_exact": _num(loss.ber_loss_db_vs_exact),
+            "ber_loss_db_vs_maxlog": _num(loss.ber_loss_db_vs_maxlog),
+            "loss_note": loss.note,
+            "loss_grid": [{key: v for key, v in point_record(st, design).items()
+                           if key in ("esn0_db", "gmi_fixed", "gmi_maxlog", "gmi_exact", "ber_fixed", "ber_exact")}
+                          for st in loss.grid],
+        })
+    return out
 
 
 def to_json(doc: dict[str, Any]) -> str:
@@ -1661,7 +1706,7 @@ def widths_run(spec: DesignSpec, path: Path, *, budget_db: float = DEFAULT_BUDGE
     return result
 
 
-__all__ = ["BATCHES", "Chain", "LossResult", "PointStats", "ber_cross_qam", "ber_gray_qam", "ber_gray_rectangular",
+__all__ = ["BATCHES", "Chain", "LossResult", "mode_losses", "PointStats", "ber_cross_qam", "ber_gray_qam", "ber_gray_rectangular",
            "best_scale", "check_symbols", "theory_applies", "theory_ber", "theory_source",
            "esn0_from_ebn0", "explore_widths", "gmi_direct", "implementation_loss", "input_noise", "mapper_evm",
            "check_seed", "parse_snr", "run_analysis", "widths_run", "shannon_capacity", "sweep", "to_json", "widths_table"]

@@ -20,6 +20,7 @@ import copy
 import json
 import shutil
 import tempfile
+from dataclasses import replace
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
@@ -220,12 +221,14 @@ def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows:
         ports = [{"name": p.name, "dir": p.direction, "width": p.width} for p in adder.ports]
         refs["adder"]["fmax"] = _fmax(tools, families, [apath], adder.name, ports, cwd=folder, work=work, seed=seed,
                                       timeout=timeout, say=say)
+    if design.modes:
+        refs.update(_single_order(tools, dd, flows, families, seed, timeout, folder, work, say))
     if "bruteforce" not in wanted:
         return refs
     if not design.per_axis and design.cross is None:
         refs["bruteforce_demapper"] = {"skipped": "the design is itself a 2-D search over every point"}
         return refs
-    mspec = maxlog_variant(dd.spec)
+    mspec = maxlog_variant(single_order(dd.spec) if design.modes else dd.spec)
     mdesign = derive(mspec)
     brute = bruteforce_module(mdesign, f"{prefix}_ref_bruteforce_demapper")
     if mdesign.cross is not None:
@@ -237,13 +240,42 @@ def _references(tools: Tools, dd: DesignDirectory, wanted: Sequence[str], flows:
     bpath = _write_module(brute, folder, f"reference brute-force {what} demapper")
     refs["bruteforce_demapper"] = {"module": brute.name, **extent,
                                    "flows": _synth_all(tools, flows, [bpath], brute.name, folder, work, timeout)}
-    if mspec is not dd.spec:
+    if mspec is not dd.spec and not (design.modes and dd.spec.demapper.algorithm == "maxlog"):
         maxlog = design_modules(mdesign)["demapper"]
         mpath = _write_module(maxlog, folder, "the maxlog demapper at the same widths")
         say("reference: the maxlog demapper at the same widths")
         refs["maxlog_demapper"] = {"module": maxlog.name, "flows": _synth_all(tools, flows, [mpath], maxlog.name,
                                                                             folder, work, timeout)}
     return refs
+
+
+def single_order(spec: DesignSpec) -> DesignSpec:
+    """An adaptive core's spec as the single-order core of its largest order (same widths, lanes and options)."""
+    return spec.with_settings({"constellation.orders": [], "constellation.order": spec.constellation.order,
+                               "name": spec.name})
+
+
+def _single_order(tools: Tools, dd: DesignDirectory, flows: Sequence[str], families: Sequence[str], seed: int,
+                  timeout: float, folder: Path, work: Path, say: Callable[[str], None]) -> dict[str, Any]:
+    """An adaptive core's comparison: both modules of the single-order core of its largest order."""
+    sdesign = derive(single_order(dd.spec))
+    out = {}
+    for role, module in design_modules(sdesign).items():
+        if module.parameters:                       # $readmemh images: the inline tables instead
+            module = design_modules(derive(single_order(dd.spec).with_settings(
+                {"mapper.tables": "inline", "name": dd.spec.name})))[role]
+        module = replace(module, name=f"{dd.spec.prefix}_ref_single_{role}")
+        path = _write_module(module, folder, f"the single-order {sdesign.constellation.order}-point {role} at the "
+                                             "same widths")
+        say(f"reference: the single-order {sdesign.constellation.order}-point {role}")
+        entry = {"module": module.name, "order": sdesign.constellation.order, "latency_cycles": module.latency,
+                 "initiation_interval": 1, "flows": _synth_all(tools, flows, [path], module.name, folder, work, timeout)}
+        if families:
+            ports = [{"name": p.name, "dir": p.direction, "width": p.width} for p in module.ports]
+            entry["fmax"] = _fmax(tools, families, [path], module.name, ports, cwd=folder, work=work, seed=seed,
+                                  timeout=timeout, say=say)
+        out[f"single_order_{role}"] = entry
+    return out
 
 
 def _ratio(a: float | None, b: float | None) -> float | None:
@@ -258,6 +290,14 @@ def _ratios(result: dict[str, Any]) -> None:
         ml = refs.get("maxlog_demapper") or result["modules"]["demapper"]
         brute["maxlog_lut_ratio"] = {f: _ratio(ml["flows"][f]["luts"], brute["flows"][f]["luts"])
                                      for f in brute["flows"] if f in ml["flows"]}
+    for role, fig in result["modules"].items():
+        single = refs.get(f"single_order_{role}")
+        if single is None:
+            continue
+        single["adaptive_lut_ratio"] = {f: _ratio(fig["flows"][f]["luts"], single["flows"][f]["luts"])
+                                        for f in single["flows"] if f in fig["flows"]}
+        single["adaptive_fmax_ratio"] = {fam: _ratio(fm["fmax_mhz"], single.get("fmax", {}).get(fam, {}).get("fmax_mhz"))
+                                         for fam, fm in fig.get("fmax", {}).items()}
     adder = refs.get("adder", {}).get("fmax", {})
     for fig in result["modules"].values():
         for fam, fm in fig.get("fmax", {}).items():
@@ -311,7 +351,7 @@ def markdown(result: dict[str, Any]) -> str:
     lines += ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     rows = [(f"`{fig['module']}`", fig) for _, fig in _modules(result)]
     refs = result["references"]
-    for key in ("maxlog_demapper", "bruteforce_demapper", "adder"):
+    for key in ("single_order_mapper", "single_order_demapper", "maxlog_demapper", "bruteforce_demapper", "adder"):
         if "flows" in refs.get(key, {}):
             rows.append((f"`{refs[key]['module']}` (reference)", refs[key]))
     for name, fig in rows:
@@ -356,6 +396,15 @@ def summary_lines(result: dict[str, Any]) -> list[str]:
         out.append(f"- maxlog / brute-force demapper LUTs at the same widths ({extent}): {', '.join(parts)}.")
     elif "skipped" in brute:
         out.append(f"- brute-force reference: {brute['skipped']}.")
+    for role in ROLES:
+        single = refs.get(f"single_order_{role}", {})
+        if "adaptive_lut_ratio" not in single:
+            continue
+        luts = [f"{_FLOW_TITLES[f]} {r:.3f}" for f, r in single["adaptive_lut_ratio"].items() if r is not None]
+        fmax = [f"{_FLOW_TITLES[f]} {_ratio_text(r)}" for f, r in single.get("adaptive_fmax_ratio", {}).items()
+                if r is not None]
+        out.append(f"- adaptive {role} / the single-order {single['order']}-point {role} at the same widths: LUTs "
+                   f"{', '.join(luts)}" + (f"; Fmax {', '.join(fmax)}" if fmax else "") + ".")
     adder = refs.get("adder", {})
     per_family = []
     for fam, fm in adder.get("fmax", {}).items():

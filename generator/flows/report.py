@@ -36,7 +36,7 @@ from . import analysis as an
 CLOUD_SYMBOLS = 4000
 #: the cloud plot widens its view to the input full scale when that is at most this many times the cloud's reach
 CLOUD_FULL_SCALE_REACH = 1.5
-PLOTS = ("constellation.png", "cloud.png", "llr_transfer.png", "ber.png", "gmi.png", "loss_vs_width.png")
+PLOTS = ("constellation.png", "cloud.png", "llr_transfer.png", "ber.png", "gmi.png", "loss_vs_width.png", "modes.png")
 #: PNG text key naming the JSON (and its hash) a plot was drawn from
 SOURCE_KEY = "Source"
 
@@ -102,6 +102,11 @@ def _values(points: list[dict[str, Any]], key: str) -> np.ndarray:
 # --------------------------------------------------------------------------- plots of the design (analyze only)
 
 
+def _largest_mode(design: Design, n: int) -> np.ndarray | None:
+    """An adaptive core's mode codes of n symbols in its largest mode (the mode the single-mode plots show)."""
+    return np.full(n, len(design.modes) - 1, dtype=np.int64) if design.modes else None
+
+
 def plot_constellation(plt: Any, design: Design) -> Any:
     """The fixed-point mapper's output codes with their labels (binary, b0 first)."""
     const = design.constellation
@@ -133,7 +138,7 @@ def plot_cloud(plt: Any, design: Design, esn0_db: float, seed: int) -> Any:
     _, kept = chain.run(esn0_db, CLOUD_SYMBOLS, seed, floats=False, keep=CLOUD_SYMBOLS)
     f = design.spec.demapper.input_fraction
     const = design.constellation
-    wrong = np.any(hard_decisions(design, kept["i"], kept["q"]) != label_bits(kept["labels"], const.bits), axis=1)
+    wrong = np.any(hard_decisions(design, kept["i"], kept["q"], _largest_mode(design, kept["i"].size)) != label_bits(kept["labels"], const.bits), axis=1)
     n, n_wrong = int(wrong.size), int(np.count_nonzero(wrong))
     fig, ax = plt.subplots(figsize=(6.4, 7.0), constrained_layout=True)
     ax.scatter(kept["i"][~wrong], kept["q"][~wrong], s=2, color="C0", alpha=0.6, zorder=2, linewidths=0,
@@ -184,7 +189,7 @@ def llr_transfer(design: Design, scale_code: int | None = None) -> tuple[np.ndar
         if scale_code is None:
             scale_code = min(1 << design.spec.demapper.scale_fraction, design.scale_format.max_code)
         scale = np.full(i.shape, scale_code)
-    llr = demap(design, i, q, scale)
+    llr = demap(design, i, q, scale, _largest_mode(design, i.size))
     const = design.constellation
     cols = list(const.axes[0].label_bits) if const.axes is not None else list(range(const.bits))
     return i, llr, cols
@@ -303,6 +308,42 @@ def plot_gmi(plt: Any, doc: dict[str, Any]) -> Any:
                      f"exact,\n{_f(doc.get('loss_db_vs_maxlog'))} dB {_ci(doc.get('loss_db_vs_maxlog_ci95'))} "
                      "vs float max-log (95 % intervals)", fontsize=9)
     gap_ax.legend(fontsize=8, loc="upper right")
+    return fig
+
+
+def plot_modes(plt: Any, doc: dict[str, Any]) -> Any:
+    """An adaptive core: each mode's implementation loss (dB, 95 % intervals) and its GMI gap around its own
+    operating point (float exact minus fixed point), every symbol in that mode through the common input format."""
+    modes = doc["modes"]
+    fig, (ax, gap_ax) = plt.subplots(1, 2, figsize=(11.0, 4.6), constrained_layout=True)
+    x = np.arange(len(modes))
+    for off, key, color, name in ((-0.18, "loss_db_vs_exact", "C0", "vs float exact log-MAP"),
+                                  (0.18, "loss_db_vs_maxlog", "C1", "vs float max-log")):
+        v = np.array([np.nan if m[key] is None else m[key] for m in modes], dtype=float)
+        cis = [m.get(f"{key}_ci95") for m in modes]
+        lo = np.array([np.nan if c is None else c[0] for c in cis], dtype=float)
+        hi = np.array([np.nan if c is None else c[1] for c in cis], dtype=float)
+        err = [np.where(np.isnan(lo), 0.0, v - lo), np.where(np.isnan(hi), 0.0, hi - v)]
+        ax.bar(x + off, v, width=0.34, color=color, label=name + ", 95 %")
+        ax.errorbar(x + off, v, yerr=err, fmt="none", ecolor="k", capsize=3, lw=0.8)
+    ax.axhline(0.0, color="0.4", lw=0.6)
+    ax.set_xticks(x, [f"{m['order']}-QAM\n{m['operating_point_esn0_db']:.1f} dB" if m["order"] > 2
+                      else f"BPSK\n{m['operating_point_esn0_db']:.1f} dB" for m in modes])
+    ax.set_ylabel("implementation loss (dB of Es/N0, GMI)")
+    ax.set_title(f"{doc['design']}: loss per mode at its operating point\n(float exact GMI = "
+                 f"{modes[0]['operating_point_gmi'] / modes[0]['bits']:.2f} x bits of the mode)", fontsize=9)
+    ax.legend(fontsize=8)
+    for n, m in enumerate(modes):
+        grid = m["loss_grid"]
+        gx = np.array([p["esn0_db"] for p in grid], dtype=float) - m["operating_point_esn0_db"]
+        gap = _values(grid, "gmi_exact") - _values(grid, "gmi_fixed")
+        gap_ax.plot(gx, gap / m["bits"], "o-", ms=3, lw=0.9, color=f"C{n}", label=f"{m['order']}-point mode")
+    gap_ax.axvline(0.0, color="C3", ls="--", lw=0.8)
+    gap_ax.axhline(0.0, color="0.4", lw=0.6)
+    gap_ax.set_xlabel("Es/N0 - the mode's operating point (dB)")
+    gap_ax.set_ylabel("GMI gap per bit (float exact - fixed point)")
+    gap_ax.set_title("GMI gap around each mode's operating point", fontsize=9)
+    gap_ax.legend(fontsize=8)
     return fig
 
 
@@ -433,9 +474,30 @@ def _md_points(doc: dict[str, Any], image: Image) -> list[str]:
     return out
 
 
+def _md_modes(doc: dict[str, Any], image: Image) -> list[str]:
+    """An adaptive core: the implementation loss of every mode (dB, 95 % intervals) at its own operating point."""
+    if not doc.get("modes"):
+        return []
+    out = ["## Implementation loss per mode\n",
+           "Every symbol sent and demapped in one mode, through the common input format (the largest order's grid); "
+           "each mode at its own operating point (float exact GMI = the same fraction of its bits). The summary "
+           "above is the largest mode's. Gain: the mode's standard points relative to its declared levels.\n",
+           "| mode | order | gain (dB) | Es/N0 dB | GMI target | loss vs exact (dB, 95 %) | loss vs max-log (dB, 95 %) "
+           "| BER loss vs exact / max-log (dB) |",
+           "| ---: | ---: | ---: | ---: | ---: | --- | --- | --- |"]
+    for m in doc["modes"]:
+        out.append(f"| {m['mode']} | {m['order']} | {_f(m['gain_db'], '.3f')} | {_f(m['operating_point_esn0_db'], '.2f')} | "
+                   f"{_f(m['operating_point_gmi'], '.3f')} | {_f_ci(m, 'loss_db_vs_exact')} | "
+                   f"{_f_ci(m, 'loss_db_vs_maxlog')} | {_f(m['ber_loss_db_vs_exact'])} / "
+                   f"{_f(m['ber_loss_db_vs_maxlog'])} |")
+    notes = [f"{m['order']}-point mode: {m['loss_note']}" for m in doc["modes"] if m.get("loss_note")]
+    out += [""] + [f"**Note:** {n}.\n" for n in notes] + [f"{image('modes.png', 'loss per mode')}\n"]
+    return out
+
+
 def _md_analysis(doc: dict[str, Any], image: Image) -> list[str]:
-    """The analysis.json part: summary table, BER/GMI plots and table, the design's plots."""
-    return _md_summary(doc) + _md_points(doc, image)
+    """The analysis.json part: summary table, the modes' losses, BER/GMI plots and table, the design's plots."""
+    return _md_summary(doc) + _md_modes(doc, image) + _md_points(doc, image)
 
 
 def _md_widths(widths: dict[str, Any], image: Image) -> list[str]:
@@ -650,6 +712,8 @@ def write_report(spec: DesignSpec, target: Path, doc: dict[str, Any], widths: di
     figures = {"constellation.png": lambda: plot_constellation(plt, design),
                "cloud.png": lambda: plot_cloud(plt, design, cloud_esn0_db if cloud_esn0_db is not None else op, seed),
                "llr_transfer.png": lambda: plot_llr_transfer(plt, design, op)}
+    if doc.get("modes"):
+        figures["modes.png"] = lambda: plot_modes(plt, doc)
     files: dict[str, bytes] = {}
     with tempfile.TemporaryDirectory(prefix="qamsmith-plots-") as tmp:
         for name, draw in figures.items():

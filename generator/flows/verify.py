@@ -44,7 +44,8 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from ..artifacts import DesignDirectory, demapper_input_words, format_words, random_words, read_words, run_block
+from ..artifacts import (DesignDirectory, demapper_input_words, format_words, lane_words, packing, random_words,
+                         read_words, run_block)
 from ..errors import SpecError
 from ..model import Design
 from .tools import (VHDL_STANDARDS, ToolFailed, ToolMissing, find_ghdl, ghdl_synth, ghdl_version, lint_verilog,
@@ -207,6 +208,8 @@ def exhaustive_words(design: Design, seed: int) -> tuple[dict[str, list[int]], l
     most EXHAUSTIVE_LIMIT words; above it, what was covered is said. Returns the input words per
     block and one line per block saying what they cover.
     """
+    if design.modes or design.lanes > 1:
+        return _exhaustive_lanes(design, seed)
     rng = np.random.default_rng(seed)
     order = design.constellation.order
     words = {"mapper": list(range(order))}
@@ -246,6 +249,38 @@ def exhaustive_words(design: Design, seed: int) -> tuple[dict[str, list[int]], l
     return words, cover
 
 
+def _exhaustive_lanes(design: Design, seed: int) -> tuple[dict[str, list[int]], list[str]]:
+    """`exhaustive_words` of an adaptive core or of several lanes: every symbol input of one lane (every label
+    field under every mode code; every I and Q code under every mode code, with every reliability code), the
+    symbols packed into the lanes in turn (the last word filled with the first symbols again)."""
+    rng = np.random.default_rng(seed)
+    pack = packing(design)
+    n_modes = 1 << design.mode_width if design.modes else 1
+    lanes = f", {design.lanes} symbols a word" if design.lanes > 1 else ""
+    m_in = pack["mapper_input"]
+    m_sym = list(range(1 << m_in.get("lane_width", m_in["width"]))) if design.modes else \
+        list(range(design.constellation.order))
+    codes = design.input_codes
+    ns = design.scale_format.max_code + 1 if design.scale_format is not None else 1
+    reps = n_modes * ns
+    i = np.tile(codes, reps)
+    q = np.concatenate([rng.permutation(codes) for _ in range(reps)])
+    s = None if design.scale_format is None else np.tile(np.repeat(np.arange(ns, dtype=np.int64), codes.size), n_modes)
+    modes = np.repeat(np.arange(n_modes, dtype=np.int64), codes.size * ns) if design.modes else None
+    d_sym = demapper_input_words(design, i, q, s, modes)
+
+    def pad(sym: list[int], entry: dict[str, Any]) -> list[int]:
+        return lane_words(sym + sym[:(-len(sym)) % design.lanes], entry)
+
+    words = {"mapper": pad(m_sym, m_in), "demapper": pad(d_sym, pack["demapper_input"])}
+    what_modes = f" under every mode code 0..{n_modes - 1}" if design.modes else ""
+    cover = [f"mapper: every label{' field' if design.modes else ''}{what_modes} ({len(m_sym)} symbols{lanes})",
+             f"demapper: every I and every Q code {int(codes[0])}..{int(codes[-1])} (I paired with a permutation of Q)"
+             f"{what_modes}{' x every reliability code' if ns > 1 else ''}: {len(d_sym)} symbols{lanes}, every input "
+             "of both axes in every mode"]
+    return words, cover
+
+
 def stimulus_words(dd: DesignDirectory, n_random: int, seed: int, *, use_vectors: bool = True,
                    vector_limit: int | None = None, exhaustive: bool = False
                    ) -> tuple[dict[str, tuple[list[int], list[int]]], dict[str, dict[str, int]], list[str]]:
@@ -275,9 +310,10 @@ def stimulus_words(dd: DesignDirectory, n_random: int, seed: int, *, use_vectors
         counts[block] = {"vectors": len(words_in)}
         fresh = sweep.get(block, [])
         counts[block]["exhaustive"] = len(fresh)
-        if n_random:
-            fresh = fresh + random_words(design, block, n_random, seed + (block == "demapper"))
-        counts[block]["random"] = n_random
+        words_random = -(-n_random // design.lanes)         # n_random symbols: whole words of every lane
+        if words_random:
+            fresh = fresh + random_words(design, block, words_random, seed + (block == "demapper"))
+        counts[block]["random"] = words_random
         out[block] = (words_in + fresh, words_out + run_block(design, block, fresh))
     return out, counts, coverage
 

@@ -73,19 +73,25 @@ class Builder:
         self._inputs: list[Field] = []
         self._steps: list[tuple[str, str, list[Assign]]] = []
         self._names: set[str] = set()
-        self._trace: dict[str, tuple[str, np.ndarray]] = {}
+        #: signal name -> {domain: its values over that domain}; a signal may be traced in several domains (an
+        #: adaptive core's mode input: in each axis' domain, paired with that axis' codes)
+        self._trace: dict[str, dict[str, np.ndarray]] = {}
         self._notes: dict[str, str] = {}
 
     # ---- inputs and steps ------------------------------------------------------------------
 
     def input(self, name: str, width: int, signed: bool, lsb: int, *, doc: str = "",
-              domain: str | None = None, values: np.ndarray | None = None) -> Signal:
-        """A field of the input word. `values` (every value the field takes, under `domain`) enables exact ranges."""
+              domain: str | None = None, values: np.ndarray | None = None,
+              domains: dict[str, np.ndarray] | None = None) -> Signal:
+        """A field of the input word. `values` (every value the field takes, under `domain`) enables exact ranges;
+        `domains` traces it in several domains at once (domain -> values)."""
         lo, hi = value_range(width, signed)
         sig = self._new(Signal(name, width, signed, lo, hi))
         self._inputs.append(Field(sig, lsb, doc))
         if values is not None:
-            self._trace[name] = (domain or name, np.asarray(values, dtype=np.int64))
+            self._trace[name] = {domain or name: np.asarray(values, dtype=np.int64)}
+        for dom, vals in (domains or {}).items():
+            self._trace.setdefault(name, {})[dom] = np.asarray(vals, dtype=np.int64)
         return sig
 
     def step(self, name: str, doc: str) -> None:
@@ -128,7 +134,7 @@ class Builder:
         sig = self._new(Signal(name, width, is_signed, lo, hi))
         self._steps[-1][2].append(Assign(sig, op, note))
         if values is not None:
-            self._trace[name] = (traced[0], values)
+            self._trace[name] = {traced[0]: values}
         return sig
 
     def add(self, name: str, a: Value, b: Value, **kw) -> Signal:
@@ -207,19 +213,21 @@ class Builder:
         return Const.of(int(a)) if isinstance(a, (int, np.integer)) else a
 
     def _traced(self, op: Op) -> tuple[str, list[np.ndarray]] | None:
-        domain = None
+        """The first domain every signal operand is traced in, and the operands' values there (None: no such domain)."""
+        traces = [self._trace.get(a.name) for a in op.operands() if not isinstance(a, Const)]
+        if not traces or any(t is None for t in traces):
+            return None
+        common = [d for d in traces[0] if all(d in t for t in traces[1:])]
+        if not common:
+            return None
+        domain = common[0]
         args = []
         for a in op.operands():
             if isinstance(a, Const):
                 args.append(np.asarray(a.value, dtype=np.int64))
                 continue
-            got = self._trace.get(a.name)
-            if got is None or (domain is not None and got[0] != domain):
-                return None
-            domain = got[0]
-            args.append(got[1] if isinstance(a, Signal) else (got[1] >> a.lo) & np.int64((1 << a.width) - 1))
-        if domain is None:
-            return None
+            got = self._trace[a.name][domain]
+            args.append(got if isinstance(a, Signal) else (got >> a.lo) & np.int64((1 << a.width) - 1))
         return domain, args
 
 

@@ -26,6 +26,7 @@ from ..model import AxisDemap, Design, OutputStage, decide
 from . import cross
 from .build import Builder
 from .core import Const, Datapath, Field, Operand, Signal, width_for
+from .modes import mode_input, mode_of_code, mode_select
 
 
 @dataclass
@@ -74,6 +75,8 @@ def demapper_datapath(design: Design) -> Datapath:
     sw = design.scale_format.width if design.scale_format else 0
     b = Builder()
     codes = design.input_codes
+    if design.modes:                            # every input code paired with every mode code
+        codes = np.tile(codes, 1 << design.mode_width)
     if design.per_axis:
         axes = [_Axis(c, ad, b.input(f"y_{c}", W, True, n * W, doc=f"equalized {c.upper()} input code",
                                      domain=c, values=codes))
@@ -86,6 +89,9 @@ def demapper_datapath(design: Design) -> Datapath:
                      values=np.arange(1 << sw)) if sw and not hard else None)
     lw = d.llr_width
     in_width = 2 * W + sw
+    if design.modes:
+        mode = mode_input(b, design, in_width, {a.c: design.input_codes.size for a in axes})
+        return _modes_datapath(b, design, axes, scale, mode, in_width + design.mode_width)
     if design.per_axis and all(a.levels == 2 for a in axes):
         # two levels per axis: the max-log (and folded) LLR is +-y itself, the hard decision y's sign
         if hard:
@@ -238,15 +244,142 @@ def _bit_structure(a: _Axis, j: int, f: int) -> _Bit:
                 pos_always=bool(pos.all()), dshp=_dshp(table, f))
 
 
+def _mode_bit_structure(a: _Axis, c: int, j: int, f: int, design: Design) -> _Bit:
+    """One axis bit of an adaptive core: tables keyed by {mode code, n_hat} (model.modes).
+
+    Mode m decides n_m = n_hat >> s; its competitor offset in the largest order's levels is D = dn_m << s, and
+    its residual e_m = e + 2^f o with o = 2 (n_hat mod 2^s) + 1 - 2^s, so u = |(D << f) - e_m| =
+    ((|D| - sign(D) o) << f) + (D > 0 ? ~e + 1 : e): the offset goes into the table, e stays the largest order's.
+    A mode without this bit copies the largest mode's entries (its LLR field is zero at the output).
+    """
+    L = a.levels
+    dn_tab, dp_tab = [], []
+    top = design.modes[-1]
+    for code in range(1 << design.mode_width):
+        m = design.modes[mode_of_code(design, code)]
+        if c >= len(m.axes) or j >= m.axes[c].bits:
+            m = top
+        ad, sh = m.axes[c], m.shift
+        if ad.uses_sign[j]:
+            raise ValueError("an adaptive core needs competitors that do not depend on the residual's sign")
+        n = np.arange(L)
+        dn = ad.competitor[j, n >> sh, 0] << sh
+        o = 2 * (n & ((1 << sh) - 1)) + 1 - (1 << sh)
+        dn_tab.append(dn)
+        dp_tab.append(((np.abs(dn) - np.sign(dn) * o) << f) + (dn > 0))
+    table, dshp = np.concatenate(dn_tab), np.concatenate(dp_tab)
+    adn = np.abs(table)
+    or_bits = int(np.bitwise_or.reduce(adn))
+    and_bits = int(np.bitwise_and.reduce(adn))
+    leaves = [(i, not (and_bits >> i) & 1) for i in range(int(adn.max()).bit_length()) if (or_bits >> i) & 1]
+    pos = table > 0
+    return _Bit(f"{a.c}{j}", j, False, table, leaves, any(not g for _, g in leaves),
+                dp_var=len(set(dshp.tolist())) > 1, pos_var=bool(pos.any() and not pos.all()),
+                pos_always=bool(pos.all()), dshp=dshp)
+
+
+def _mode_sources(design: Design, code: int) -> dict[int, str]:
+    """Label bit -> the ident ('i0', 'q2', ...) of the axis bit that carries it, in the mode of `code`."""
+    m = design.modes[mode_of_code(design, code)]
+    return {lb: f"{'iq'[c]}{j}" for c, ad in enumerate(m.axes) for j, lb in enumerate(ad.axis.label_bits)}
+
+
+def _route(b: Builder, design: Design, mode: Signal, sources: dict[str, Signal], width: int,
+           signed: bool, what: str) -> list[Signal | Const]:
+    """Per label bit of the largest order: the signal of the axis bit that carries it in the symbol's mode, or zero."""
+    out = []
+    codes = range(1 << mode.width)
+    for lb in range(design.bits):
+        has = [lb in _mode_sources(design, code) for code in codes]
+        top = sources[_mode_sources(design, len(design.modes) - 1)[lb]]
+        # a mode without this bit selects any source (the largest mode's), then a gate zeroes it: printed as an
+        # AND, so synthesis infers no register reset from a mode decode (a slow global net on iCE40)
+        leaves = [sources[_mode_sources(design, code)[lb]] if h else top for code, h in zip(codes, has)]
+        note = f"{what} of label bit b{lb} in the symbol's mode"
+        if all(has):
+            out.append(mode_select(b, f"{what}_b{lb}", mode, leaves, width=width, signed=signed, note=note))
+            continue
+        value = mode_select(b, f"{what}_sel_b{lb}", mode, leaves, width=width, signed=signed, note=note)
+        valid = b.lookup(f"has_b{lb}" if what == "llr" else f"{what}_has_b{lb}", mode, [int(h) for h in has],
+                         note=f"the symbol's mode has label bit b{lb}")
+        out.append(b.gate(f"{what}_b{lb}", valid, value, width=width, signed=signed,
+                          note=note + " (zero past its bits)"))
+    for sig in out:             # each is a whole output field: a narrower signal would leave its top bits unset
+        if sig.width != width:
+            raise ValueError(f"{sig.name}: {sig.width} bits for a {width}-bit field")
+    return out
+
+
+def _modes_datapath(b: Builder, design: Design, axes: list[_Axis], scale: Signal | None, mode: Signal,
+                    in_width: int) -> Datapath:
+    """An adaptive core: the largest order's datapath with tables keyed by {mode, n_hat} (maxlog), the magnitude
+    shifted by the mode's s (folded), then every label bit's field from the axis bit that carries it in the
+    symbol's mode, zero past the mode's bits; the mode passes through above the fields."""
+    d = design.spec.demapper
+    f, k, lw = d.input_fraction, design.bits, d.llr_width
+    hard = d.algorithm == "hard"
+    if all(a.levels == 2 for a in axes):
+        if hard:
+            fields = _linear_hard(b, axes, k)
+        llrs = [SoftBit(f"{a.c}0", None, None, 0, linear=a.y, negate=bool(a.ad.label_bit_of_level(0)[1]))
+                for a in axes]
+    elif d.algorithm == "folded":
+        llrs = _mode_shifts(b, design, mode, _folded(b, design, axes, f))
+    else:
+        _range_step(b, axes, f, residual=not hard)
+        _decide_step(b, axes, f, residual=not hard)
+        if hard:
+            fields = _label_step(b, axes, k)
+        else:
+            llrs = _maxlog(b, design, axes, f, mode)
+    if hard:
+        by_ident = {_hard_ident(design, k - 1 - f_.lsb): f_.value for f_ in fields}
+        routed = _route(b, design, mode, by_ident, 1, False, "hard")
+        outs = [Field(v, k - 1 - lb) for lb, v in enumerate(routed)]
+        return b.build(outs + [Field(mode, k)], k + design.mode_width, in_width)
+    stage = output_stage(b, design.output_stage, llrs, scale, lw)
+    b.step("route", "per label bit: the LLR of the axis bit that carries it in the symbol's mode, zero past its bits")
+    routed = _route(b, design, mode, {lr.ident: sig for lr, (sig, _) in zip(llrs, stage)}, lw, True, "llr")
+    outs = [Field(v, (k - 1 - lb) * lw) for lb, v in enumerate(routed)]
+    return b.build(outs + [Field(mode, k * lw)], k * lw + design.mode_width, in_width)
+
+
+def _hard_ident(design: Design, lb: int) -> str:
+    """The ident of the largest order's axis bit that carries label bit lb."""
+    return _mode_sources(design, len(design.modes) - 1)[lb]
+
+
+def _mode_shifts(b: Builder, design: Design, mode: Signal, llrs: list[SoftBit]) -> list[SoftBit]:
+    """Folded: each magnitude shifted left by the symbol's mode's s (the metric in the largest order's units)."""
+    out = []
+    for lr in llrs:
+        shifted: dict[int, Signal] = {0: lr.mag}
+        leaves = []
+        for code in range(1 << mode.width):
+            sh = design.modes[mode_of_code(design, code)].shift
+            if sh not in shifted:
+                shifted[sh] = b.concat(f"{lr.mag.name}_s{sh}", lr.mag, Const(0, sh), note=f"|t| << {sh}")
+            leaves.append(shifted[sh])
+        mag = mode_select(b, f"mags_{lr.ident}", mode, leaves, note="|t| << s of the symbol's mode")
+        out.append(SoftBit(lr.ident, mag, lr.neg, lr.lsb))
+    return out
+
+
 def _dshp(dn: np.ndarray, f: int) -> np.ndarray:
     """(|dn| << f) + (dn > 0): with ~e in place of -e - 1, u = that + (dn > 0 ? ~e : e)."""
     return (np.abs(dn) << f) + (dn > 0)
 
 
-def _maxlog(b: Builder, design: Design, axes: list[_Axis], f: int) -> list[SoftBit]:
+def _maxlog(b: Builder, design: Design, axes: list[_Axis], f: int, mode: Signal | None = None) -> list[SoftBit]:
     k = design.bits
     lw = design.spec.demapper.llr_width
-    bits = {a.c: [_bit_structure(a, j, f) for j in range(a.bits)] for a in axes}
+    if mode is None:
+        bits = {a.c: [_bit_structure(a, j, f) for j in range(a.bits)] for a in axes}
+    else:
+        bits = {a.c: [_mode_bit_structure(a, c, j, f, design) for j in range(a.bits)] for c, a in enumerate(axes)}
+        b.step("key", "per axis: the table key {mode, n_hat}")
+        for a in axes:
+            a.s["km"] = b.concat(f"km_{a.c}", mode, a.s["n"], note="table key {mode, n_hat}")
     _competitor_step(b, axes, bits, f)
     _select_step(b, axes, bits)
     _residual_step(b, axes, bits, f)
@@ -264,15 +397,17 @@ def _competitor_step(b: Builder, axes: list[_Axis], bits: dict[str, list[_Bit]],
         if any(bt.uses_sign for bt in bits[a.c]):
             key_s = b.concat(f"ks_{a.c}", n, a.s["e"].msb, note="table key {n_hat, e < 0}")
         for bt in bits[a.c]:
-            key = key_s if bt.uses_sign else n
+            key = key_s if bt.uses_sign else a.s.get("km", n)
             ident = bt.ident
             lb = a.ad.axis.label_bits[bt.j]
             a.s[f"neg_{ident}"] = b.lookup(f"neg_{ident}", n, a.ad.label_bit_of_level(bt.j),
                                            note=f"axis bit {bt.j} (label bit b{lb}): sign, the decided level's bit")
             uses = bt.need_u or bool(bt.gated)
             if uses and bt.dp_var:
-                a.s[f"dp_{ident}"] = b.lookup(f"dp_{ident}", key, _dshp(bt.dn, f),
-                                              note=f"(|dn| << {f}) + (dn > 0), dn the nearest competitor")
+                a.s[f"dp_{ident}"] = b.lookup(f"dp_{ident}", key, bt.dshp,
+                                              note=f"(|dn| << {f}) + (dn > 0), dn the nearest competitor"
+                                              + (" (in the largest order's levels, less the mode's level offset)"
+                                                 if "km" in a.s else ""))
             if uses and bt.pos_var:
                 a.s[f"pos_{ident}"] = b.lookup(f"pos_{ident}", key, (bt.dn > 0).astype(np.int64),
                                                note="the competitor is on the right (dn > 0)")

@@ -15,15 +15,44 @@ from ..errors import SpecError
 from ..model import Design
 from .build import Builder
 from .core import Const, Datapath, Field, Signal, width_for
+from .modes import mode_input, mode_of_code, mode_select
 
 #: module parameters naming the `$readmemh` images, by table
 ROM_PARAMETERS = {"i": "ROM_I_FILE", "q": "ROM_Q_FILE", "points": "ROM_POINTS_FILE"}
+
+
+def _mode_positions(design: Design, c: int, code: int) -> tuple[int, ...]:
+    """Label-field bits (k_max-bit field, the mode's label in its top bits) of axis c's label in the mode of `code`,
+    axis MSB first, padded with the largest order's positions below the mode's own."""
+    k = design.bits
+    top = design.constellation.axes[c]
+    m = design.modes[mode_of_code(design, code)]
+    own = [k - 1 - lb for lb in m.constellation.axes[c].label_bits]
+    return tuple(own + [k - 1 - lb for lb in top.label_bits[len(own):]])
+
+
+def _mode_entries(design: Design, c: int) -> list[int]:
+    """Level codes keyed by {mode code, axis label field}: a mode of m_m bits on this axis reads the top m_m bits."""
+    mb = design.constellation.axes[c].bits
+    out = []
+    for code in range(1 << design.mode_width):
+        m = design.modes[mode_of_code(design, code)]
+        ax = m.constellation.axes[c]
+        for idx in range(1 << mb):
+            out.append(int(m.level_codes[c][ax.index_of_code[idx >> (mb - ax.bits)]]) if ax.bits
+                       else int(m.level_codes[c][0]))
+    return out
 
 
 def rom_images(design: Design) -> list[dict]:
     """The mapper's ROM images: table name, parameter, file, entries (signed codes or {Q, I} words), width."""
     w = design.mapper_format.width
     const = design.constellation
+    if design.modes:
+        return [{"table": name, "parameter": ROM_PARAMETERS[name], "path": f"rom/mapper_{name}.hex",
+                 "entries": _mode_entries(design, c), "width": w, "signed": True,
+                 "label_bits": list(const.axes[c].label_bits), "modes": True}
+                for c, name in enumerate("iq")]
     if const.axes is None:
         words = [((int(q) & ((1 << w) - 1)) << w) | (int(i) & ((1 << w) - 1))
                  for i, q in zip(design.point_i, design.point_q)]
@@ -72,6 +101,8 @@ def mapper_datapath(design: Design, *, inline: bool) -> Datapath:
     W = design.mapper_format.width
     const = design.constellation
     b = Builder()
+    if design.modes:
+        return _modes_datapath(b, design, inline)
     label = b.input("lab", k, False, 0, doc="the label, b0 (first bit in time) in the MSB",
                     domain="label", values=np.arange(const.order))
     if const.axes is None:
@@ -96,6 +127,35 @@ def mapper_datapath(design: Design, *, inline: bool) -> Datapath:
     else:
         lvl = _logic(b, design, label, k, W)
     return b.build([Field(lvl["i"], 0, "I output code"), Field(lvl["q"], W, "Q output code")], 2 * W, k)
+
+
+def _modes_datapath(b: Builder, design: Design, inline: bool) -> Datapath:
+    """An adaptive core: per axis, the mode's axis label from the label field (a selection by mode where the
+    modes take different bits), then one table keyed by {mode, axis label}."""
+    k, W, mw = design.bits, design.mapper_format.width, design.mode_width
+    codes = np.arange(1 << mw, dtype=np.int64)
+    label = b.input("lab", k, False, 0, doc="the label field: a mode of k_m bits in its top k_m bits, b0 the MSB",
+                    domain="label", values=np.tile(np.arange(1 << k), codes.size))
+    mode = mode_input(b, design, k, {"label": 1 << k})
+    b.step("lookup", "per axis: the mode's axis label from the label field, the level code from a table keyed by "
+                     "{mode, axis label}")
+    lvl = {}
+    images = {r["table"]: r for r in rom_images(design)}
+    for c, name in enumerate("iq"):
+        spots = [_mode_positions(design, c, code) for code in codes]
+        concats: dict[tuple[int, ...], Signal] = {}
+        for n, pos in enumerate(dict.fromkeys(spots)):
+            what = ", ".join(f"field bit {p}" for p in pos)
+            concats[pos] = b.concat(f"idx_{name}" if len(set(spots)) == 1 else f"idx_{name}{n}",
+                                    *[label[p] for p in pos], note=f"{name.upper()} axis label: {what}")
+        idx = mode_select(b, f"idx_{name}", mode, [concats[p] for p in spots],
+                          note=f"{name.upper()} axis label of the symbol's mode")
+        key = b.concat(f"key_{name}", mode, idx, note="table key {mode, axis label}")
+        r = images[name]
+        lvl[name] = b.lookup(f"lvl_{name}", key, [e & ((1 << W) - 1) for e in r["entries"]],
+                             image=None if inline else r["parameter"], width=W, signed=True,
+                             note=f"{name.upper()} level code by {{mode, axis label}}")
+    return b.build([Field(lvl["i"], 0, "I output code"), Field(lvl["q"], W, "Q output code")], 2 * W, k + mw)
 
 
 def _axis_label(b: Builder, name: str, label: Signal, label_bits: tuple[int, ...], k: int) -> Signal:

@@ -13,6 +13,7 @@ from functools import lru_cache
 from ..model import Design
 from .core import Datapath, Signal, value_range
 from .demapper import demapper_datapath
+from .lanes import replicate
 from .mapper import mapper_datapath, rom_images
 from .schedule import Schedule, schedule
 from .timing import FAMILIES
@@ -53,6 +54,15 @@ class Module:
     handshake: bool = True
     flow_control: str = "shared"
     skid: bool = False
+    #: symbols per transfer (interface.lanes)
+    lanes: int = 1
+
+    @property
+    def group_docs(self) -> dict[str, str]:
+        """The comment above each port group."""
+        what = "one symbol" if self.lanes == 1 else f"{self.lanes} symbols (lanes)"
+        return {"clock and reset": "clock and reset", "sink": f"sink (s_axis): {what} per transfer",
+                "source": f"source (m_axis): {'one result' if self.lanes == 1 else f'{self.lanes} results'} per transfer"}
 
     @property
     def latency(self) -> int:
@@ -102,6 +112,41 @@ def _schedule(design: Design, role: str, dp: Datapath, carried: tuple[Signal, ..
 
 
 def _summary(design: Design, role: str, latency: int) -> tuple[str, ...]:
+    lines = _one_summary(design, role, latency)
+    spec = design.spec
+    extra = []
+    if design.modes:
+        orders = ", ".join(str(m.order) for m in design.modes)
+        extra.append(f"Modes: a {design.mode_width}-bit mode field on top of each symbol indexes the orders {orders} "
+                     "(a code past the list acts as the largest);")
+        extra.append("       the mode may change on every symbol; see the manifest's modes and packing.")
+        if role == "demapper":
+            extra.append("       Every mode takes its input on the largest order's grid; mode m's LLRs fill the first "
+                         "k_m fields, the rest are zero,")
+            extra.append("       the mode passes through on top of the output; the LLR lsb is the same in every mode.")
+        else:
+            extra.append("       A mode of k_m bits reads the top k_m bits of the label field.")
+    if spec.interface.lanes > 1:
+        extra.append(f"Lanes: {spec.interface.lanes} symbols per transfer, lane l in bits "
+                     f"[{design_lane_width(design, role)}l +: {design_lane_width(design, role)}] of tdata (lane 0 the "
+                     "least significant), one tvalid/tready.")
+    if not extra:
+        return lines
+    last = lines[-1].replace("one symbol per clock", f"{spec.interface.lanes} symbols per clock") \
+        if spec.interface.lanes > 1 else lines[-1]
+    return lines[:-1] + tuple(extra) + (last,)
+
+
+def design_lane_width(design: Design, role: str) -> int:
+    """Input bits of one lane of the module's input word."""
+    k, mw = design.bits, design.mode_width
+    if role == "mapper":
+        return k + mw
+    sw = design.scale_format.width if design.scale_format else 0
+    return 2 * design.input_format.width + sw + mw
+
+
+def _one_summary(design: Design, role: str, latency: int) -> tuple[str, ...]:
     spec = design.spec
     c = spec.constellation
     k = design.bits
@@ -147,11 +192,12 @@ def build_module(design: Design, role: str) -> Module:
     else:
         dp = demapper_datapath(design)
         params = ()
+    dp = replicate(dp, i.lanes)
     carried = sideband(i.tlast, i.tuser_width)
     sched = _schedule(design, role, dp, carried)
     return Module(name=f"{spec.prefix}_{role}", role=role, summary=_summary(design, role, sched.latency),
                   datapath=dp, schedule=sched, ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width),
-                  parameters=params, flow_control=i.flow_control, skid=i.skid)
+                  parameters=params, flow_control=i.flow_control, skid=i.skid, lanes=i.lanes)
 
 
 @lru_cache(maxsize=32)

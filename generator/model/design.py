@@ -20,6 +20,7 @@ from ..numbers import Axis, Constellation, QFormat, bits_for_range, from_table, 
 from ..spec import MAX_WIDTH, DesignSpec
 from .cross import AXIS_NAMES, CrossDemap, axis_terms, cross_demap, magnitude_bound, term_ranges
 from .cross import decide as cross_decide
+from .modes import Mode, build_mode
 from .steps import AxisDemap, OutputStage, axis_steps, decide, output
 
 #: int64 products must stay below this (the model's exactness limit and a sane hardware limit)
@@ -65,10 +66,21 @@ class Design:
     cross: CrossDemap | None = None
     #: a cross shape: every per-axis quantity over every input code, by axis name (the fast path's tables)
     cross_terms: Mapping[str, Mapping[str, np.ndarray]] = field(default_factory=lambda: MappingProxyType({}))
+    #: an adaptive core (constellation.orders): its modes in the order of the mode field, else ()
+    modes: tuple[Mode, ...] = ()
 
     @property
     def bits(self) -> int:
         return self.constellation.bits
+
+    @property
+    def mode_width(self) -> int:
+        """Width of the mode field of each symbol (0: a single order)."""
+        return max(1, (len(self.modes) - 1).bit_length()) if self.modes else 0
+
+    @property
+    def lanes(self) -> int:
+        return self.spec.interface.lanes
 
     @property
     def per_axis(self) -> bool:
@@ -118,7 +130,11 @@ def derive(spec: DesignSpec) -> Design:
     if spec.mapper.implementation == "logic" and not _logic_capable(const):
         raise SpecError("mapper.implementation", "logic",
                         "rom for this labeling (logic needs a Gray-type or natural product labeling)")
-    mfmt, mlsb, pi, pq, levels = _mapper_tables(spec, const)
+    if spec.modes and spec.mapper.implementation == "logic":
+        raise SpecError("mapper.implementation", "logic", "rom with constellation.orders (the level tables are keyed "
+                        "by {mode, axis label})")
+    mapper_modes = _mapper_modes(spec) if spec.modes else None
+    mfmt, mlsb, pi, pq, levels = mapper_modes[-1] if mapper_modes else _mapper_tables(spec, const)
     ifmt = QFormat(d.input_width, d.input_fraction)
     f = d.input_fraction
     _check_input_range(spec, const, ifmt)
@@ -146,7 +162,11 @@ def derive(spec: DesignSpec) -> Design:
     codes = np.arange(ifmt.min_code, ifmt.max_code + 1, dtype=np.int64)
     steps = [axis_steps(ad, d.algorithm, f, codes) for ad in axes]
     cross_terms = _cross_terms(cross, codes, f) if cross is not None else MappingProxyType({})
-    widths = _widths(spec, ifmt, sfmt, axes, steps, search_i, search_q, codes, cross)
+    modes = tuple(build_mode(n, order, const.labeling, const, f, d.algorithm, _axis_demap, mapper_modes[n][2:],
+                             codes, stage, sfmt is None) for n, order in enumerate(spec.modes))
+    # the widths hold every mode: its metric (shifted into the largest order's units) and its competitor offsets
+    wide = steps + [(mag, neg, hard) for m in modes for (mag, neg), hard in zip(m.tables, m.hard_tables)]
+    widths = _widths(spec, ifmt, sfmt, axes, wide, search_i, search_q, codes, cross)
     tables, llr_tables, hard_tables = _tables(const.bits, axes, steps, stage, sfmt is None)
     return Design(
         spec=spec, constellation=const, mapper_format=mfmt, mapper_lsb=mlsb, point_i=pi, point_q=pq,
@@ -156,7 +176,19 @@ def derive(spec: DesignSpec) -> Design:
         scale_lsb=(2.0 ** -d.scale_fraction) if sfmt else 1.0, metric_fraction=metric_fraction,
         output_stage=stage, axes=axes, search_i=search_i, search_q=search_q,
         widths=MappingProxyType(widths), tables=tables, llr_tables=llr_tables, hard_tables=hard_tables,
-        cross=cross, cross_terms=cross_terms)
+        cross=cross, cross_terms=cross_terms, modes=modes)
+
+
+def _mapper_modes(spec: DesignSpec) -> list[tuple]:
+    """Each mode's mapper codes in one output format: normalized, its standard unit-power points at
+    2^fraction codes per normalized unit; full-scale, every mode at the same average power, the outermost
+    level over all modes mapper.backoff_db below full scale (each mode's own peak backoff is in the manifest)."""
+    consts = [named(o, spec.constellation.labeling) for o in spec.modes]
+    per_norm = None
+    if spec.mapper.scaling == "full-scale":
+        peak = max(float(np.max(np.abs(c.normalized.real))) for c in consts)
+        per_norm = ((1 << (spec.mapper.width - 1)) - 1) * 10.0 ** (-spec.mapper.backoff_db / 20.0) / peak
+    return [_mapper_tables(spec, c, None if per_norm is None else per_norm * c.kappa) for c in consts]
 
 
 def _cross_terms(cross: CrossDemap, codes: np.ndarray, f: int) -> Mapping[str, Mapping[str, np.ndarray]]:
@@ -227,8 +259,10 @@ def _logic_capable(const: Constellation) -> bool:
     return all(a.gray_mask is not None or a.codes == tuple(range(a.levels)) for a in const.axes if a.bits)
 
 
-def _mapper_tables(spec: DesignSpec, const: Constellation):
+def _mapper_tables(spec: DesignSpec, const: Constellation, per_amp: float | None = None):
     """Mapper output codes per label (and per-axis levels), checked for collisions and clipping.
+
+    `per_amp`: output codes per amplitude unit when given (an adaptive core's full-scale modes), else from the spec.
 
     A refusal names the key the user set (`DesignSpec.blame`): mapper.fraction or mapper.width first,
     else the table or order that asks for more, and says the fraction or width that would fit.
@@ -237,9 +271,9 @@ def _mapper_tables(spec: DesignSpec, const: Constellation):
     fmt = QFormat(m.width, m.fraction if m.scaling == "normalized" else 0)
     kappa = const.kappa
     peak = float(max(np.max(np.abs(const.points.real)), np.max(np.abs(const.points.imag))))
-    if m.scaling == "normalized":
+    if per_amp is None and m.scaling == "normalized":
         per_amp = kappa * 2.0 ** m.fraction            # output codes per amplitude unit
-    else:
+    elif per_amp is None:
         per_amp = fmt.max_code * 10.0 ** (-m.backoff_db / 20.0) / peak
 
     def codes(x: np.ndarray) -> np.ndarray:

@@ -12,6 +12,7 @@ from ..spec import DesignSpec
 from .cross import combine as cross_combine
 from .cross import steps as cross_steps
 from .design import Design, derive
+from .modes import mode_codes, mode_steps
 from .steps import axis_steps, output
 
 
@@ -19,13 +20,38 @@ def _design(spec_or_design: DesignSpec | Design) -> Design:
     return spec_or_design if isinstance(spec_or_design, Design) else derive(spec_or_design)
 
 
-def map_labels(spec: DesignSpec | Design, labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Mapper: integer labels (b0 = MSB) to signed output codes (i, q), int64."""
+def _mode_index(design: Design, modes: np.ndarray | None, shape: tuple[int, ...]) -> np.ndarray | None:
+    """Mode indices of the symbols (a code past the list acts as the last mode); None for a single order."""
+    if not design.modes:
+        if modes is not None:
+            raise ValueError("this design has one order (no constellation.orders): give no modes")
+        return None
+    if modes is None:
+        raise ValueError("this design has modes (constellation.orders): give a mode code per symbol")
+    return mode_codes(np.broadcast_to(np.asarray(modes, dtype=np.int64), shape), len(design.modes), design.mode_width)
+
+
+def map_labels(spec: DesignSpec | Design, labels: np.ndarray, modes: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Mapper: integer labels (b0 = MSB) to signed output codes (i, q), int64.
+
+    An adaptive core takes a mode code per symbol; the label is then that mode's own (0 .. M_m - 1).
+    """
     design = _design(spec)
     labels = np.asarray(labels, dtype=np.int64)
-    if labels.size and (labels.min() < 0 or labels.max() >= design.constellation.order):
-        raise ValueError(f"labels must be in 0..{design.constellation.order - 1}")
-    return np.take(design.point_i, labels), np.take(design.point_q, labels)
+    idx = _mode_index(design, modes, labels.shape)
+    if idx is None:
+        if labels.size and (labels.min() < 0 or labels.max() >= design.constellation.order):
+            raise ValueError(f"labels must be in 0..{design.constellation.order - 1}")
+        return np.take(design.point_i, labels), np.take(design.point_q, labels)
+    orders = np.asarray([m.order for m in design.modes], dtype=np.int64)[idx]
+    if labels.size and (labels.min() < 0 or np.any(labels >= orders)):
+        raise ValueError("labels must be in 0..M-1 of each symbol's mode")
+    m_max = design.constellation.order
+    pi = np.zeros((len(design.modes), m_max), dtype=np.int64)
+    pq = np.zeros_like(pi)
+    for n, m in enumerate(design.modes):
+        pi[n, :m.order], pq[n, :m.order] = m.point_i, m.point_q
+    return pi[idx, labels], pq[idx, labels]
 
 
 def map_bits(spec: DesignSpec | Design, bits: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -58,14 +84,47 @@ def _check_codes(design: Design, i: np.ndarray, q: np.ndarray, scale) -> tuple:
     return i, q, scale
 
 
-def demap(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None = None) -> np.ndarray:
+def _demap_modes(design: Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None, idx: np.ndarray,
+                 direct: bool = False) -> np.ndarray:
+    """An adaptive core: each symbol by its mode's tables (or steps), label bit b in column b of the largest order's
+    k columns, the columns past the mode's bits zero (model.modes)."""
+    hard = design.spec.demapper.algorithm == "hard"
+    f = design.spec.demapper.input_fraction
+    out = np.zeros((i.size, design.bits), dtype=np.int32)
+    offset = -design.input_format.min_code
+    for n, m in enumerate(design.modes):
+        rows = np.flatnonzero(idx == n)
+        if not rows.size:
+            continue
+        s = None if scale is None else scale[rows, None]
+        for c, (ad, (mag, neg), llr, hb) in enumerate(zip(m.axes, m.tables, m.llr_tables, m.hard_tables)):
+            y = (i, q)[c][rows]
+            cols = list(ad.axis.label_bits)
+            if direct:
+                mag_d, neg_d, hard_d = mode_steps(ad, design.spec.demapper.algorithm, f, m.shift, y)
+                out[np.ix_(rows, cols)] = hard_d if hard else output(design.output_stage, mag_d, neg_d, s)
+            elif hard:
+                out[np.ix_(rows, cols)] = hb[y + offset]
+            elif s is None:
+                out[np.ix_(rows, cols)] = llr[y + offset]
+            else:
+                out[np.ix_(rows, cols)] = output(design.output_stage, mag[y + offset].astype(np.int64), neg[y + offset], s)
+    return out
+
+
+def demap(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None = None,
+          modes: np.ndarray | None = None) -> np.ndarray:
     """Demapper: input codes (i, q) (and reliability codes) to LLR codes, shape (N, k), int32.
 
     Positive means bit 0 is more likely; column 0 is b0. For algorithm 'hard' the result is
-    the hard-decided bits (0/1) instead.
+    the hard-decided bits (0/1) instead. An adaptive core takes a mode code per symbol: k is the
+    largest order's, the columns past the mode's bits are zero.
     """
     design = _design(spec)
     i, q, scale = _check_codes(design, i, q, scale)
+    idx = _mode_index(design, modes, i.shape)
+    if idx is not None:
+        return _demap_modes(design, i, q, scale, idx)
     if design.spec.demapper.algorithm == "hard":
         return hard_decisions(design, i, q).astype(np.int32)
     if design.cross is not None:
@@ -89,10 +148,14 @@ def demap(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.nda
     return out
 
 
-def demap_direct(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None = None) -> np.ndarray:
+def demap_direct(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale: np.ndarray | None = None,
+                 modes: np.ndarray | None = None) -> np.ndarray:
     """`demap` computed through the step functions on the given inputs (no tables); for tests."""
     design = _design(spec)
     i, q, scale = _check_codes(design, i, q, scale)
+    idx = _mode_index(design, modes, i.shape)
+    if idx is not None:
+        return _demap_modes(design, i, q, scale, idx, direct=True)
     if design.cross is not None:
         mag, neg, hard = cross_steps(design.cross, i, q, design.spec.demapper.input_fraction, design.bits)
         if design.spec.demapper.algorithm == "hard":
@@ -108,10 +171,15 @@ def demap_direct(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, scale:
     return out
 
 
-def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray) -> np.ndarray:
-    """Hard-decided bits (N, k) of input codes: the nearest point's label (ties to the upper level)."""
+def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray, modes: np.ndarray | None = None) -> np.ndarray:
+    """Hard-decided bits (N, k) of input codes: the nearest point's label (ties to the upper level).
+
+    An adaptive core: the nearest declared point of each symbol's mode, its bits in the first k_m columns."""
     design = _design(spec)
     i, q, _ = _check_codes(design, i, q, 1 if design.scale_format else None)
+    idx = _mode_index(design, modes, i.shape)
+    if idx is not None:
+        return _hard_modes(design, i, q, idx)
     if design.cross is not None:
         return _cross_tables(design, i, q)[2]
     if not design.per_axis:
@@ -120,6 +188,16 @@ def hard_decisions(spec: DesignSpec | Design, i: np.ndarray, q: np.ndarray) -> n
     out = np.take(design.hard_tables[0], i + offset, axis=0)
     if len(design.axes) > 1:
         out |= np.take(design.hard_tables[1], q + offset, axis=0)
+    return out
+
+
+def _hard_modes(design: Design, i: np.ndarray, q: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    out = np.zeros((i.size, design.bits), dtype=np.int8)
+    offset = -design.input_format.min_code
+    for n, m in enumerate(design.modes):
+        rows = np.flatnonzero(idx == n)
+        for c, (ad, hb) in enumerate(zip(m.axes, m.hard_tables)):
+            out[np.ix_(rows, list(ad.axis.label_bits))] = hb[(i, q)[c][rows] + offset]
     return out
 
 

@@ -55,6 +55,25 @@ FAMILIES = ("ice40", "ecp5")
 LANGUAGES = ("verilog", "vhdl", "both")
 #: widest input / output word the model handles exactly in int64 and tests exhaustively
 MAX_WIDTH = 20
+#: labelings whose orders can share one adaptive core (constellation.orders): the Gray-type families, whose
+#: per-axis labels nest (the label of level n >> s of a smaller order is the top bits of level n's label)
+MODE_LABELINGS = ("gray", "3gpp-nr", "ieee-802.11")
+#: orders an adaptive core can hold: BPSK (on I; not 3gpp-nr, whose BPSK moves both axes) and the squares
+MODE_ORDERS = (2, 4, 16, 64, 256, 1024, 4096)
+#: most symbols per transfer (interface.lanes)
+MAX_LANES = 16
+#: named order sets for constellation.orders: name -> (labeling, orders, where the set is defined). The clauses are
+#: from memory (not checked against the documents here); each set is the modulation orders of that table or clause.
+ORDER_PRESETS: dict[str, tuple[str, tuple[int, ...], str]] = {
+    "nr-pdsch-64": ("3gpp-nr", (4, 16, 64), "3GPP TS 38.214 Table 5.1.3.1-1 (MCS index table 1), from memory"),
+    "nr-pdsch-256": ("3gpp-nr", (4, 16, 64, 256), "3GPP TS 38.214 Table 5.1.3.1-2 (MCS index table 2), from memory"),
+    "nr-pdsch-1024": ("3gpp-nr", (4, 16, 64, 256, 1024),
+                      "3GPP TS 38.214 Table 5.1.3.1-4 (MCS index table 4, Rel-17), from memory"),
+    "wlan-ofdm": ("ieee-802.11", (2, 4, 16, 64), "IEEE 802.11 clause 17 (OFDM PHY) rates, from memory"),
+    "wlan-vht": ("ieee-802.11", (2, 4, 16, 64, 256), "IEEE 802.11 clause 21 (VHT) MCSs, from memory"),
+    "wlan-he": ("ieee-802.11", (2, 4, 16, 64, 256, 1024), "IEEE 802.11 clause 27 (HE) MCSs, from memory"),
+    "wlan-eht": ("ieee-802.11", (2, 4, 16, 64, 256, 1024, 4096), "IEEE 802.11be clause 36 (EHT) MCSs, from memory"),
+}
 
 _NAME_RE = re.compile(r"^[a-z][a-z0-9_-]{0,47}$")
 _PREFIX_RE = re.compile(r"^[a-z][a-z0-9_]{0,31}$")
@@ -79,6 +98,10 @@ class ConstellationSpec:
                     "resolved spec)")
     table: tuple[tuple[int, float, float], ...] = _f(
         (), "user table rows [label, i, q] when labeling = 'table' (any scale; normalized by the tool)")
+    orders: tuple[int, ...] = _f(
+        (), "adaptive core: the orders of its modes, ascending (a list, or a preset name: see qamsmith list); "
+            "labeling gray, 3gpp-nr or ieee-802.11; the mode field of each symbol indexes this list; order is "
+            "the largest (left out of the resolved spec when empty: one order)")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -117,6 +140,8 @@ class InterfaceSpec:
     tuser_width: int = _f(0, "width of a tuser field carried with each symbol (0: none)")
     flow_control: str = _f("shared", "shared (one enable for every stage: fastest) or per-stage (empty stages fill while the output waits)")
     skid: bool = _f(False, "register s_axis_tready through a two-entry skid buffer at the input (no added latency)")
+    lanes: int = _f(1, "symbols per transfer, 1 to 16: lane 0 in the least significant part of every word, one "
+                       "tvalid/tready for all (left out of the resolved spec when 1)")
 
 
 SECTIONS: dict[str, type] = {
@@ -250,6 +275,7 @@ class DesignSpec:
         _choice("constellation.shape", c.shape, SHAPES)
         self._check_shape()
         self._check_table()
+        self._check_orders()
         _int("mapper.width", m.width, 2, MAX_WIDTH)
         _choice("mapper.scaling", m.scaling, SCALINGS)
         if m.scaling == "normalized":
@@ -300,6 +326,33 @@ class DesignSpec:
         _choice("interface.language", i.language, LANGUAGES)
         if not isinstance(i.skid, bool):
             raise SpecError("interface.skid", shown(i.skid), "true or false")
+        _int("interface.lanes", i.lanes, 1, MAX_LANES)
+
+    def _check_orders(self) -> None:
+        """constellation.orders: ascending orders of one Gray-type labeling family, the largest the order."""
+        c = self.constellation
+        if not isinstance(c.orders, tuple) or not all(_is_int(o) for o in c.orders):
+            raise SpecError("constellation.orders", shown(c.orders), "a list of orders or a preset name "
+                            f"({', '.join(ORDER_PRESETS)})")
+        if not c.orders:
+            return
+        allowed = f"ascending orders from {', '.join(map(str, MODE_ORDERS))}, at least two"
+        if len(c.orders) < 2 or any(o not in MODE_ORDERS for o in c.orders) or list(c.orders) != sorted(set(c.orders)):
+            raise SpecError("constellation.orders", list(c.orders), allowed)
+        if c.labeling not in MODE_LABELINGS:
+            key = self.blame("constellation.labeling", "constellation.orders")
+            if key == "constellation.orders":
+                raise SpecError(key, list(c.orders), f"no orders with labeling {c.labeling!r} (modes need "
+                                f"one of {', '.join(MODE_LABELINGS)}: their labels nest from order to order)")
+            raise SpecError(key, c.labeling, f"one of {', '.join(MODE_LABELINGS)} with constellation.orders "
+                            "(their labels nest from order to order)")
+        if c.labeling == "3gpp-nr" and 2 in c.orders:
+            raise SpecError("constellation.orders", list(c.orders), "orders from 4 up with labeling 3gpp-nr "
+                            "(its BPSK moves both axes, so it shares no axis with the squares)")
+        if c.order != c.orders[-1]:
+            key = self.blame("constellation.order", "constellation.orders")
+            raise SpecError(key, self.value(key), f"constellation.order = the largest of constellation.orders "
+                            f"({c.orders[-1]}), or leave constellation.order out")
 
     def _check_shape(self) -> None:
         """Odd-bit orders: the labelings that define them, and the shape (cross: 32 points and up, gray only)."""
@@ -444,7 +497,16 @@ class DesignSpec:
         c = self.constellation
         if c.order not in ODD_ORDERS or c.labeling == "table":
             del out["constellation"]["shape"]
+        if not c.orders:                        # one order: as before modes existed
+            del out["constellation"]["orders"]
+        if self.interface.lanes == 1:
+            del out["interface"]["lanes"]
         return out
+
+    @property
+    def modes(self) -> tuple[int, ...]:
+        """The orders of an adaptive core's modes, () for a single order."""
+        return self.constellation.orders
 
 
 def _plain(value: Any) -> Any:
@@ -472,6 +534,8 @@ def _section(name: str, cls: type, values: dict[str, Any], base_dir: Path | None
             raise SpecError(f"{name}.{_key(key)}", shown(value), f"a known key of [{name}]: {', '.join(known)}")
         if key == "table":
             value = _table_rows(table_key, value)
+        elif key == "orders":
+            value = _orders(value, values.get("labeling", "gray"))
         elif isinstance(known[key].default, float) and isinstance(value, int) and not isinstance(value, bool):
             try:
                 value = float(value)
@@ -486,7 +550,26 @@ def _section(name: str, cls: type, values: dict[str, Any], base_dir: Path | None
             raise SpecError(table_key, f"{rows} rows", f"one row per label: {', '.join(map(str, ORDERS))} rows "
                             "(constellation.order, not set, is the number of rows)")
         kwargs["order"] = rows
+    # orders set the order when the user did not: the largest mode
+    if (name == "constellation" and "constellation.order" not in given and kwargs.get("orders")
+            and all(_is_int(o) for o in kwargs["orders"])):
+        kwargs["order"] = max(kwargs["orders"])
     return cls(**kwargs)
+
+
+def _orders(value: Any, labeling: Any) -> Any:
+    """constellation.orders as written: a list of orders, or a preset name (checked against the labeling)."""
+    if isinstance(value, str):
+        if value not in ORDER_PRESETS:
+            raise SpecError("constellation.orders", value, f"a list of orders or a preset: {', '.join(ORDER_PRESETS)}")
+        family, orders, _ = ORDER_PRESETS[value]
+        if labeling != family:
+            raise SpecError("constellation.orders", value, f"a preset of labeling {labeling!r}, or set "
+                            f"constellation.labeling = '{family}' ({value} is a {family} set)")
+        return orders
+    if not isinstance(value, (list, tuple)) or not all(_is_int(o) for o in value):
+        raise SpecError("constellation.orders", shown(value), f"a list of orders or a preset: {', '.join(ORDER_PRESETS)}")
+    return tuple(int(o) for o in value)
 
 
 def _table_rows(key: str, value: Any) -> tuple[tuple[int, float, float], ...]:
@@ -524,7 +607,7 @@ def parse_value(text: str, *, key: str = "--set") -> Any:
     return data["v"] if list(data) == ["v"] else text   # text with a line break and more keys: a bare string
 
 
-__all__ = ["ALGORITHMS", "CROSS_ORDERS", "FAMILIES", "LABELINGS", "LANGUAGES", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_WIDTH",
-           "ODD_ORDERS", "ORDERS", "ROUNDING_MODES", "SCALINGS", "SECTIONS", "SHAPES", "TABLE_SOURCES",
+__all__ = ["ALGORITHMS", "CROSS_ORDERS", "FAMILIES", "LABELINGS", "LANGUAGES", "LLR_ROUNDING", "MAPPER_ROUNDING", "MAX_LANES",
+           "MAX_WIDTH", "MODE_LABELINGS", "MODE_ORDERS", "ODD_ORDERS", "ORDERS", "ORDER_PRESETS", "ROUNDING_MODES", "SCALINGS", "SECTIONS", "SHAPES", "TABLE_SOURCES",
            "ConstellationSpec", "DemapperSpec", "DesignSpec", "InterfaceSpec", "MapperSpec", "field_docs",
            "parse_value"]

@@ -3,6 +3,7 @@
     python tests/benchmarks/bench_hardware.py                  # the tables, QPSK .. 4096-QAM, seed 1
     python tests/benchmarks/bench_hardware.py --orders 4,16,256 --seeds 1,2,3 --families ice40,ecp5
     python tests/benchmarks/bench_hardware.py --calibrate --family ecp5   # re-measure the primitives of ir.timing
+    python tests/benchmarks/bench_hardware.py --targets --seeds 1,2,3      # adaptive order and lanes against their targets
 
 Per order, at default widths with the latency the generator picks for the family
 (`interface.family`), one table per family (iCE40 HX8K with nextpnr-ice40, ECP5 LFE5U-45F with
@@ -104,6 +105,62 @@ def _row(order: int, fam: str, runs: list[dict[str, Any]], seeds: list[int], sec
             f"{syn['brams']} | {dm['latency_cycles']} | {dm['initiation_interval']} | {f(fd)} | "
             f"{mp['flows'][fam]['luts']} | {f(fm)} | {f(fa)} ({ad['width']}) | {f(rd, '.2f')} | {f(rm, '.2f')} | "
             f"{brute if brute is not None else '-'} | {f'{ratio:.3f}' if ratio is not None else '-'} | {seconds:.0f} |")
+
+
+# --------------------------------------------------------------------------- adaptive order and lanes (issue 10)
+
+#: the targets: an adaptive [4, 16, 64, 256] demapper against the single-order 256-QAM demapper at the same widths,
+#: and N lanes against one lane
+ADAPTIVE_LUTS, ADAPTIVE_FMAX = 1.3, 0.95
+LANES_LUTS, LANES_FMAX = 1.05, 0.95
+
+
+def targets(seeds: list[int], fam: str, lanes_order: int, lanes: list[int]) -> int:
+    """Demapper LUTs and Fmax (median over the seeds) of the adaptive core and of N lanes, and the ratios."""
+    t = tools.find_tools(families=[fam])
+    start = time.monotonic()
+    base = {"constellation.labeling": "3gpp-nr", "interface.family": fam}
+    designs = {"qam256": {**base, "constellation.order": 256},
+               "adaptive-4to256": {**base, "constellation.orders": [4, 16, 64, 256]}}
+    designs.update({f"qam{lanes_order}-x{n}": {**base, "constellation.order": lanes_order, "interface.lanes": n}
+                    for n in lanes})
+    figures: dict[str, dict[str, Any]] = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for name, settings in designs.items():
+            t0 = time.monotonic()
+            dd = cost.build_source(DesignSpec(name=f"bench-{name}").with_settings(settings), Path(tmp))
+            runs = [cost.estimate(dd, flows=(fam,), families=(fam,), seed=seed, tools=t, references=False)
+                    for seed in seeds]
+            dm = runs[0]["modules"]["demapper"]
+            figures[name] = {"luts": dm["flows"][fam]["luts"], "ffs": dm["flows"][fam]["ffs"],
+                             "latency": dm["latency_cycles"],
+                             "fmax": _median(runs, lambda r: _fmax(r, "demapper", fam)),
+                             "seconds": time.monotonic() - t0}
+            print(f"# {name} {fam}: {figures[name]['luts']} LUTs, Fmax {figures[name]['fmax'][0]:.1f} MHz, "
+                  f"{time.monotonic() - t0:.0f} s", file=sys.stderr, flush=True)
+    print(f"# {datetime.date.today()}, {t.versions['yosys']}, {t.versions[f'nextpnr-{fam}']}; "
+          f"{tools.part_title(fam)}; seeds {','.join(map(str, seeds))} (Fmax: median [min, max]); "
+          f"{time.monotonic() - start:.0f} s in all")
+
+    def row(name: str, ref: str, luts_target: float, fmax_target: float) -> str:
+        a, b = figures[name], figures[ref]
+        lr, fr = a["luts"] / (b["luts"] * luts_target), a["fmax"][0] / b["fmax"][0]
+        ok = lr <= 1.0 + 1e-12 and fr >= fmax_target
+        f = a["fmax"]
+        return (f"| {name} | {a['luts']} | {a['ffs']} | {a['latency']} | {f[0]:.1f} [{f[1]:.1f}, {f[2]:.1f}] | {ref} | "
+                f"{a['luts'] / b['luts']:.3f} (target <= {luts_target:g}) | {fr:.3f} (target >= {fmax_target:g}) | "
+                f"{'met' if ok else 'MISSED'} |")
+
+    print("\n| demapper | LUTs | FFs | latency | Fmax (MHz) | against | LUT ratio | Fmax ratio | targets |")
+    print("|---" * 9 + "|")
+    print(row("qam256", "qam256", 1.3, 0.0).replace("| met |", "| (reference) |"))
+    print(row("adaptive-4to256", "qam256", ADAPTIVE_LUTS, ADAPTIVE_FMAX))
+    one = f"qam{lanes_order}-x1"
+    for n in lanes:
+        name = f"qam{lanes_order}-x{n}"
+        r = row(name, one, LANES_LUTS * n, LANES_FMAX)
+        print(r.replace("| met |", "| (reference) |") if n == 1 else r)
+    return 0
 
 
 # --------------------------------------------------------------------------- calibration
@@ -232,12 +289,18 @@ def main() -> int:
     ap.add_argument("--shape", default="rectangular", choices=("rectangular", "cross"),
                     help="constellation.shape of the odd-bit orders (default: %(default)s)")
     ap.add_argument("--calibrate", action="store_true")
+    ap.add_argument("--targets", action="store_true",
+                    help="the adaptive-order and lanes targets (issue 10) on --family, with --seeds")
+    ap.add_argument("--lanes-order", type=int, default=64, help="--targets: the order of the lanes designs")
+    ap.add_argument("--lanes", default="1,2,4,8", help="--targets: lane counts (1 first: the reference)")
     ap.add_argument("--family", default="ice40", choices=tools.PNR_FAMILIES, help="the family --calibrate measures")
     args = ap.parse_args()
     seeds = [int(s) for s in args.seeds.split(",")]
     try:
         if args.calibrate:
             return calibrate(seeds, args.family)
+        if args.targets:
+            return targets(seeds, args.family, args.lanes_order, [int(n) for n in args.lanes.split(",")])
         families = tools.check_families(f.strip() for f in args.families.split(",") if f.strip())
         return bench([int(o) for o in args.orders.split(",")], seeds, families, args.shape)
     except (tools.ToolMissing, SpecError) as exc:
