@@ -1,3 +1,3 @@
 """The generator's version: stamped into every generated file and its content hash."""
 
-__version__ = "0.2.0"
+__version__ = "0.3.0"

@@ -85,9 +85,8 @@ def _f(default: Any, doc: str) -> Any:
 
 @dataclass(frozen=True, kw_only=True)
 class ConstellationSpec:
-    # these two docs are printed into every design.toml: left as they were so that the committed square designs
-    # regenerate byte for byte (the odd-bit orders and their labelings are in the doc of `shape`)
-    order: int = _f(16, "number of points M: one of 2, 4, 16, 64, 256, 1024, 4096")
+    order: int = _f(16, "number of points M: 2, 4, 8, 16, ... 4096 (odd-bit orders take constellation.shape); "
+                        "with constellation.orders, the largest of them")
     labeling: str = _f("gray", "bit labeling: gray, 3gpp-nr, ieee-802.11, natural, or table")
     shape: str = _f("rectangular", "odd-bit orders 8, 32, 128, 512, 2048 (labeling gray, natural or table; 3gpp-nr "
                     "and ieee-802.11 define none): rectangular (2^ceil(k/2) x 2^floor(k/2) levels, per axis; the "
