@@ -241,6 +241,18 @@ def test_embedded_local_cluster(cli, tmp_path: Path) -> None:
     assert "2 measured on 2 Dask worker(s)" in r.out
 
 
+def test_embedded_workers_keep_glibcs_dynamic_trim(monkeypatch) -> None:
+    """The embedded cluster's workers start without Dask's MALLOC_TRIM_THRESHOLD_ (KEEP_GLIBC_TRIM: with it the
+    sweep of bench_explore.py took 131 s instead of 105 s, page faults of the Monte-Carlo's temporaries)."""
+    pytest.importorskip("distributed", reason="dask.distributed (the explore extra) is not installed")
+    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_", raising=False)
+    with ex.DaskRunner(workers=1) as runner:
+        client = runner._connect(1)
+        assert client.submit(dict, pure=False).result() == {}                       # the worker runs tasks
+        assert client.run(lambda: __import__("os").environ.get("MALLOC_TRIM_THRESHOLD_")) == {
+            w: None for w in client.scheduler_info()["workers"]}
+
+
 @pytest.mark.synth
 @needs_yosys
 def test_rerun_computes_nothing_and_one_more_value_only_itself(cli, tmp_path: Path, monkeypatch) -> None:

@@ -618,14 +618,15 @@ class Progress:
 # --------------------------------------------------------------------------- runners
 
 
-def _need_dask() -> Any:
-    """dask.distributed, or a one-line SpecError naming the extra (exit 2)."""
+def _need_dask() -> tuple[Any, Any]:
+    """dask.distributed and dask.config, or a one-line SpecError naming the extra (exit 2)."""
     try:
+        import dask.config
         import distributed
     except ImportError:
         raise SpecError("explore", "dask.distributed", f"installed for parallel runs: {INSTALL} "
                         "(or --jobs 1 to run in this process)") from None
-    return distributed
+    return distributed, dask.config
 
 
 @contextlib.contextmanager
@@ -648,6 +649,13 @@ def dask_setup(worker: Any) -> None:
     """Dask's preload hook, run in each worker of the embedded cluster as it starts (a worker its nanny restarts
     too): it leaves Ctrl-C to the command, as above."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+#: Dask's nanny gives new workers MALLOC_TRIM_THRESHOLD_=65536; any explicit trim threshold turns off glibc's
+#: dynamic mmap threshold, so every large numpy temporary of a candidate's Monte-Carlo becomes a fresh mmap and
+#: its page faults (bench_explore.py's 24 candidates on 2 workers: 131 s wall and 41 s of system time with it,
+#: 105 s and 15 s without). None unsets it in the embedded cluster's workers (a value the user exported stays).
+KEEP_GLIBC_TRIM = {"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}
 
 
 def default_workers() -> int:
@@ -687,7 +695,7 @@ class DaskRunner(Runner):
     """An embedded LocalCluster (`workers` single-threaded processes, started only if there is work) or a scheduler."""
 
     def __init__(self, *, workers: int | None = None, address: str | None = None) -> None:
-        self.distributed = _need_dask()
+        self.distributed, self.dask_config = _need_dask()
         self.address = address
         self.workers = workers or default_workers()
         self.stack = contextlib.ExitStack()
@@ -725,7 +733,7 @@ class DaskRunner(Runner):
             self.workers = max(1, sum(self.client.nthreads().values()))
         else:
             n = min(self.workers, needed or self.workers)
-            with _workers_leave_ctrl_c():
+            with _workers_leave_ctrl_c(), self.dask_config.set(KEEP_GLIBC_TRIM):
                 cluster = self.stack.enter_context(d.LocalCluster(
                     n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None,
                     silence_logs=logging.CRITICAL, preload=[__name__]))          # runs dask_setup in each worker
