@@ -422,8 +422,7 @@ def test_cross_ber_theory_against_monte_carlo(order: int, esn0_db: float) -> Non
 
 @pytest.mark.parametrize("order,esn0_db", [(8, 10.0), (32, 16.0), (128, 22.0)], ids=["rect8", "rect32", "rect128"])
 def test_rectangle_ber_theory(order: int, esn0_db: float) -> None:
-    """Cho and Yoon 2002, I x J: equals the square formula for I = J, and a Monte-Carlo of nearest-point decisions."""
-    assert an.ber_gray_rectangular(8, 8, 12.0)[0] == pytest.approx(an.ber_gray_qam(64, 12.0)[0], rel=1e-12)
+    """Cho and Yoon 2002, I x J: against a Monte-Carlo of nearest-point decisions (squares: test_analysis)."""
     const = named(order, "gray")
     theory = float(an.ber_gray_qam(order, esn0_db)[0])
     rng = np.random.default_rng(order)
@@ -435,6 +434,21 @@ def test_rectangle_ber_theory(order: int, esn0_db: float) -> None:
     dec = np.argmin(np.abs(y[:, None] - const.points[None, :]), axis=1)
     mc = np.count_nonzero(bits[dec] != bits[lab]) / (n * const.bits)
     assert abs(mc - theory) < 4 * math.sqrt(theory * const.bits / (n * const.bits))
+
+
+@pytest.mark.parametrize("esn0_db", [6.0, 10.0, 14.0])
+def test_rectangle_ber_theory_of_8_points_by_hand(esn0_db: float) -> None:
+    """The 4 x 2 Gray rectangle from the per-bit errors of Gray 4-PAM (common practice): levels +-1, +-3 on I and
+    +-1 on Q (mean energy (16 + 4 - 2)/3 = 6), sigma^2 = Es / (2 Es/N0) per axis; the sign bit of 4-PAM errs with
+    (Q(1/s) + Q(3/s))/2, its inner bit with (2Q(1/s) + Q(3/s) - Q(5/s))/2, the BPSK axis with Q(1/s)."""
+    s = math.sqrt(6.0 / (2 * 10 ** (esn0_db / 10)))
+
+    def q(x: float) -> float:
+        return 0.5 * math.erfc(x / math.sqrt(2))
+
+    want = ((q(1 / s) + q(3 / s)) / 2 + (2 * q(1 / s) + q(3 / s) - q(5 / s)) / 2 + q(1 / s)) / 3
+    assert an.ber_gray_qam(8, esn0_db)[0] == pytest.approx(want, rel=1e-12)
+    assert an.ber_gray_rectangular(4, 2, esn0_db)[0] == pytest.approx(want, rel=1e-12)
 
 
 def test_theory_applies_to_odd_orders() -> None:

@@ -130,33 +130,16 @@ def check_symbols(symbols: int, bits: int, ber_floor: float | None = None) -> No
 
 
 def ber_gray_qam(order: int, esn0_db: float | np.ndarray) -> np.ndarray:
-    """Exact BER of Gray-labeled square M-QAM (and BPSK) with nearest-point decisions in AWGN.
+    """Exact BER of Gray-labeled M-QAM (and BPSK) with nearest-point decisions in AWGN.
 
-    Cho and Yoon, IEEE Trans. Commun. 50(7), 2002, eqs. (14)-(16) with I = J = sqrt(M):
-    P_b = (1 / log2 L) sum_k P(k), P(k) = (1/L) sum_{i=0}^{(1-2^-k)L-1} (-1)^floor(i 2^(k-1)/L)
-    (2^(k-1) - floor(i 2^(k-1)/L + 1/2)) erfc((2i+1) sqrt(3 Es/N0 / (2 (M-1)))).
-    BPSK: Q(sqrt(2 Es/N0)) = erfc(sqrt(Es/N0)) / 2. Odd-bit orders: the I x J rectangle of the same paper
-    (`ber_gray_rectangular`, I = 2^ceil(k/2), J = 2^floor(k/2)).
+    BPSK: Q(sqrt(2 Es/N0)) = erfc(sqrt(Es/N0)) / 2. Every other order is the I x J rectangle of Cho and Yoon
+    (`ber_gray_rectangular`), I = 2^ceil(k/2), J = 2^floor(k/2): the square I = J = sqrt(M) for even k.
     """
-    es = 10.0 ** (np.atleast_1d(np.asarray(esn0_db, dtype=np.float64)) / 10.0)
-    erfc = np.vectorize(math.erfc)
     if order == 2:
-        return 0.5 * erfc(np.sqrt(es))
+        es = 10.0 ** (np.atleast_1d(np.asarray(esn0_db, dtype=np.float64)) / 10.0)
+        return 0.5 * np.vectorize(math.erfc)(np.sqrt(es))
     k_bits = order.bit_length() - 1
-    if k_bits % 2:
-        return ber_gray_rectangular(1 << ((k_bits + 1) // 2), 1 << (k_bits // 2), esn0_db)
-    L = int(round(math.sqrt(order)))
-    m = L.bit_length() - 1
-    arg = np.sqrt(3.0 * es / (2.0 * (order - 1)))
-    total = np.zeros_like(es)
-    for k in range(1, m + 1):
-        pk = np.zeros_like(es)
-        for i in range(int((1 - 2.0 ** -k) * L)):
-            w = (i * 2 ** (k - 1)) // L
-            weight = (-1) ** w * (2 ** (k - 1) - math.floor(i * 2 ** (k - 1) / L + 0.5))
-            pk += weight * erfc((2 * i + 1) * arg)
-        total += pk / L
-    return total / m
+    return ber_gray_rectangular(1 << ((k_bits + 1) // 2), 1 << (k_bits // 2), esn0_db)
 
 
 def ber_gray_rectangular(levels_i: int, levels_q: int, esn0_db: float | np.ndarray) -> np.ndarray:

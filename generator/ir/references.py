@@ -16,7 +16,7 @@ import numpy as np
 
 from ..model import Design
 from .build import Builder
-from .core import Add, Compare, Field, Sub
+from .core import Add, Compare, Field, Signal, Sub
 from .demapper import SoftBit, min_tree, output_stage
 from .module import Module, Port, sideband, stream_ports
 from .schedule import schedule
@@ -96,15 +96,22 @@ def bruteforce_module(design: Design, name: str) -> Module:
             raise ValueError("the brute-force metric is not a multiple of 2^(f+2)")
         mag = b.resize(f"mag_{lb}", dm[dm.width - 1:f + 2], dm.width - f - 2, False)
         llrs.append(SoftBit(str(lb), mag, neg, (k - 1 - lb) * lw))
-    outs = output_stage(b, design.output_stage, llrs, scale, lw)
-    dp = b.build([Field(s, lsb) for s, lsb in outs], k * lw, 2 * W + sw)
-    i = design.spec.interface
-    return Module(name=name, role="reference", summary=(
+    return _reference_demapper(b, design, name, llrs, scale, (
         "Reference brute-force max-log demapper, generated only for the hardware comparison: per axis",
         "the distance to every level, two minima per axis bit, D = min1^2 - min0^2, then the same output stage",
-        "at the same widths. Never part of a design."),
-        datapath=dp, schedule=schedule(dp, ICE40, stages=BRUTEFORCE_STAGES, carried=sideband(i.tlast, i.tuser_width)),
-        ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width))
+        "at the same widths. Never part of a design."))
+
+
+def _reference_demapper(b: Builder, design: Design, name: str, llrs: list[SoftBit], scale: Signal | None,
+                        summary: tuple[str, ...]) -> Module:
+    """A brute-force reference from its soft bits: the design's output stage, its stream ports and sideband."""
+    d, i = design.spec.demapper, design.spec.interface
+    sw = design.scale_format.width if design.scale_format else 0
+    outs = output_stage(b, design.output_stage, llrs, scale, d.llr_width)
+    dp = b.build([Field(s, lsb) for s, lsb in outs], design.bits * d.llr_width, 2 * d.input_width + sw)
+    return Module(name=name, role="reference", summary=summary, datapath=dp,
+                  schedule=schedule(dp, ICE40, stages=BRUTEFORCE_STAGES, carried=sideband(i.tlast, i.tuser_width)),
+                  ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width))
 
 
 __all__ = ["BRUTEFORCE_STAGES", "adder_module", "bruteforce_module", "widest_adder"]
@@ -146,13 +153,8 @@ def _bruteforce_2d(design: Design, name: str) -> Module:
         full = b.mux(f"abs_{bit}", neg, nd, dif, width=max(top.bit_length(), f + 3), signed=False)
         mag = b.resize(f"mag_{bit}", full[full.width - 1:f + 2], full.width - f - 2, False)
         llrs.append(SoftBit(str(bit), mag, neg, (k - 1 - bit) * lw))
-    outs = output_stage(b, design.output_stage, llrs, scale, lw)
-    dp = b.build([Field(s, lsb) for s, lsb in outs], k * lw, 2 * W + sw)
-    i = design.spec.interface
-    return Module(name=name, role="reference", summary=(
+    return _reference_demapper(b, design, name, llrs, scale, (
         "Reference brute-force 2-D max-log demapper of a cross, generated only for the hardware comparison: the",
         "squared distance to every point, two minima per label bit, D = min1 - min0, then the same output stage",
-        "at the same widths. Never part of a design."),
-        datapath=dp, schedule=schedule(dp, ICE40, stages=BRUTEFORCE_STAGES, carried=sideband(i.tlast, i.tuser_width)),
-        ports=stream_ports(dp.in_width, dp.out_width, i.tlast, i.tuser_width))
+        "at the same widths. Never part of a design."))
 
